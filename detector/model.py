@@ -1,0 +1,410 @@
+"""Event classifier, location regressor and their model file.
+
+Two scikit-learn estimators follow the estimator contract (keyword-only ``__init__`` that only stores,
+fitted attributes ending in ``_``, ``fit`` returns ``self``):
+
+- :class:`FaultClassifier` gives calibrated probabilities over the event classes
+  ``none, turn_to_turn, to_ground, discharge_only``;
+- :class:`LocationRegressor` gives the fault position along the winding, 0 at the line end and 1 at the
+  neutral end.
+
+:class:`ShotModel` bundles both with the threshold table, the feature names and the feature-schema
+version, and a model card. It is saved with skops and loaded with an explicit list of trusted types:
+a model file can never run code the way an unpickled file can.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as _dt
+import zipfile
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
+from sklearn.calibration import CalibratedClassifierCV
+from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostingRegressor
+from sklearn.frozen import FrozenEstimator
+from sklearn.model_selection import train_test_split
+from sklearn.utils.multiclass import unique_labels
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+from ._validation import ShotcheckError, check_option
+
+__all__ = [
+    "EVENT_CLASSES",
+    "FaultClassifier",
+    "LocationRegressor",
+    "ShotModel",
+    "save_model",
+    "load_model",
+    "TRUSTED_TYPES",
+]
+
+#: Event classes in a fixed order (the classifier's probability columns follow it when all are seen).
+EVENT_CLASSES = ("none", "turn_to_turn", "to_ground", "discharge_only")
+
+MODEL_FORMAT = "shotcheck-model"
+MODEL_FORMAT_VERSION = 1
+
+
+def _check_params(est: BaseEstimator, constraints: Mapping[str, tuple[type, float | None, float | None]]) -> None:
+    """Check estimator parameters against ``{name: (type, low, high)}`` with sklearn-style messages."""
+    for name, (typ, low, high) in constraints.items():
+        value = getattr(est, name)
+        if value is None and typ is not bool:
+            continue
+        ok = isinstance(value, typ) and not isinstance(value, bool) or (typ is bool and isinstance(value, bool))
+        if ok and low is not None:
+            ok = value >= low
+        if ok and high is not None:
+            ok = value <= high
+        if not ok:
+            rng = f" in [{low}, {high}]" if (low is not None or high is not None) else ""
+            raise ShotcheckError(
+                f"The {name!r} parameter of {type(est).__name__} must be a {typ.__name__}{rng}. Got {value!r} instead."
+            )
+
+
+class FaultClassifier(ClassifierMixin, BaseEstimator):
+    """Calibrated gradient-boosting classifier over the event classes.
+
+    Parameters
+    ----------
+    max_iter : int, default=200
+        Boosting iterations of each gradient-boosting model.
+    learning_rate : float, default=0.08
+        Shrinkage of each boosting step.
+    max_leaf_nodes : int, default=31
+        Leaves per tree.
+    l2_regularization : float, default=1e-3
+        L2 penalty on leaf values.
+    calibration : {'isotonic', 'sigmoid'}, default='isotonic'
+        Probability calibration method, fitted on a held-out share of the data.
+    calibration_fraction : float, default=0.2
+        Share of the training set held out (stratified) to calibrate the probabilities.
+    random_state : int or None, default=0
+        Seed of the boosting models.
+
+    Attributes
+    ----------
+    classes_ : ndarray of str
+        Event classes seen in ``fit``.
+    n_features_in_ : int
+        Number of features seen in ``fit``.
+    calibrated_ : CalibratedClassifierCV
+        The fitted, calibrated model.
+    """
+
+    _constraints = {
+        "max_iter": (int, 1, None),
+        "learning_rate": (float, 1e-6, 1.0),
+        "max_leaf_nodes": (int, 2, None),
+        "l2_regularization": (float, 0.0, None),
+        "calibration_fraction": (float, 0.05, 0.5),
+    }
+
+    def __init__(
+        self,
+        *,
+        max_iter: int = 200,
+        learning_rate: float = 0.08,
+        max_leaf_nodes: int = 31,
+        l2_regularization: float = 1e-3,
+        calibration: str = "isotonic",
+        calibration_fraction: float = 0.2,
+        random_state: int | None = 0,
+    ):
+        self.max_iter = max_iter
+        self.learning_rate = learning_rate
+        self.max_leaf_nodes = max_leaf_nodes
+        self.l2_regularization = l2_regularization
+        self.calibration = calibration
+        self.calibration_fraction = calibration_fraction
+        self.random_state = random_state
+
+    def fit(self, X: Any, y: Any, sample_weight: Any = None) -> FaultClassifier:
+        """Fit on a feature matrix and event labels.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_samples, n_features)
+            Feature vectors (see :mod:`detector.features`).
+        y : array-like of shape (n_samples,)
+            Event class of each sample.
+        sample_weight : array-like of shape (n_samples,), optional
+            Weights.
+
+        Returns
+        -------
+        self
+        """
+        _check_params(self, self._constraints)
+        check_option("calibration", self.calibration, ("isotonic", "sigmoid"))
+        X, y = validate_data(self, X, y, ensure_min_samples=2)
+        self.classes_ = unique_labels(y)
+        if self.classes_.size < 2:
+            raise ValueError(f"FaultClassifier needs at least 2 classes in y, got {self.classes_.size}")
+        base = HistGradientBoostingClassifier(
+            max_iter=self.max_iter,
+            learning_rate=self.learning_rate,
+            max_leaf_nodes=self.max_leaf_nodes,
+            l2_regularization=self.l2_regularization,
+            # stop when a held-out 10 % stops improving (keeps the model file small); needs enough samples
+            early_stopping=bool(y.size >= 100 * self.classes_.size),
+            random_state=self.random_state,
+        )
+        # One boosted model fitted on most of the data, calibrated on a stratified held-out share: the
+        # model file stays small (a cross-validated calibration would store one model per fold).
+        counts = np.unique(y, return_counts=True)[1]
+        if counts.min() * self.calibration_fraction >= 6:  # the calibrator's own 5-fold split needs 5+ a class
+            idx_fit, idx_cal = train_test_split(
+                np.arange(y.size), test_size=self.calibration_fraction, stratify=y, random_state=self.random_state
+            )
+            sw = None if sample_weight is None else np.asarray(sample_weight, dtype=float)
+            base.fit(X[idx_fit], y[idx_fit], sample_weight=None if sw is None else sw[idx_fit])
+            self.calibrated_ = CalibratedClassifierCV(FrozenEstimator(base), method=self.calibration)
+            self.calibrated_.fit(X[idx_cal], y[idx_cal], sample_weight=None if sw is None else sw[idx_cal])
+            self.n_iter_ = base.n_iter_
+        else:  # too few samples of a class to hold some out: keep the raw probabilities
+            self.calibrated_ = base.fit(X, y, sample_weight=sample_weight)
+            self.n_iter_ = base.n_iter_
+        return self
+
+    def predict_proba(self, X: Any) -> np.ndarray:
+        """Probability of each class in ``classes_`` order, shape (n_samples, n_classes)."""
+        check_is_fitted(self)
+        X = validate_data(self, X, reset=False)
+        return self.calibrated_.predict_proba(X)
+
+    def predict(self, X: Any) -> np.ndarray:
+        """Most probable event class of each sample."""
+        check_is_fitted(self)
+        return self.classes_[np.argmax(self.predict_proba(X), axis=1)]
+
+
+class LocationRegressor(RegressorMixin, BaseEstimator):
+    """Gradient-boosting regressor of the fault position along the winding (0 line end .. 1 neutral end).
+
+    Parameters
+    ----------
+    max_iter : int, default=400
+        Boosting iterations.
+    learning_rate : float, default=0.06
+        Shrinkage.
+    max_leaf_nodes : int, default=31
+        Leaves per tree.
+    loss : {'absolute_error', 'squared_error'}, default='absolute_error'
+        Loss; the absolute error targets the median position.
+    random_state : int or None, default=0
+        Seed.
+
+    Attributes
+    ----------
+    model_ : HistGradientBoostingRegressor
+    n_features_in_ : int
+    """
+
+    _constraints = {
+        "max_iter": (int, 1, None),
+        "learning_rate": (float, 1e-6, 1.0),
+        "max_leaf_nodes": (int, 2, None),
+    }
+
+    def __init__(
+        self,
+        *,
+        max_iter: int = 400,
+        learning_rate: float = 0.06,
+        max_leaf_nodes: int = 31,
+        loss: str = "absolute_error",
+        random_state: int | None = 0,
+    ):
+        self.max_iter = max_iter
+        self.learning_rate = learning_rate
+        self.max_leaf_nodes = max_leaf_nodes
+        self.loss = loss
+        self.random_state = random_state
+
+    def fit(self, X: Any, y: Any, sample_weight: Any = None) -> LocationRegressor:
+        """Fit on feature vectors of faulted pairs and their positions (fraction 0..1 of the winding).
+
+        Returns
+        -------
+        self
+        """
+        _check_params(self, self._constraints)
+        check_option("loss", self.loss, ("absolute_error", "squared_error"))
+        X, y = validate_data(self, X, y, ensure_min_samples=2, y_numeric=True)
+        self.model_ = HistGradientBoostingRegressor(
+            loss=self.loss,
+            max_iter=self.max_iter,
+            learning_rate=self.learning_rate,
+            max_leaf_nodes=self.max_leaf_nodes,
+            early_stopping=bool(y.size >= 200),
+            random_state=self.random_state,
+        ).fit(X, y, sample_weight=sample_weight)
+        self.n_iter_ = self.model_.n_iter_
+        return self
+
+    def predict(self, X: Any) -> np.ndarray:
+        """Position along the winding, clipped to [0, 1] (fraction of its length from the line end)."""
+        check_is_fitted(self)
+        X = validate_data(self, X, reset=False)
+        return np.clip(self.model_.predict(X), 0.0, 1.0)
+
+
+@dataclasses.dataclass
+class ShotModel:
+    """Everything ``compare`` needs besides the records.
+
+    Parameters
+    ----------
+    classifier : FaultClassifier
+        Fitted event classifier.
+    locator : LocationRegressor or None
+        Fitted location regressor (None if the training set had no faults with positions).
+    feature_names : sequence of str
+        Column order of the feature vectors the estimators were trained on.
+    schema_version : str
+        Version of the feature schema (:data:`detector.features.SCHEMA_VERSION`).
+    thresholds : mapping of str to float
+        Calibrated threshold of each thresholded feature (a feature above it counts as exceeded).
+    card : mapping
+        Model card: training data description, figures, versions, creation time.
+    """
+
+    classifier: FaultClassifier
+    locator: LocationRegressor | None
+    feature_names: Sequence[str]
+    schema_version: str
+    thresholds: Mapping[str, float] = dataclasses.field(default_factory=dict)
+    card: Mapping[str, Any] = dataclasses.field(default_factory=dict)
+
+
+#: Types a model file may contain beyond skops' defaults. Anything else is refused on load.
+TRUSTED_TYPES: tuple[str, ...] = (
+    "detector.model.FaultClassifier",
+    "detector.model.LocationRegressor",
+    "sklearn.calibration._CalibratedClassifier",
+    "sklearn.ensemble._hist_gradient_boosting.binning._BinMapper",
+    "sklearn.ensemble._hist_gradient_boosting.predictor.TreePredictor",
+    "sklearn._loss.link.Interval",
+    "sklearn._loss.link.IdentityLink",
+    "sklearn._loss.link.LogitLink",
+    "sklearn._loss.link.MultinomialLogit",
+    "sklearn._loss.loss.AbsoluteError",
+    "sklearn._loss.loss.HalfSquaredError",
+    "sklearn._loss.loss.HalfBinomialLoss",
+    "sklearn._loss.loss.HalfMultinomialLoss",
+    "sklearn._loss._loss.CyHalfSquaredError",
+    "sklearn._loss._loss.CyAbsoluteError",
+    "sklearn._loss._loss.CyHalfBinomialLoss",
+    "sklearn._loss._loss.CyHalfMultinomialLoss",
+    "sklearn.calibration._SigmoidCalibration",
+    "sklearn.frozen._frozen.FrozenEstimator",
+    "sklearn.isotonic.IsotonicRegression",
+    "sklearn.utils._bunch.Bunch",
+    "builtins.slice",
+)
+
+
+def save_model(model: ShotModel, path: str | Path) -> None:
+    """Write a model file in skops format.
+
+    Parameters
+    ----------
+    model : ShotModel
+        The model to save.
+    path : str or Path
+        Destination, conventionally ending in ``.skops``.
+    """
+    import sklearn
+    import skops.io as sio
+
+    from . import __version__
+
+    card = dict(model.card)
+    card.setdefault("created", _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"))
+    card["sklearn_version"] = sklearn.__version__
+    card["shotcheck_version"] = __version__
+    payload = {
+        "format": MODEL_FORMAT,
+        "format_version": MODEL_FORMAT_VERSION,
+        "schema_version": str(model.schema_version),
+        "feature_names": [str(n) for n in model.feature_names],
+        "thresholds": {str(k): float(v) for k, v in model.thresholds.items()},
+        "card": card,
+        "classifier": model.classifier,
+        "locator": model.locator,
+    }
+    sio.dump(payload, Path(path), compression=zipfile.ZIP_DEFLATED, compresslevel=9)
+
+
+def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotModel:
+    """Load a model file written by :func:`save_model`, trusting only :data:`TRUSTED_TYPES`.
+
+    Parameters
+    ----------
+    path : str or Path
+        Model file (skops format).
+    expected_schema : str, optional
+        Feature-schema version the caller computes; a model trained on another schema is refused.
+
+    Returns
+    -------
+    ShotModel
+
+    Raises
+    ------
+    ShotcheckError
+        If the file is missing, not a skops file, contains untrusted types, is not a shotcheck model, or
+        was trained on another feature schema.
+    """
+    import skops.io as sio
+
+    p = Path(path)
+    if not p.is_file():
+        raise ShotcheckError(f"{p}: model file not found")
+    try:
+        untrusted = sio.get_untrusted_types(file=p)
+    except Exception as exc:  # a damaged or foreign file: say what it is not
+        raise ShotcheckError(f"{p}: not a readable skops model file ({type(exc).__name__}: {exc})") from None
+    refused = sorted(set(untrusted) - set(TRUSTED_TYPES))
+    if refused:
+        raise ShotcheckError(
+            f"{p}: the model file contains types that are not on shotcheck's trusted list: "
+            f"{', '.join(refused)}; refusing to load it"
+        )
+    try:
+        payload = sio.load(p, trusted=list(untrusted))
+    except Exception as exc:
+        raise ShotcheckError(f"{p}: could not load the model ({type(exc).__name__}: {exc})") from None
+    if not isinstance(payload, dict) or payload.get("format") != MODEL_FORMAT:
+        raise ShotcheckError(f"{p}: not a shotcheck model file (missing format tag {MODEL_FORMAT!r})")
+    if payload.get("format_version") != MODEL_FORMAT_VERSION:
+        raise ShotcheckError(
+            f"{p}: model format version {payload.get('format_version')!r}, this shotcheck reads {MODEL_FORMAT_VERSION}"
+        )
+    schema = payload.get("schema_version")
+    if expected_schema is not None and schema != expected_schema:
+        raise ShotcheckError(
+            f"{p}: the model was trained on feature schema {schema!r}, this shotcheck computes {expected_schema!r}; "
+            "retrain it with `shotcheck train`"
+        )
+    clf = payload.get("classifier")
+    if not isinstance(clf, FaultClassifier):
+        raise ShotcheckError(f"{p}: the model file holds no FaultClassifier")
+    loc = payload.get("locator")
+    if loc is not None and not isinstance(loc, LocationRegressor):
+        raise ShotcheckError(f"{p}: the 'locator' entry is not a LocationRegressor")
+    return ShotModel(
+        classifier=clf,
+        locator=loc,
+        feature_names=tuple(payload.get("feature_names", ())),
+        schema_version=str(schema),
+        thresholds=dict(payload.get("thresholds", {})),
+        card=dict(payload.get("card", {})),
+    )

@@ -1,0 +1,132 @@
+"""Estimator contract of the classifier and locator, and the trusted-type model file."""
+
+from __future__ import annotations
+
+import zipfile
+
+import numpy as np
+import pytest
+import skops.io as sio
+from sklearn.utils.estimator_checks import parametrize_with_checks
+
+from detector._validation import ShotcheckError
+from detector.model import (
+    EVENT_CLASSES,
+    FaultClassifier,
+    LocationRegressor,
+    ShotModel,
+    load_model,
+    save_model,
+)
+
+
+# scikit-learn's common estimator checks (clone, fit returns self, unfitted errors, NaN/inf messages...)
+@parametrize_with_checks(
+    [FaultClassifier(max_iter=10), LocationRegressor(max_iter=100, learning_rate=0.3)],
+    expected_failed_checks=lambda est: (
+        {
+            # positions are fractions of the winding, so predictions are clipped to [0, 1]; this check
+            # scores targets far outside that range
+            "check_regressors_train": "predictions clipped to the winding, 0..1",
+            "check_regressors_train(readonly_memmap=True)": "predictions clipped to 0..1",
+            "check_regressors_train(readonly_memmap=True,X_dtype=float32)": "predictions clipped to 0..1",
+        }
+        if isinstance(est, LocationRegressor)
+        else {}
+    ),
+)
+def test_sklearn_estimator_contract(estimator, check):
+    check(estimator)
+
+
+def _toy(n=600, seed=0):
+    rng = np.random.default_rng(seed)
+    y = np.array(EVENT_CLASSES)[rng.integers(0, 4, n)]
+    X = rng.normal(size=(n, 5))
+    for k, cls in enumerate(EVENT_CLASSES):
+        X[:, k] += 4.0 * (y == cls)
+    pos = rng.random(n)
+    X[:, 4] = pos + 0.01 * rng.normal(size=n)
+    return X, y, pos
+
+
+def test_classifier_learns_separable_classes_and_probabilities_sum_to_one():
+    X, y, _ = _toy()
+    clf = FaultClassifier(max_iter=50).fit(X, y)
+    p = clf.predict_proba(X)
+    assert p.shape == (X.shape[0], 4)
+    np.testing.assert_allclose(p.sum(axis=1), 1.0, atol=1e-9)
+    assert (clf.predict(X) == y).mean() > 0.95
+
+
+def test_locator_recovers_position():
+    X, _, pos = _toy()
+    loc = LocationRegressor(max_iter=100).fit(X, pos)
+    assert np.median(np.abs(loc.predict(X) - pos)) < 0.05
+    assert loc.predict(X).min() >= 0.0 and loc.predict(X).max() <= 1.0
+
+
+def test_bad_parameter_message():
+    X, y, _ = _toy(100)
+    with pytest.raises(ShotcheckError, match="The 'learning_rate' parameter of FaultClassifier must be a float"):
+        FaultClassifier(learning_rate=2.0).fit(X, y)
+    with pytest.raises(ShotcheckError, match="Invalid value for 'calibration'"):
+        FaultClassifier(calibration="platt").fit(X, y)
+
+
+def _model():
+    X, y, pos = _toy(400)
+    return ShotModel(
+        FaultClassifier(max_iter=20).fit(X, y),
+        LocationRegressor(max_iter=20).fit(X, pos),
+        [f"f{i}" for i in range(5)],
+        "test-1",
+        {"f0": 1.5},
+        {"training": "toy"},
+    ), X
+
+
+def test_round_trip_keeps_predictions_and_card(tmp_path):
+    m, X = _model()
+    p = tmp_path / "m.skops"
+    save_model(m, p)
+    m2 = load_model(p, expected_schema="test-1")
+    np.testing.assert_array_equal(m2.classifier.predict_proba(X), m.classifier.predict_proba(X))
+    np.testing.assert_array_equal(m2.locator.predict(X), m.locator.predict(X))
+    assert m2.thresholds == {"f0": 1.5}
+    assert m2.card["training"] == "toy" and "sklearn_version" in m2.card
+
+
+def test_schema_mismatch_refused(tmp_path):
+    m, _ = _model()
+    save_model(m, tmp_path / "m.skops")
+    with pytest.raises(ShotcheckError, match="trained on feature schema 'test-1'.*retrain"):
+        load_model(tmp_path / "m.skops", expected_schema="test-2")
+
+
+class Gadget:
+    """A type that no model file may carry."""
+
+    def __init__(self):
+        self.x = 1
+
+
+def test_untrusted_type_refused(tmp_path):
+    p = tmp_path / "evil.skops"
+    sio.dump({"format": "shotcheck-model", "classifier": Gadget()}, p)
+    with pytest.raises(ShotcheckError, match="not on shotcheck's trusted list: .*Gadget"):
+        load_model(p)
+
+
+def test_not_a_model_file(tmp_path):
+    p = tmp_path / "x.skops"
+    p.write_bytes(b"\x80\x04K\x01.")  # a pickle, never loaded as such
+    with pytest.raises(ShotcheckError, match="not a readable skops model file"):
+        load_model(p)
+    q = tmp_path / "y.skops"
+    sio.dump({"hello": 1}, q)
+    with pytest.raises(ShotcheckError, match="not a shotcheck model file"):
+        load_model(q)
+    with pytest.raises(ShotcheckError, match="model file not found"):
+        load_model(tmp_path / "none.skops")
+    assert zipfile.is_zipfile(q)

@@ -566,7 +566,10 @@ def read(
             )
         dat_path = sp
     else:
-        cfg = _parse_cfg(_decode_text(_read_bytes(p, "file"), sp, "configuration"), sp)
+        raw = _read_bytes(p, "file")
+        if not raw.strip():
+            raise FormatError("file is empty; expected a COMTRADE configuration", path=sp)
+        cfg = _parse_cfg(_decode_text(raw, sp, "configuration"), sp)
         dp = _sibling(p, "dat")
         dat = _read_bytes(dp, "data file", owner=p.name)
         dat_path = str(dp)
@@ -602,7 +605,10 @@ def read(
                 "(V, mV, kV, MV, A, mA, uA, kA)", path=sp, field="channel",
             )
     if not any(c.quantity == "voltage" for c in chans):
-        listing = ", ".join(f"{a.name!r} [{a.unit}]" for a in cfg.analogs) or "none"
+        listing = ", ".join(
+            f"{a.name!r} [{a.unit}]" + (" (unknown unit, ignored)" if a.name in skipped else "")
+            for a in cfg.analogs
+        ) or "none"
         raise RecordError(
             f"no voltage channel: no analog channel has a voltage unit (V, mV, kV, MV); channels: {listing}",
             path=sp, field="channels",

@@ -341,7 +341,7 @@ def read(
     if (d <= 0).any():
         i = int(np.argmax(d <= 0))
         raise FormatError(
-            f"time goes backwards or stands still ({table[i + 1, 0]!r} after {table[i, 0]!r} {tunit}); "
+            f"time goes backwards or stands still ({table[i + 1, 0]:g} {tunit} after {table[i, 0]:g} {tunit}); "
             "time must increase", path=p, field=f"line {header_line + 2 + i}",
         )
     chans = tuple(

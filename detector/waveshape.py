@@ -125,6 +125,10 @@ class DoubleExponential:
     tau2_s: float
     origin_s: float
 
+    def __post_init__(self) -> None:
+        for name in ("amplitude_V", "tau1_s", "tau2_s", "origin_s"):
+            object.__setattr__(self, name, float(getattr(self, name)))
+
     def __call__(self, times_s: Any) -> np.ndarray:
         """Evaluate the curve at ``times_s`` [s]; returns volts."""
         s = np.clip(np.asarray(times_s, dtype=np.float64) - self.origin_s, 0.0, None)
@@ -240,6 +244,12 @@ class WaveShape:
     tolerance: tuple[ToleranceCheck, ...]
     within_tolerance: bool
     warnings: tuple[str, ...]
+
+    def __post_init__(self) -> None:
+        for f in dataclasses.fields(self):
+            val = getattr(self, f.name)
+            if isinstance(val, float | np.floating) and not isinstance(val, bool):
+                object.__setattr__(self, f.name, float(val))
 
     def to_dict(self) -> dict[str, Any]:
         """Return the JSON form (DESIGN.md section 6): kV, us, percent; None where not applicable.
@@ -430,8 +440,11 @@ def _prepare(times_s: Any, voltage_V: Any, source: str | None) -> _Prepared:
                      "or switching impulse")
     dv = np.diff(v)
     sigma = float(1.4826 * np.median(np.abs(dv - np.median(dv))) / math.sqrt(2.0))
-    # polarity from the larger excursion from the first samples
+    # polarity from the larger excursion from the first samples; if those already sit far from zero the
+    # record may start on the impulse itself, so take zero as the reference (caught below as no front)
     b0 = float(np.median(v[:8]))
+    if abs(b0) > 0.25 * span:
+        b0 = 0.0
     dev = v - b0
     iext = int(np.argmax(np.abs(dev)))
     sign = 1.0 if dev[iext] > 0 else -1.0
@@ -677,7 +690,8 @@ def _evaluate_lightning(p: _Prepared, chopped: bool | None, *, specified_test_vo
     if chopped is True and i_col is None:
         raise _error(source, "no voltage collapse found; expected a chopped lightning impulse")
     if chopped is False and i_col is not None:
-        raise _error(source, f"the voltage collapses at t = {(p.t0 + i_col * p.dt) * 1e6:.3f} us (chopped "
+        tc_idx = _chopping(p, i_col, source)[0]
+        raise _error(source, f"the voltage collapses at t = {(p.t0 + tc_idx * p.dt) * 1e6:.3f} us (chopped "
                      "impulse); use kind 'lightning_chopped' or let the kind be detected")
     is_chopped = i_col is not None
     warnings = list(p.warnings)

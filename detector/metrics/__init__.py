@@ -1,0 +1,36 @@
+"""Comparison metrics of an aligned reference/test pair.
+
+:mod:`.timedomain`
+    Difference traces, noise floor, window deviations, deviation onset, voltage collapse.
+:mod:`.transfer`
+    Transfer function current/voltage with an exponential window and indices comparing two of them.
+:mod:`.wavelet`
+    Per-level wavelet difference of the two currents and the time of the first significant difference.
+
+All functions are pure: arrays (or an :class:`detector.preprocess.AlignedPair`) in, numbers and named
+tuples out, SI units (per unit for normalised records).
+"""
+
+from .timedomain import TimeDomainMetrics, time_domain_metrics, voltage_collapse
+from .transfer import (
+    DLT911_BANDS_HZ,
+    TransferComparison,
+    TransferFunction,
+    compare_transfer,
+    transfer_function,
+)
+from .wavelet import BoundaryEffectWarning, WaveletDifference, wavelet_difference
+
+__all__ = [
+    "DLT911_BANDS_HZ",
+    "BoundaryEffectWarning",
+    "TimeDomainMetrics",
+    "TransferComparison",
+    "TransferFunction",
+    "WaveletDifference",
+    "compare_transfer",
+    "time_domain_metrics",
+    "transfer_function",
+    "voltage_collapse",
+    "wavelet_difference",
+]

@@ -1,0 +1,470 @@
+"""Time-domain comparison of an aligned reference/test pair.
+
+Difference traces of the per-unit voltage and of the level-normalised current, their noise floor from the
+pre-triggers, the largest deviation in the front, crest and tail windows (in noise units and in percent of
+the reference peak), the onset of the deviation, and detection of a voltage collapse (chopping, or a
+breakdown to ground).
+
+Windows (defined on the reference voltage, per unit, positive polarity):
+
+``front``
+    From the foot of the front (end of the pre-trigger) to the reference voltage maximum.
+``crest``
+    From the maximum to the first sample after it where the voltage has fallen below 90 % of the maximum
+    (the region of the overshoot oscillation and the first winding oscillations).
+``tail``
+    From there to the end of the compared span.
+``all``
+    The whole compared span, pre-trigger included.
+
+The compared span ends where either record's voltage collapses (a chopped test shot compared with a full
+reference differs trivially after the chop), less a guard of ``collapse_guard_s``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections.abc import Mapping
+from types import MappingProxyType
+from typing import NamedTuple
+
+import numpy as np
+
+from .._validation import ShotcheckError, check_range
+from ..preprocess import AlignedPair, _median3
+
+__all__ = [
+    "WINDOW_NAMES",
+    "Collapse",
+    "NoiseFloor",
+    "TimeDomainMetrics",
+    "WindowDeviation",
+    "deviation_onset",
+    "difference_traces",
+    "noise_floor",
+    "time_domain_metrics",
+    "voltage_collapse",
+    "voltage_windows",
+    "window_deviations",
+]
+
+#: Window names in order.
+WINDOW_NAMES = ("front", "crest", "tail", "all")
+
+
+class NoiseFloor(NamedTuple):
+    """Standard deviation of the noise on a difference trace (unit of the trace).
+
+    ``rms`` and ``mad`` combine the two records' estimates as ``sqrt(s_ref**2 + s_test**2)``
+    (independent noise adds in power).
+    """
+
+    rms: float
+    mad: float
+
+
+def noise_floor(ref_sigma: tuple[float, float], test_sigma: tuple[float, float]) -> NoiseFloor:
+    """Noise floor of a difference trace from the noise of its two records.
+
+    Parameters
+    ----------
+    ref_sigma, test_sigma : (float, float)
+        ``(rms, mad)`` noise standard deviations of the reference and test records [p.u. or A/V], e.g. from
+        :func:`detector.preprocess.noise_estimate` on the pre-triggers.
+
+    Returns
+    -------
+    NoiseFloor
+        Standard deviations of ``test - ref`` [same unit].
+    """
+    (r1, m1), (r2, m2) = ref_sigma, test_sigma
+    return NoiseFloor(math.hypot(r1, r2), math.hypot(m1, m2))
+
+
+def difference_traces(pair: AlignedPair) -> tuple[np.ndarray, np.ndarray]:
+    """Difference traces test minus reference.
+
+    Parameters
+    ----------
+    pair : AlignedPair
+        Aligned, level-normalised records.
+
+    Returns
+    -------
+    dv_pu : numpy.ndarray
+        Voltage difference [p.u. of each record's test voltage].
+    di_pu : numpy.ndarray
+        Current difference [A/V], i.e. current per volt of test voltage.
+    """
+    return pair.test_voltage_pu - pair.ref_voltage_pu, pair.test_current_pu - pair.ref_current_pu
+
+
+@dataclasses.dataclass(frozen=True)
+class Collapse:
+    """A steep fall of the voltage (chopping or breakdown).
+
+    Attributes
+    ----------
+    index : int
+        Sample index of the voltage just before the fall (its local maximum).
+    time_s : float
+        Instant of the collapse [s, from the first sample]: the line through the 70 % and 10 % points of
+        the fall, extended to the voltage before the fall.
+    voltage_before_pu : float
+        Voltage before the fall [p.u.].
+    voltage_after_pu : float
+        Lowest voltage within ``4 * max_fall_time_s`` after the fall began [p.u.].
+    fall_time_s : float
+        Duration of the fall from 100 % to 0 on that line [s] (``(t10 - t70) / 0.6``).
+    """
+
+    index: int
+    time_s: float
+    voltage_before_pu: float
+    voltage_after_pu: float
+    fall_time_s: float
+
+
+def voltage_collapse(
+    voltage_pu: np.ndarray,
+    dt: float,
+    *,
+    min_drop_pu: float = 0.3,
+    max_fall_time_s: float = 0.5e-6,
+) -> Collapse | None:
+    """Find the first steep fall of the voltage: chopping or a breakdown to ground.
+
+    Parameters
+    ----------
+    voltage_pu : array_like
+        Voltage, positive polarity [p.u.; any unit works, the drop is relative to the maximum].
+    dt : float
+        Sample interval [s].
+    min_drop_pu : float
+        Smallest fall, as a fraction of the maximum of the record, that counts [1].
+    max_fall_time_s : float
+        The fall must happen within this time [s]. A 1.2/50 tail loses about 0.01 p.u. per microsecond;
+        a chopping gap removes the voltage in well under a microsecond (common practice).
+
+    Returns
+    -------
+    Collapse or None
+        None if the voltage never falls by ``min_drop_pu`` within ``max_fall_time_s``.
+
+    Notes
+    -----
+    The instant follows the IEC 60060-1 construction for chopped impulses (from memory): the straight
+    line through the points where the fall passes 70 % and 10 % of the voltage before the fall, taken at
+    the voltage before the fall.
+    """
+    v = np.asarray(voltage_pu, dtype=np.float64)
+    dt = check_range("dt", dt, 0.0, None, low_inclusive=False, unit="s")
+    min_drop_pu = check_range("min_drop_pu", min_drop_pu, 0.0, 1.0, low_inclusive=False)
+    max_fall_time_s = check_range("max_fall_time_s", max_fall_time_s, 0.0, None, low_inclusive=False,
+                                  unit="s")
+    w = max(1, int(round(max_fall_time_s / dt)))
+    if v.size <= w:
+        return None
+    peak = float(np.max(_median3(v)))
+    if peak <= 0.0:
+        return None
+    drop = v[:-w] - v[w:]
+    hits = np.flatnonzero(drop >= min_drop_pu * peak)
+    if hits.size == 0:
+        return None
+    i = int(hits[0])
+    i_top = i + int(np.argmax(v[i : i + w + 1]))
+    u = float(v[i_top])
+    after = v[i_top:]
+    below70 = np.flatnonzero(after < 0.7 * u)
+    j70 = int(below70[0])
+    t70 = j70 - 1 + (after[j70 - 1] - 0.7 * u) / (after[j70 - 1] - after[j70])
+    below10 = np.flatnonzero(after[j70:] < 0.1 * u)
+    if below10.size:
+        j10 = j70 + int(below10[0])
+        t10 = j10 - 1 + (after[j10 - 1] - 0.1 * u) / (after[j10 - 1] - after[j10])
+    else:
+        # partial collapse: use the steepest part of the fall instead of the 10 % point
+        span = after[j70 : j70 + 2 * w]
+        j10 = j70 + int(np.argmin(span))
+        t10 = float(j10)
+        frac_low = after[j10] / u
+        fall = (t10 - t70) / max(0.7 - frac_low, 1e-9)
+        t_c = t70 - 0.3 * fall
+        return Collapse(i_top, (i_top + t_c) * dt, u, float(after[j10]), float(fall * dt))
+    fall = (t10 - t70) / 0.6
+    t_c = t70 - 0.3 * fall
+    low = float(np.min(v[i_top : i_top + 4 * w + 1]))
+    return Collapse(i_top, float((i_top + t_c) * dt), u, low, float(fall * dt))
+
+
+def voltage_windows(voltage_pu: np.ndarray, *, pretrigger_samples: int = 0, stop: int | None = None,
+                    crest_fraction: float = 0.9) -> dict[str, slice]:
+    """Front, crest and tail windows of the reference voltage.
+
+    Parameters
+    ----------
+    voltage_pu : array_like
+        Reference voltage, positive polarity [p.u.].
+    pretrigger_samples : int
+        Samples before the foot of the front.
+    stop : int, optional
+        End of the compared span (exclusive); default the record length.
+    crest_fraction : float
+        The crest ends where the voltage first falls below this fraction of its maximum [1].
+
+    Returns
+    -------
+    dict of str to slice
+        ``{"front", "crest", "tail", "all"}`` as index slices; a window may be empty.
+    """
+    v = np.asarray(voltage_pu, dtype=np.float64)
+    n = v.size if stop is None else int(min(max(stop, 1), v.size))
+    vv = _median3(v[:n])
+    i_pk = int(np.argmax(vv))
+    start = int(min(max(pretrigger_samples, 0), i_pk))
+    fallen = np.flatnonzero(vv[i_pk:] < crest_fraction * vv[i_pk])
+    i_fall = i_pk + int(fallen[0]) if fallen.size else n
+    return {
+        "front": slice(start, i_pk),
+        "crest": slice(i_pk, i_fall),
+        "tail": slice(i_fall, n),
+        "all": slice(0, n),
+    }
+
+
+class WindowDeviation(NamedTuple):
+    """Largest deviation within one window.
+
+    Attributes
+    ----------
+    max_abs : float
+        Largest ``|test - ref|`` [p.u. or A/V].
+    max_sigma : float
+        The same in units of the noise standard deviation of the difference [1].
+    max_percent : float
+        The same in percent of the reference peak magnitude [%].
+    time_s : float
+        Time of the largest deviation on the pair's time axis [s]; NaN for an empty window.
+    """
+
+    max_abs: float
+    max_sigma: float
+    max_percent: float
+    time_s: float
+
+
+def window_deviations(
+    diff: np.ndarray,
+    sigma: float,
+    ref_peak: float,
+    windows: Mapping[str, slice],
+    times_s: np.ndarray,
+) -> dict[str, WindowDeviation]:
+    """Largest deviation per window in noise units and in percent of the reference peak.
+
+    Parameters
+    ----------
+    diff : array_like
+        Difference trace [p.u. or A/V].
+    sigma : float
+        Noise standard deviation of the difference [same unit], > 0.
+    ref_peak : float
+        Reference peak magnitude [same unit], > 0.
+    windows : mapping of str to slice
+        Windows, e.g. from :func:`voltage_windows`.
+    times_s : array_like
+        Sample times [s].
+
+    Returns
+    -------
+    dict of str to WindowDeviation
+    """
+    sigma = check_range("sigma", sigma, 0.0, None, low_inclusive=False)
+    ref_peak = check_range("ref_peak", ref_peak, 0.0, None, low_inclusive=False)
+    a = np.abs(np.asarray(diff, dtype=np.float64))
+    out = {}
+    for name, sl in windows.items():
+        seg = a[sl]
+        if seg.size == 0:
+            out[name] = WindowDeviation(0.0, 0.0, 0.0, float("nan"))
+            continue
+        k = int(np.argmax(seg))
+        m = float(seg[k])
+        out[name] = WindowDeviation(m, m / sigma, 100.0 * m / ref_peak, float(times_s[sl.start + k]))
+    return out
+
+
+def deviation_onset(
+    diff: np.ndarray,
+    sigma: float,
+    dt: float,
+    *,
+    k_sigma: float = 5.0,
+    min_duration_s: float = 50e-9,
+    stop: int | None = None,
+) -> int | None:
+    """First sample from which the difference stays beyond ``k_sigma`` noise deviations for a while.
+
+    Parameters
+    ----------
+    diff : array_like
+        Difference trace [p.u. or A/V].
+    sigma : float
+        Noise standard deviation of the difference [same unit], > 0.
+    dt : float
+        Sample interval [s].
+    k_sigma : float
+        Threshold in noise standard deviations [1].
+    min_duration_s : float
+        The difference must exceed the threshold for at least this long without a break [s]
+        (rounded to whole samples, at least one).
+    stop : int, optional
+        Search only before this index.
+
+    Returns
+    -------
+    int or None
+        Index of the onset, None if there is none.
+    """
+    sigma = check_range("sigma", sigma, 0.0, None, low_inclusive=False)
+    dt = check_range("dt", dt, 0.0, None, low_inclusive=False, unit="s")
+    k_sigma = check_range("k_sigma", k_sigma, 0.0, None, low_inclusive=False)
+    min_duration_s = check_range("min_duration_s", min_duration_s, 0.0, None, unit="s")
+    a = np.abs(np.asarray(diff, dtype=np.float64))
+    if stop is not None:
+        a = a[: max(int(stop), 0)]
+    m = max(1, int(round(min_duration_s / dt)))
+    if a.size < m:
+        return None
+    over = (a > k_sigma * sigma).astype(np.int64)
+    c = np.concatenate(([0], np.cumsum(over)))
+    full = np.flatnonzero(c[m:] - c[:-m] == m)
+    return int(full[0]) if full.size else None
+
+
+@dataclasses.dataclass(frozen=True)
+class TimeDomainMetrics:
+    """Time-domain comparison of one aligned pair.
+
+    Attributes
+    ----------
+    dv_pu, di_pu : numpy.ndarray
+        Difference traces, test minus reference [p.u.] and [A/V].
+    voltage_noise, current_noise : NoiseFloor
+        Noise of the difference traces from the two pre-triggers.
+    voltage_sigma_pu, current_sigma_pu : float
+        Noise standard deviation actually used (the MAD-based one, not below ``sigma_floor_rel`` of
+        the reference peak) [p.u.], [A/V].
+    windows : mapping of str to (float, float)
+        Start and end time of each window on the pair's time axis [s].
+    voltage, current : mapping of str to WindowDeviation
+        Largest deviations per window.
+    voltage_onset_s, current_onset_s, onset_s : float or None
+        Deviation onset of each trace and the earlier of the two [s, pair time axis].
+    ref_collapse, test_collapse : Collapse or None
+        Voltage collapse of each record (times on the pair's time axis).
+    compared_until_s : float
+        End of the compared span [s, pair time axis].
+    """
+
+    dv_pu: np.ndarray
+    di_pu: np.ndarray
+    voltage_noise: NoiseFloor
+    current_noise: NoiseFloor
+    voltage_sigma_pu: float
+    current_sigma_pu: float
+    windows: Mapping[str, tuple[float, float]]
+    voltage: Mapping[str, WindowDeviation]
+    current: Mapping[str, WindowDeviation]
+    voltage_onset_s: float | None
+    current_onset_s: float | None
+    onset_s: float | None
+    ref_collapse: Collapse | None
+    test_collapse: Collapse | None
+    compared_until_s: float
+
+
+def _shift_collapse(c: Collapse | None, t0: float) -> Collapse | None:
+    return None if c is None else dataclasses.replace(c, time_s=c.time_s + t0)
+
+
+def time_domain_metrics(
+    pair: AlignedPair,
+    *,
+    k_sigma: float = 5.0,
+    min_duration_s: float = 50e-9,
+    sigma_floor_rel: float = 1e-5,
+    collapse_guard_s: float = 0.2e-6,
+) -> TimeDomainMetrics:
+    """All time-domain metrics of an aligned pair.
+
+    Parameters
+    ----------
+    pair : AlignedPair
+        From :func:`detector.preprocess.align_pair`.
+    k_sigma : float
+        Onset threshold in noise standard deviations [1].
+    min_duration_s : float
+        Minimum duration above the threshold for an onset [s].
+    sigma_floor_rel : float
+        Lower bound of the noise standard deviation as a fraction of the reference peak of each trace
+        [1], so that noise-free (synthetic) records give finite numbers.
+    collapse_guard_s : float
+        The compared span ends this long before the earlier voltage collapse [s].
+
+    Returns
+    -------
+    TimeDomainMetrics
+    """
+    check_range("sigma_floor_rel", sigma_floor_rel, 0.0, None, low_inclusive=False)
+    check_range("collapse_guard_s", collapse_guard_s, 0.0, None, unit="s")
+    dt = pair.sample_interval_s
+    t = pair.times_s
+    dv, di = difference_traces(pair)
+    nv = noise_floor((pair.ref_noise.voltage_rms_pu, pair.ref_noise.voltage_mad_pu),
+                     (pair.test_noise.voltage_rms_pu, pair.test_noise.voltage_mad_pu))
+    ni = noise_floor((pair.ref_noise.current_rms_pu, pair.ref_noise.current_mad_pu),
+                     (pair.test_noise.current_rms_pu, pair.test_noise.current_mad_pu))
+    pk_v = float(np.max(np.abs(pair.ref_voltage_pu)))
+    pk_i = float(np.max(np.abs(pair.ref_current_pu)))
+    if pk_v == 0.0 or pk_i == 0.0:
+        raise ShotcheckError("the reference voltage or current is identically zero after alignment")
+    sv = max(nv.mad if np.isfinite(nv.mad) else 0.0, sigma_floor_rel * pk_v)
+    si = max(ni.mad if np.isfinite(ni.mad) else 0.0, sigma_floor_rel * pk_i)
+
+    c_ref = voltage_collapse(pair.ref_voltage_pu, dt)
+    c_test = voltage_collapse(pair.test_voltage_pu, dt)
+    stop = t.size
+    for c in (c_ref, c_test):
+        if c is not None:
+            stop = min(stop, c.index - int(round(collapse_guard_s / dt)))
+    stop = max(stop, 1)
+    wins = voltage_windows(pair.ref_voltage_pu, pretrigger_samples=pair.pretrigger_samples, stop=stop)
+    win_times = {k: (float(t[s.start]) if s.stop > s.start else float("nan"),
+                     float(t[s.stop - 1]) if s.stop > s.start else float("nan")) for k, s in wins.items()}
+    dev_v = window_deviations(dv, sv, pk_v, wins, t)
+    dev_i = window_deviations(di, si, pk_i, wins, t)
+    ov = deviation_onset(dv, sv, dt, k_sigma=k_sigma, min_duration_s=min_duration_s, stop=stop)
+    oi = deviation_onset(di, si, dt, k_sigma=k_sigma, min_duration_s=min_duration_s, stop=stop)
+    ov_s = None if ov is None else float(t[ov])
+    oi_s = None if oi is None else float(t[oi])
+    onsets = [x for x in (ov_s, oi_s) if x is not None]
+    return TimeDomainMetrics(
+        dv_pu=dv,
+        di_pu=di,
+        voltage_noise=nv,
+        current_noise=ni,
+        voltage_sigma_pu=sv,
+        current_sigma_pu=si,
+        windows=MappingProxyType(win_times),
+        voltage=MappingProxyType(dev_v),
+        current=MappingProxyType(dev_i),
+        voltage_onset_s=ov_s,
+        current_onset_s=oi_s,
+        onset_s=min(onsets) if onsets else None,
+        ref_collapse=_shift_collapse(c_ref, float(t[0])),
+        test_collapse=_shift_collapse(c_test, float(t[0])),
+        compared_until_s=float(t[stop - 1]),
+    )

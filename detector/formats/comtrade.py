@@ -351,7 +351,9 @@ def _parse_dat(data: bytes, cfg: _Cfg, path: str) -> tuple[np.ndarray, np.ndarra
             if body.endswith(b","):
                 body += b"nan"
         cols = ["sample number", "time stamp", *names, *[f"digital {k + 1}" for k in range(cfg.n_digital)]]
-        table = parse_table(body, sep=",", ncols=ncols, path=path, first_line=1, column_names=cols)
+        table = parse_table(
+            body, sep=",", ncols=ncols, path=path, first_line=1, column_names=cols, integers=True
+        )
         rows = table.shape[0]
         if rows != n:
             _count_error(rows, n, path, "lines")
@@ -470,6 +472,19 @@ def _sibling(path: Path, ext: str) -> Path:
     return path.with_suffix("." + (ext.upper() if path.suffix.isupper() else ext.lower()))
 
 
+def _next_cff_header(data: bytes, pos: int) -> re.Match[bytes] | None:
+    """Next section line at or after ``pos`` (bytes.find skips data fast; the regex checks the line)."""
+    while True:
+        k = data.find(b"---", pos)
+        if k < 0:
+            return None
+        if k == 0 or data[k - 1:k] == b"\n":
+            m = _CFF_HEADER.match(data, k)
+            if m:
+                return m
+        pos = k + 3
+
+
 def _split_cff(data: bytes, path: str) -> tuple[str, bytes, str, str]:
     """Split a .cff into (cfg text, dat bytes, dat section word, inf text) (clause 9, from memory)."""
     if not data.strip():
@@ -478,7 +493,7 @@ def _split_cff(data: bytes, path: str) -> tuple[str, bytes, str, str]:
     pos = 0
     first = True
     while True:
-        m = _CFF_HEADER.search(data, pos)
+        m = _next_cff_header(data, pos)
         if m is None:
             if first:
                 raise FormatError(
@@ -512,7 +527,7 @@ def _split_cff(data: bytes, path: str) -> tuple[str, bytes, str, str]:
                 parts["DAT"] = (data[start : start + nbytes], word, line_no)
                 pos = start + nbytes
                 continue
-        nxt = _CFF_HEADER.search(data, start)
+        nxt = _next_cff_header(data, start)
         end = nxt.start() if nxt else len(data)
         parts[kind] = (data[start:end], word, line_no)
         pos = end

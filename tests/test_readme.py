@@ -1,0 +1,34 @@
+"""The README's quick start and .ci/run must not drift apart; the job paragraph and the caution stay."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _quick_start_commands() -> list[str]:
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    section = text.split("## Quick start", 1)[1].split("\n## ", 1)[0]
+    return re.findall(r"```bash\n(.+?)\n```", section, flags=re.S)
+
+
+def test_quick_start_has_exactly_two_commands():
+    cmds = _quick_start_commands()
+    assert len(cmds) == 2
+    assert all("\n" not in c for c in cmds)
+
+
+def test_ci_runs_the_readme_test_command_verbatim():
+    test_cmd = _quick_start_commands()[1]
+    ci = (ROOT / ".ci" / "run").read_text(encoding="utf-8").splitlines()
+    assert test_cmd in ci
+    assert "pytest" in test_cmd
+
+
+def test_readme_opens_with_the_job_and_keeps_the_caution():
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    first_para = text.split("\n\n")[1]
+    assert "impulse" in first_para and "transformer" in first_para
+    assert "## Safety" in text and "responsible" in text

@@ -496,13 +496,19 @@ def front_delay_s(ref_v: np.ndarray, test_v: np.ndarray, dt: float) -> float:
     return float(d * dt)
 
 
-def _periodic_extension(x: np.ndarray, n_pad: int) -> np.ndarray:
-    """Append a raised-cosine blend from ``x[-1]`` back to ``x[0]`` so the periodic extension is smooth."""
+def _periodic_extension(x: np.ndarray, n_pad: int, hold: int = 0) -> np.ndarray:
+    """Append ``n_pad`` samples so that the periodic extension of ``x`` is smooth.
+
+    The padding holds ``x[-1]`` for ``hold`` samples, blends to ``x[0]`` with a raised cosine, and holds
+    ``x[0]`` for the last ``hold`` samples (``hold`` is reduced if the padding is too short).
+    """
     if n_pad <= 0:
         return x
-    k = (np.arange(1, n_pad + 1)) / (n_pad + 1)
+    hold = max(0, min(hold, (n_pad - 8) // 2))
+    n_blend = n_pad - 2 * hold
+    k = np.arange(1, n_blend + 1) / (n_blend + 1)
     blend = x[-1] + (x[0] - x[-1]) * 0.5 * (1.0 - np.cos(np.pi * k))
-    return np.concatenate((x, blend))
+    return np.concatenate((x, np.full(hold, x[-1]), blend, np.full(hold, x[0])))
 
 
 def shift_fourier(x: np.ndarray, delay_s: float, dt: float) -> np.ndarray:
@@ -527,7 +533,8 @@ def shift_fourier(x: np.ndarray, delay_s: float, dt: float) -> np.ndarray:
     -----
     ``Y(f) = X(f) exp(-j 2 pi f delay_s)``. The signal is padded with the blend (at least the shift plus
     16 samples, and one eighth of its length) before the FFT so that content does not wrap around from
-    one end to the other.
+    one end to the other; the padding holds each end value for the length of the shift before blending,
+    so what is shifted in equals the nearest end value.
     """
     x = np.asarray(x, dtype=np.float64)
     dt = check_range("dt", dt, 0.0, None, low_inclusive=False, unit="s")
@@ -536,8 +543,9 @@ def shift_fourier(x: np.ndarray, delay_s: float, dt: float) -> np.ndarray:
         return x.copy()
     shift = delay_s / dt
     n = x.size
-    n_fft = sfft.next_fast_len(n + max(int(math.ceil(abs(shift))) + 16, n // 8), real=True)
-    xp = _periodic_extension(x, n_fft - n)
+    hold = int(math.ceil(abs(shift))) + 8
+    n_fft = sfft.next_fast_len(n + max(2 * hold + 16, n // 8), real=True)
+    xp = _periodic_extension(x, n_fft - n, hold)
     spec = sfft.rfft(xp)
     k = np.arange(spec.size)
     spec *= np.exp(-2j * np.pi * k * shift / n_fft)
@@ -641,8 +649,8 @@ def _prepare(rec: Record, label: str, test_voltage_V: float | None, warnings: li
     if test_voltage_V is None:
         ut = abs(peak)
     else:
-        ut = check_range(f"{label}_test_voltage_V", abs(float(test_voltage_V)), 0.0, None,
-                         low_inclusive=False, unit="V")
+        name = "ref_test_voltage_V" if label == "reference" else "test_test_voltage_V"
+        ut = check_range(name, abs(float(test_voltage_V)), 0.0, None, low_inclusive=False, unit="V")
     pu = normalise(rec, polarity * ut)
     v_pu, i_pu = pu.voltage_pu, pu.current_pu
     if n_pre >= MIN_NOISE_SAMPLES:
@@ -715,11 +723,22 @@ def align_pair(
     grid = common_grid(ref, tst, method=method)
     warnings.extend(grid.warnings)
     dt = grid.reference.sample_interval_s
-    ref, rv, ri, npre_r, noise_r, ut_r, pol_r = _prepare(grid.reference, "reference",
-                                                         ref_test_voltage_V, warnings)
-    tst, tv, ti, npre_t, noise_t, ut_t, pol_t = _prepare(grid.test, "test", test_test_voltage_V, warnings)
-
-    delay = front_delay_s(rv, tv, dt)
+    prepared = []
+    for rec, label, ut in ((grid.reference, "reference", ref_test_voltage_V),
+                           (grid.test, "test", test_test_voltage_V)):
+        try:
+            prepared.append(_prepare(rec, label, ut, warnings))
+        except RecordError:
+            raise
+        except ShotcheckError as exc:
+            raise RecordError(str(exc), path=rec.source, field=f"{label} voltage") from None
+    ref, rv, ri, npre_r, noise_r, ut_r, pol_r = prepared[0]
+    tst, tv, ti, npre_t, noise_t, ut_t, pol_t = prepared[1]
+    try:
+        delay = front_delay_s(rv, tv, dt)
+    except ShotcheckError as exc:
+        raise RecordError(f"{exc} (aligning the test record to the reference)", path=test.source,
+                          field="voltage") from None
     shift = delay / dt
     k = int(round(shift))
     frac = shift - k

@@ -1,0 +1,311 @@
+"""Pre-processing: grid, baseline, alignment, per unit, and the invariances of the aligned pair."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from metrics_signals import (
+    TAU1_S,
+    TAU2_S,
+    current_exact,
+    double_exponential,
+    make_record,
+)
+from scipy import stats
+
+from detector._validation import RecordError, ShotcheckError
+from detector.preprocess import (
+    MAD_NORMAL_CONSTANT,
+    align_pair,
+    clipping_warning,
+    common_grid,
+    detect_pretrigger_samples,
+    front_delay_s,
+    noise_estimate,
+    normalise,
+    remove_baseline,
+    robust_peak_V,
+    shift_fourier,
+)
+from detector.record import Channel, Record
+
+DT = 1e-8
+
+
+# ---------------------------------------------------------------------------------------- helpers
+def test_mad_constant_is_the_normal_quartile():
+    # Donoho & Johnstone 1994: sigma = MAD / 0.6745; 0.6745 is the 75 % quantile of N(0, 1)
+    assert MAD_NORMAL_CONSTANT == pytest.approx(stats.norm.ppf(0.75), abs=5e-5)
+
+
+def test_noise_estimate_gaussian_and_outliers():
+    rng = np.random.default_rng(3)
+    x = 2.5 * rng.standard_normal(100_000)
+    est = noise_estimate(x)
+    assert est.rms == pytest.approx(2.5, rel=0.02)
+    assert est.mad == pytest.approx(2.5, rel=0.02)
+    x[::100] = 1e3  # 1 % outliers move the RMS, not the MAD estimate
+    est = noise_estimate(x)
+    assert est.rms > 50
+    assert est.mad == pytest.approx(2.5, rel=0.05)
+
+
+def test_robust_peak_ignores_a_single_spike_and_keeps_sign():
+    t = np.arange(4000) * DT
+    v = double_exponential(t, -300e3, 1e-6)
+    spiky = v.copy()
+    spiky[2500] = -900e3
+    assert robust_peak_V(spiky) == pytest.approx(v.min(), rel=1e-3)
+    assert robust_peak_V(spiky) < 0
+    with pytest.raises(ShotcheckError, match="flat"):
+        robust_peak_V(np.zeros(100))
+
+
+def test_detect_pretrigger_stops_before_the_front():
+    for n_pre in (50, 200, 1000):
+        rec = make_record(pretrigger_s=n_pre * DT, noise_v=2e-3, n=6000)
+        k = detect_pretrigger_samples(rec.voltage.samples)
+        assert n_pre - 40 <= k <= n_pre  # never inside the front, not far before it
+
+
+def test_remove_baseline_and_history():
+    rec = make_record(pretrigger_s=3e-6, noise_v=1e-3, n=5000)
+    shifted = rec.replace(channels=tuple(c.with_samples(c.samples + off) for c, off in
+                                         zip(rec.channels, (-7e3, 0.3), strict=True)))
+    out = remove_baseline(shifted)
+    k = detect_pretrigger_samples(shifted.voltage.samples)
+    assert abs(out.voltage.samples[:k].mean()) < 1e-9 * 500e3  # exactly the pre-trigger mean
+    assert abs(out.voltage.samples[:250].mean()) < 4 * 500.0 / np.sqrt(250)  # offset gone, noise left
+    assert abs(out.current.samples[:250].mean()) < 1e-3 * 0.3
+    assert out.processing[-1].startswith("baseline(pretrigger_s=")
+    fixed = remove_baseline(shifted, pretrigger_s=2e-6)
+    assert fixed.processing[-1] == "baseline(pretrigger_s=2e-06)"
+    with pytest.raises(RecordError, match="longer than the record"):
+        remove_baseline(shifted, pretrigger_s=1.0)
+    with pytest.raises(ShotcheckError, match="pretrigger_s"):
+        remove_baseline(shifted, pretrigger_s=-1e-6)
+
+
+def test_normalise_divides_by_the_given_test_voltage():
+    rec = make_record(amplitude_V=800e3, n=3000)
+    pu = normalise(rec, 750e3)
+    np.testing.assert_allclose(pu.voltage_pu, rec.voltage.samples / 750e3)
+    np.testing.assert_allclose(pu.current_pu, rec.current.samples / 750e3)
+    with pytest.raises(ShotcheckError, match="test_voltage_V"):
+        normalise(rec, 0.0)
+
+
+# -------------------------------------------------------------------------------- shift, delay
+def test_shift_fourier_matches_an_analytic_shift():
+    t = np.arange(2048) * DT
+    width = 40 * DT  # well oversampled Gaussian: band limited to float precision
+
+    def pulse(t0):
+        return np.exp(-0.5 * ((t - t0) / width) ** 2)
+
+    for d in (3.37 * DT, -11.81 * DT, 0.5 * DT):
+        np.testing.assert_allclose(shift_fourier(pulse(10e-6), d, DT), pulse(10e-6 + d), atol=1e-9)
+
+
+def test_shift_fourier_has_no_wrap_around():
+    # an impulse record ends high (tail); a plain circular shift would bring the tail to the start
+    rec = make_record(n=4000, pretrigger_s=2e-6)
+    v = rec.voltage.samples / 500e3
+    y = shift_fourier(v, 50 * DT, DT)
+    assert np.max(np.abs(y[:150])) < 0.02 * v[-1] + 1e-3  # still pre-trigger, not the tail
+    np.testing.assert_allclose(y[250:3900], v[200:3850], atol=2e-3)
+
+
+@pytest.mark.parametrize("delay_samples", [0.0, 0.237, -0.61, 7.5, -123.25])
+def test_front_delay_is_sub_sample_accurate(delay_samples):
+    t = np.arange(6000) * DT
+    rng = np.random.default_rng(11)
+    ref = double_exponential(t, 400e3, 5e-6) + 400e3 * 1e-3 * rng.standard_normal(t.size)
+    # test: other polarity, level and offset, delayed front, its own noise
+    test = -2.2 * double_exponential(t, 400e3, 5e-6 + delay_samples * DT) + 3e3
+    test = test + 880e3 * 1e-3 * rng.standard_normal(t.size)
+    d = front_delay_s(ref, test, DT)
+    assert d / DT == pytest.approx(delay_samples, abs=0.03)
+
+
+# --------------------------------------------------------------------------------------- grid
+@pytest.mark.parametrize("method", ["polyphase", "fourier"])
+def test_common_grid_resamples_the_finer_record(method):
+    ref = make_record(rate_Hz=100e6, n=20000)
+    fine = make_record(rate_Hz=250e6, n=50000)
+    g = common_grid(ref, fine, method=method)
+    assert g.test.sample_interval_s == ref.sample_interval_s
+    assert g.reference is ref
+    assert len(g.warnings) == 1 and "resampled to 100 MS/s" in g.warnings[0]
+    assert "resample(up=2, down=5" in g.test.processing[-1]
+    # against the exact samples at 100 MS/s, away from the record ends; the double exponential has a
+    # kink at its start (not band limited), where the anti-alias filter rounds it by ~0.2 %
+    exact = ref.voltage.samples
+    got = g.test.voltage.samples[: exact.size]
+    np.testing.assert_allclose(got[100:-100], exact[100:-100], atol=3e-3 * 500e3)
+    assert np.sqrt(np.mean((got[100:-100] - exact[100:-100]) ** 2)) < 1e-4 * 500e3
+
+
+def test_common_grid_same_rate_and_bad_method():
+    a, b = make_record(n=1000), make_record(n=1200)
+    g = common_grid(a, b)
+    assert g.reference is a and g.test is b and g.warnings == ()
+    with pytest.raises(ShotcheckError, match="Did you mean 'fourier'"):
+        common_grid(a, b, method="fourrier")
+
+
+# ------------------------------------------------------------------------------- aligned pair
+def _base_pair(**test_kw):
+    ref = make_record(amplitude_V=300e3, noise_v=5e-4, noise_i=5e-4, seed=1)
+    kw = dict(amplitude_V=600e3, noise_v=5e-4, noise_i=5e-4, seed=2)
+    kw.update(test_kw)
+    return ref, make_record(**kw)
+
+
+def test_align_pair_identical_shapes_give_unit_per_unit():
+    ref, test = _base_pair()
+    p = align_pair(ref, test)
+    assert p.warnings == ()
+    assert p.ref_polarity == p.test_polarity == 1
+    assert abs(p.delay_s) < 0.05 * DT
+    assert p.ref_test_voltage_V == pytest.approx(300e3 * 0.963, rel=0.01)  # 1.2/50 peak ~0.963 A
+    np.testing.assert_allclose(p.test_voltage_pu, p.ref_voltage_pu, atol=6e-3)
+    i_scale = np.max(np.abs(p.ref_current_pu))
+    np.testing.assert_allclose(p.test_current_pu, p.ref_current_pu, atol=6e-3 * i_scale)
+    assert p.ref_noise.source == "pretrigger"
+    assert p.ref_noise.voltage_mad_pu == pytest.approx(5e-4 * 300e3 / p.ref_test_voltage_V, rel=0.15)
+    assert p.times_s.size == p.ref_voltage_pu.size == p.test_current_pu.size
+    with pytest.raises(ValueError):
+        p.ref_voltage_pu[0] = 1.0  # read-only
+
+
+def _assert_same_pair(p, q, *, v_tol=2e-3, i_tol=2e-3):
+    """Compare two aligned pairs over the reference-axis instants they share."""
+    kp = np.rint(p.times_s / p.sample_interval_s).astype(int)
+    kq = np.rint(q.times_s / q.sample_interval_s).astype(int)
+    _, ip, iq = np.intersect1d(kp, kq, return_indices=True)
+    assert ip.size > 0.9 * min(kp.size, kq.size)
+    np.testing.assert_allclose(q.ref_voltage_pu[iq], p.ref_voltage_pu[ip], atol=v_tol)
+    np.testing.assert_allclose(q.test_voltage_pu[iq], p.test_voltage_pu[ip], atol=v_tol)
+    ipk = np.max(np.abs(p.ref_current_pu))
+    np.testing.assert_allclose(q.test_current_pu[iq], p.test_current_pu[ip], atol=i_tol * ipk)
+
+
+def test_invariance_polarity():
+    ref, test = _base_pair()
+    p = align_pair(ref, test)
+    q = align_pair(ref, make_record(amplitude_V=600e3, noise_v=5e-4, noise_i=5e-4, seed=2, polarity=-1))
+    assert q.test_polarity == -1
+    _assert_same_pair(p, q, v_tol=1e-12, i_tol=1e-12)
+
+
+def test_invariance_units_and_level():
+    # a record read in kV and A holds the same SI samples; a record at another level is the same per unit
+    ref, test = _base_pair()
+    p = align_pair(ref, test)
+    scaled = test.replace(channels=tuple(c.with_samples(c.samples * 1e-3) for c in test.channels))
+    q = align_pair(ref, scaled)
+    _assert_same_pair(p, q, v_tol=1e-12, i_tol=1e-12)
+    assert q.test_test_voltage_V == pytest.approx(p.test_test_voltage_V * 1e-3)
+
+
+def test_invariance_trigger_offset():
+    ref, test = _base_pair()
+    p = align_pair(ref, test)
+    # 1.234 us more pre-trigger and another time origin on the test record
+    later = make_record(amplitude_V=600e3, noise_v=5e-4, noise_i=5e-4, seed=2, pretrigger_s=3.234e-6,
+                        start_time_s=-3e-6)
+    q = align_pair(ref, later)
+    assert q.delay_s == pytest.approx(1.234e-6, abs=0.05 * DT)
+    _assert_same_pair(p, q, v_tol=6e-3, i_tol=6e-3)  # independent noise samples are shifted in
+    # the same sample instant on the two time axes: test axis = reference axis + 1.234 us - 3 us
+    np.testing.assert_allclose(q.test_times_s - q.times_s, 1.234e-6 - 3e-6, atol=0.05 * DT)
+
+
+@pytest.mark.parametrize("rate_Hz", [50e6, 125e6, 250e6])
+def test_invariance_sample_rate(rate_Hz):
+    """Test record at another rate: after resampling, the aligned pair matches the same-rate pair.
+
+    The 50 MS/s case compares on a 50 MS/s grid, so it is checked against the analytic signals on that
+    grid; tolerances allow for the anti-alias filter on the 1.2 us front.
+    """
+    ref = make_record(amplitude_V=300e3, seed=1)
+    test = make_record(rate_Hz=rate_Hz, n=int(20000 * rate_Hz / 100e6), amplitude_V=600e3, seed=2)
+    q = align_pair(ref, test)
+    assert any("resampled" in w for w in q.warnings)
+    assert q.sample_interval_s == pytest.approx(max(1 / rate_Hz, DT))
+    assert abs(q.delay_s) < 0.05 * q.sample_interval_s
+    # the kink at the start of the analytic front is rounded by the anti-alias filter (about 0.5 % at
+    # 50 MS/s); elsewhere the records agree to a few 1e-4 p.u.
+    np.testing.assert_allclose(q.test_voltage_pu, q.ref_voltage_pu, atol=6e-3)
+    assert np.sqrt(np.mean((q.test_voltage_pu - q.ref_voltage_pu) ** 2)) < 3e-4
+    ipk = np.max(np.abs(q.ref_current_pu))
+    np.testing.assert_allclose(q.test_current_pu, q.ref_current_pu, atol=6e-3 * ipk)
+    assert np.sqrt(np.mean((q.test_current_pu - q.ref_current_pu) ** 2)) < 3e-4 * ipk
+
+
+def test_align_uses_given_test_voltages():
+    ref, test = _base_pair()
+    p = align_pair(ref, test, ref_test_voltage_V=-290e3, test_test_voltage_V=580e3)
+    assert p.ref_test_voltage_V == 290e3 and p.test_test_voltage_V == 580e3
+    assert p.ref_voltage_pu.max() == pytest.approx(300e3 * 0.963 / 290e3, rel=0.01)
+    with pytest.raises(ShotcheckError, match="ref_test_voltage_V"):
+        align_pair(ref, test, ref_test_voltage_V=0.0)
+
+
+# ----------------------------------------------------------------------------------- warnings
+def test_warning_current_clipping():
+    ref, test = _base_pair()
+    i = test.current.samples
+    clipped = np.clip(i, None, 0.7 * i.max())
+    test = test.replace(channels=(test.voltage, test.current.with_samples(clipped)))
+    p = align_pair(ref, test)
+    assert any("test current 'I' looks clipped" in w for w in p.warnings)
+    assert clipping_warning(ref.current.samples, "x") is None
+
+
+def test_warning_short_pretrigger():
+    ref = make_record(amplitude_V=300e3, noise_v=5e-4, seed=1)
+    test = make_record(amplitude_V=600e3, noise_v=5e-4, seed=2, pretrigger_s=0.15e-6)
+    p = align_pair(ref, test)
+    assert any("pre-trigger" in w and "too short" in w for w in p.warnings)
+    assert p.test_noise.source == "second difference"
+    # the fallback still finds the noise level (second differences of the smooth record)
+    assert p.test_noise.voltage_mad_pu == pytest.approx(5e-4 * 600e3 / p.test_test_voltage_V, rel=0.2)
+
+
+def test_missing_current_names_the_file():
+    rec = make_record(n=2000)
+    only_v = Record(0.0, DT, (rec.voltage,), source="lab7/shot12.cfg")
+    with pytest.raises(RecordError, match="lab7/shot12.cfg.*no current channel"):
+        align_pair(rec, only_v)
+
+
+def test_short_overlap_warns_and_no_front_is_refused():
+    ref = make_record(n=3000, pretrigger_s=1e-6)
+    test = make_record(n=3000, pretrigger_s=20e-6)
+    p = align_pair(ref, test)
+    assert p.delay_s == pytest.approx(19e-6, abs=0.05 * DT)
+    assert any("overlap for 11 us only" in w for w in p.warnings)
+    flat = Record(0.0, DT, (Channel("U", "voltage", np.ones(3000)), Channel("I", "current", np.ones(3000))),
+                  source="bench/flat.csv")
+    with pytest.raises(RecordError, match="bench/flat.csv: test voltage: .*flat"):
+        align_pair(ref, flat)
+
+
+def test_analytic_current_helper_is_consistent():
+    """The residue formula of the test helper against direct numerical convolution (sanity of the
+    reference signal itself, Y(s) closed form)."""
+    dt = 5e-9
+    t = np.arange(60000) * dt
+    i = current_exact(t, 1.0)
+    assert i[0] == 0.0
+    # i(t) -> the capacitive charging current C dv/dt near t = 0+: v'(0+) = A (1/tau2 - 1/tau1) and
+    # Y(s) ~ sum(1/(R Q w)) s for small s is not the limit here; instead check the slow limit: for
+    # t >> resonance periods, i ~ sum_k (1/(R_k Q_k w_k)) dv/dt (each branch behaves as its capacitance)
+    from metrics_signals import HEALTHY
+
+    c_total = sum(1.0 / (b.R_ohm * b.Q * 2 * np.pi * b.f0_Hz) for b in HEALTHY)
+    k = t > 150e-6
+    dvdt = -np.exp(-t[k] / TAU1_S) / TAU1_S + np.exp(-t[k] / TAU2_S) / TAU2_S
+    np.testing.assert_allclose(i[k], c_total * dvdt, rtol=2e-3, atol=1e-3 * np.abs(i).max())

@@ -1,7 +1,8 @@
 """COMTRADE against outside references: the PyPI ``comtrade`` package and hand-composed files.
 
-Clause numbers are IEEE C37.111-2013 (= IEC 60255-24:2013), cited from memory; the 1999 layout is
-the same except for the missing time-code lines and data types (C37.111-1999, from memory).
+Clauses are IEEE C37.111-2013 (= IEC 60255-24:2013), recalled from memory with their titles so they can
+be found if a number is off (clause 7 "Configuration file" and 7.4.8 "date/time stamps" were seen in a
+secondary source). The 1999 layout is the same except for the time-code lines and data types.
 """
 
 from __future__ import annotations
@@ -79,14 +80,15 @@ def test_pypi_comtrade_reads_our_files_identically(
 
 # ---- a hand-composed C37.111-1999 file ----------------------------------------------------------
 
-# Layout per C37.111-1999 clause 6 / C37.111-2013 clause 7.4 (from memory):
-#   line 1  station_name,rec_dev_id,rev_year                       (7.4.1)
-#   line 2  TT,##A,##D                                             (7.4.2)
-#   analog  An,ch_id,ph,ccbm,uu,a,b,skew,min,max,primary,secondary,PS   (7.4.3)
-#   digital Dn,ch_id,ph,ccbm,y                                     (7.4.4)
-#   lf; nrates; samp,endsamp per rate                              (7.4.5, 7.4.6)
-#   first-sample and trigger date/time dd/mm/yyyy,hh:mm:ss.ssssss  (7.4.7)
-#   ft; timemult                                                   (7.4.8, 7.4.9)
+# Layout per C37.111-2013 clause 7.4 (numbers from memory; 1999: same lines, clause 6):
+#   line 1  station_name,rec_dev_id,rev_year                       (7.4.2 station name ... revision year)
+#   line 2  TT,##A,##D                                             (7.4.3 number and type of channels)
+#   analog  An,ch_id,ph,ccbm,uu,a,b,skew,min,max,primary,secondary,PS   (7.4.4 analog channel info)
+#   digital Dn,ch_id,ph,ccbm,y                                     (7.4.5 status channel info)
+#   lf; nrates; samp,endsamp per rate                              (7.4.6 line frequency, 7.4.7 sampling)
+#   first-sample and trigger date/time dd/mm/yyyy,hh:mm:ss.ssssss  (7.4.8 date/time stamps, seen)
+#   ft; timemult                                                   (7.4.9 data file type, 7.4.10 timemult)
+#   P/S flag and ratios: clause 4.7 "Primary to secondary ratios" (title seen in the contents)
 HAND_CFG_1999 = """Invented Substation,Recorder 7,1999
 4,2A,2D
 1,Vdiv,A,,V,0.01,0,0,-99999,99998,1000,1,S
@@ -101,7 +103,7 @@ HAND_CFG_1999 = """Invented Substation,Recorder 7,1999
 ASCII
 0.1
 """
-# ASCII data (clause 8.1, from memory): n, timestamp (ticks of timemult us), analog..., digital...
+# ASCII data (clause 8 "Data file", ASCII, from memory): n, timestamp (timemult us ticks), analog, digital
 X1 = [0, 12, 250, 1800, 5200, 9100, 9990, 9870, 9620, 9400, 9100, 8800, 8500, 8200, 7900, 7650]
 X2 = [-3, 1, 40, 300, 810, 640, 120, -200, -330, -250, -90, 30, 75, 60, 20, -5]
 HAND_DAT_1999 = "".join(
@@ -122,7 +124,7 @@ def test_hand_written_1999_field_by_field(hand_1999: Path) -> None:
     assert r.meta["lab"] == "Invented Substation"
     assert r.meta["unit_id"] == "Recorder 7"
     assert r.meta["comtrade_revision"] == 1999 and r.meta["comtrade_data_type"] == "ASCII"
-    # first-sample date/time (7.4.7) -> recorded_at
+    # first-sample date/time (7.4.8) -> recorded_at
     assert r.meta["recorded_at"] == "2026-06-15T10:20:30.000100"
     # two analog channels kept, the two digital channels ignored
     assert [c.name for c in r.channels] == ["Vdiv", "Ishunt"]
@@ -132,7 +134,7 @@ def test_hand_written_1999_field_by_field(hand_1999: Path) -> None:
     np.testing.assert_allclose(r.channels[0].samples, 0.01 * np.array(X1) * 1000.0, rtol=1e-15)
     # Ishunt: primary (flag P): (0.2 x + 0.5) mA
     np.testing.assert_allclose(r.channels[1].samples, (0.2 * np.array(X2) + 0.5) * 1e-3, rtol=1e-15)
-    # skew 2.5 us (7.4.3) is reported, not applied
+    # skew 2.5 us (7.4.4) is reported, not applied
     assert r.meta["channel_skew_s"] == {"Ishunt": pytest.approx(2.5e-6)}
     # 10 MS/s; first time stamp 5 ticks of timemult 0.1 us -> start at 0.5 us
     assert r.sample_interval_s == pytest.approx(1e-7, rel=1e-15)
@@ -157,7 +159,7 @@ def test_hand_written_1999_agrees_with_pypi_comtrade(hand_1999: Path) -> None:
     assert np.asarray(ref.status[1]).tolist() == [int(k >= 9) for k in range(16)]
 
 
-# ---- a hand-composed C37.111-2013 single file (.cff, clause 9 from memory) -------------------
+# ---- a hand-composed C37.111-2013 single file (.cff, single-file format, from memory) -------------------
 
 HAND_CFF_2013 = """--- file type: CFG ---
 Invented Lab,T-4711,2013
@@ -187,7 +189,7 @@ def test_hand_written_2013_cff_with_critical_timestamps(tmp_path: Path) -> None:
     p = tmp_path / "hand.cff"
     p.write_text(HAND_CFF_2013.replace("\n", "\r\n"), newline="")
     r = read(p)
-    # nrates = 0 (7.4.6): the time stamps are critical: 20 ticks of 1 ns -> 50 MS/s, starting at 100 ns
+    # nrates = 0 (7.4.7): the time stamps are critical: 20 ticks of 1 ns -> 50 MS/s, starting at 100 ns
     assert r.sample_interval_s == pytest.approx(20e-9, rel=1e-12)
     assert r.start_time_s == pytest.approx(100e-9, rel=1e-12)
     # the 'Hz' channel is neither voltage nor current: ignored, not an error
@@ -204,7 +206,7 @@ def test_hand_written_2013_cff_with_critical_timestamps(tmp_path: Path) -> None:
 
 
 def test_hand_written_binary_row_layout(tmp_path: Path) -> None:
-    """BINARY (8.2, from memory): uint32 n, uint32 timestamp, int16 per analog, uint16 per 16 digital."""
+    """BINARY (clause 8 "Data file", binary format, from memory): uint32 n, uint32 timestamp, int16 per analog, uint16 per 16 digital."""
     cfg = HAND_CFG_1999.replace("ASCII", "BINARY").replace("\n", "\r\n")
     (tmp_path / "b.cfg").write_text(cfg, newline="")
     rows = b"".join(

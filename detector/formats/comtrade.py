@@ -34,7 +34,9 @@ Writing
   the sample rate line holds ``1 / sample_interval_s`` with all float digits.
 * ``timestamps_only=True`` writes ``nrates = 0`` (time stamps critical) instead of a rate.
 
-Clause numbers cited in comments are from memory of IEEE C37.111-2013 unless stated otherwise.
+Clauses cited in comments are of IEEE C37.111-2013, recalled from memory (subclause titles are given
+so a clause can be found if a number is off); the table of contents (clause 4.7 "Primary to
+secondary ratios", clause 7 configuration file, 7.4.8 "date/time stamps") was seen in a secondary source.
 """
 
 from __future__ import annotations
@@ -53,7 +55,7 @@ import numpy as np
 from .._validation import FormatError, RecordError, ShotcheckError
 from ..record import Channel, Record
 from ..units import QUANTITY_UNITS
-from .csv import check_finite_table, parse_table
+from .csv import check_finite_table, parse_table, unit_info
 
 __all__ = ["is_format", "read", "write", "DATA_TYPES", "REVISIONS"]
 
@@ -173,7 +175,7 @@ def _parse_datetime(line: str) -> dt.datetime | None:
 
 
 def _parse_cfg(text: str, path: str) -> _Cfg:
-    """Parse CFG text (clause 7 of C37.111-2013 / clause 5 of -1999, from memory)."""
+    """Parse CFG text (clause 7 "Configuration file" of C37.111-2013, from memory)."""
     lines = text.splitlines()
     pos = 0
 
@@ -187,7 +189,7 @@ def _parse_cfg(text: str, path: str) -> _Cfg:
         pos += 1
         return lines[pos - 1], f"line {pos}"
 
-    # line 1: station_name,rec_dev_id,rev_year (clause 7.4.1, from memory)
+    # line 1: station_name,rec_dev_id,rev_year (7.4.2 "station name, identification and revision year", from memory)
     line, where = take("station_name,rec_dev_id,rev_year")
     f = line.split(",")
     if len(f) == 2 or (len(f) == 3 and not f[2].strip()):
@@ -205,7 +207,7 @@ def _parse_cfg(text: str, path: str) -> _Cfg:
             f"unsupported revision year {rev_text[:20]!r}; supported: 1999, 2013", path=path, field=where
         )
     revision = int(rev_text)
-    # line 2: TT,##A,##D (clause 7.4.2)
+    # line 2: TT,##A,##D (7.4.3 "number and type of channels", from memory)
     line, where = take("the channel counts TT,##A,##D")
     f = [x.strip() for x in line.split(",")]
     if len(f) != 3 or not f[1][-1:].upper() == "A" or not f[2][-1:].upper() == "D":
@@ -221,7 +223,7 @@ def _parse_cfg(text: str, path: str) -> _Cfg:
             f"wrong channel count: total {total} but {n_a} analog + {n_d} digital = {n_a + n_d}",
             path=path, field=where,
         )
-    # analog channel lines: An,ch_id,ph,ccbm,uu,a,b,skew,min,max,primary,secondary,PS (clause 7.4.3)
+    # analog channel lines: An,ch_id,ph,ccbm,uu,a,b,skew,min,max,primary,secondary,PS (7.4.4 "analog channel information")
     analogs = []
     for k in range(n_a):
         line, where = take(f"analog channel line {k + 1} of {n_a}")
@@ -250,12 +252,12 @@ def _parse_cfg(text: str, path: str) -> _Cfg:
         if a == 0:
             raise FormatError("channel multiplier a is 0; expected a non-zero number", path=path, field=where)
         analogs.append(_Analog(k, name, f[4].strip(), a, b, skew, prim, sec, ps))
-    # digital (status) channel lines: Dn,ch_id,ph,ccbm,y (clause 7.4.4); parsed for layout only
+    # digital (status) channel lines: Dn,ch_id,ph,ccbm,y (7.4.5 "status channel information"); parsed for layout only
     for k in range(n_d):
         take(f"digital channel line {k + 1} of {n_d}")
-    # line frequency (clause 7.4.5)
+    # line frequency (7.4.6)
     take("the line frequency")
-    # sampling rate information (clause 7.4.6)
+    # sampling rate information (7.4.7)
     line, where = take("the number of sample rates nrates")
     nrates = _num(line, int, path, where, "a number of sample rates (nrates)")
     if nrates < 0:
@@ -292,11 +294,11 @@ def _parse_cfg(text: str, path: str) -> _Cfg:
             "only records with one sample rate are supported (resample first)", path=path,
             field="sample rates",
         )
-    # date/time of first data point and of trigger (clause 7.4.7)
+    # date/time of first data point and of trigger (7.4.8 "date/time stamps", seen)
     line, _ = take("the date/time of the first data point")
     first = _parse_datetime(line)
     take("the date/time of the trigger point")
-    # data file type (clause 7.4.8)
+    # data file type (7.4.9)
     line, where = take("the data file type (ASCII, BINARY, BINARY32 or FLOAT32)")
     data_type = line.strip().upper()
     if data_type not in DATA_TYPES:
@@ -308,14 +310,14 @@ def _parse_cfg(text: str, path: str) -> _Cfg:
         raise FormatError(
             f"data file type {data_type} needs revision 2013, the file says {revision}", path=path, field=where
         )
-    # time stamp multiplication factor (clause 7.4.9)
+    # time stamp multiplication factor (7.4.10)
     timemult = 1.0
     if pos < len(lines) and lines[pos].strip():
         line, where = take("timemult")
         timemult = _num(line, float, path, where, "a time multiplier (timemult)")
         if timemult <= 0:
             raise FormatError(f"timemult is {timemult:g}; expected a positive number", path=path, field=where)
-    # 2013: time_code,local_code and tmq_code,leapsec (clauses 7.4.10-11) are not needed here
+    # 2013: time_code,local_code and tmq_code,leapsec (7.4.11-12) are not needed here
     return _Cfg(station, device, revision, n_a, n_d, analogs, nrates, rates, first, data_type, timemult, len(lines))
 
 
@@ -323,7 +325,7 @@ def _parse_cfg(text: str, path: str) -> _Cfg:
 
 
 def _binary_dtype(cfg: _Cfg) -> np.dtype:
-    """Row layout of a binary data file (clause 8.2 of C37.111-2013, from memory)."""
+    """Row layout of a binary data file (clause 8 "Data file", binary format, from memory)."""
     code = {"BINARY": "<i2", "BINARY32": "<i4", "FLOAT32": "<f4"}[cfg.data_type]
     n_words = (cfg.n_digital + 15) // 16
     fields = [("n", "<u4"), ("ts", "<u4")]
@@ -346,7 +348,7 @@ def _parse_dat(data: bytes, cfg: _Cfg, path: str) -> tuple[np.ndarray, np.ndarra
         if not body:
             raise FormatError(f"data file is empty; the configuration says {n} samples", path=path)
         if b",," in body or b",\n" in body or body.endswith(b","):
-            # blank fields: time stamps are non-critical when a sample rate is given (clause 8.1)
+            # blank fields: time stamps are non-critical when a sample rate is given (clause 4.2 "critical/non-critical data", seen in the contents)
             body = body.replace(b",,", b",nan,").replace(b",,", b",nan,").replace(b",\n", b",nan\n")
             if body.endswith(b","):
                 body += b"nan"
@@ -486,7 +488,7 @@ def _next_cff_header(data: bytes, pos: int) -> re.Match[bytes] | None:
 
 
 def _split_cff(data: bytes, path: str) -> tuple[str, bytes, str, str]:
-    """Split a .cff into (cfg text, dat bytes, dat section word, inf text) (clause 9, from memory)."""
+    """Split a .cff into (cfg text, dat bytes, dat section word, inf text) (single-file format of 2013, from memory)."""
     if not data.strip():
         raise FormatError("file is empty; expected a '--- file type: CFG ---' section", path=path)
     parts: dict[str, Any] = {}
@@ -601,12 +603,11 @@ def read(
     skipped: dict[str, str] = {}
     skews: dict[str, float] = {}
     for an in cfg.analogs:
-        unit = an.unit.replace("µ", "u").replace("μ", "u")
-        canon = _canonical_unit(unit)
-        if canon is None:
+        try:
+            q, factor, canon = unit_info(an.unit)
+        except RecordError:  # not a voltage or current: ignored (e.g. frequency, temperature)
             skipped[an.name] = an.unit
             continue
-        q, factor = QUANTITY_UNITS[canon]
         vals = an.a * x[:, an.index] + an.b
         if an.ps == "S":
             vals = vals * (an.primary / an.secondary)
@@ -667,14 +668,6 @@ def read(
     if voltage_channel is not None or current_channel is not None:
         rec = rec.select(voltage_channel, current_channel)
     return rec
-
-
-def _canonical_unit(unit: str) -> str | None:
-    u = unit.strip()
-    if u in QUANTITY_UNITS:
-        return u
-    folded = {k.lower(): k for k in QUANTITY_UNITS if k not in ("mV", "MV", "µA")}
-    return folded.get(u.lower())
 
 
 # ---- writing -----------------------------------------------------------------------------------

@@ -55,7 +55,7 @@ from .._validation import FormatError, RecordError, ShotcheckError
 from ..record import Channel, Record
 from ..units import QUANTITY_UNITS, TIME_UNITS, parse_unit
 
-__all__ = ["is_format", "read", "write", "split_header_cell", "parse_table"]
+__all__ = ["is_format", "read", "write", "split_header_cell", "parse_table", "unit_info"]
 
 SUFFIXES = (".csv",)
 _HEADER_BRACKET = re.compile(r"^(?P<name>.*?)\s*[\[(]\s*(?P<unit>[^\])]*?)\s*[\])]$")
@@ -345,8 +345,8 @@ def read(
                 f"column header {cells[k - 1].strip()!r} has no unit; write it as name_unit "
                 "(voltage_kV) or 'name [unit]' (U1 [kV])", path=p, field=f"line {header_line}, column {k}",
             )
-        q, f = parse_unit(unit, path=p, field=f"line {header_line}, column {k} ({cells[k - 1].strip()})")
-        quantities.append((name, f, q, unit))
+        q, f, canon = unit_info(unit, path=p, field=f"line {header_line}, column {k} ({cells[k - 1].strip()})")
+        quantities.append((name, f, q, canon))
     col_names = [c.strip() for c in cells]
     table = parse_table(
         raw[pos:], sep=sep, ncols=len(cells), path=p, first_line=header_line + 1, column_names=col_names
@@ -361,7 +361,7 @@ def read(
             "time must increase", path=p, field=f"line {header_line + 2 + i}",
         )
     chans = tuple(
-        Channel(name, q, table[:, k + 1] * f, source_unit=_canonical_unit(u))
+        Channel(name, q, table[:, k + 1] * f, source_unit=u)
         for k, (name, f, q, u) in enumerate(quantities)
     )
     meta["source_format"] = "CSV"
@@ -371,12 +371,32 @@ def read(
     return rec
 
 
-def _canonical_unit(u: str) -> str:
-    u = u.strip()
-    if u in QUANTITY_UNITS:
-        return u
-    folded = {k.lower(): k for k in QUANTITY_UNITS if k not in ("mV", "MV")}
-    return folded.get(u.lower(), u)
+def unit_info(text: str, *, path: str | None = None, field: str | None = None) -> tuple[str, float, str]:
+    """Return (quantity, factor to SI, canonical spelling) of a channel unit, via :func:`parse_unit`.
+
+    Parameters
+    ----------
+    text : str
+        Unit as written in the file (``'kV'``, ``'KV'``, ``'mA'``, ``'µA'``).
+    path, field : str or None
+        Where the unit was read, for the error message.
+
+    Returns
+    -------
+    quantity : {'voltage', 'current'}
+    factor : float
+        Multiply file values by this to get V or A.
+    canonical : str
+        The spelling used in :data:`detector.units.QUANTITY_UNITS` (``'kV'``, ``'uA'``).
+
+    Raises
+    ------
+    RecordError
+        If the unit is not a voltage or current unit.
+    """
+    q, f = parse_unit(text.replace("\u03bc", "u").replace("\u00b5", "u"), path=path, field=field)
+    canonical = next(k for k, v in QUANTITY_UNITS.items() if v == (q, f) and k != "\u00b5A")
+    return q, f, canonical
 
 
 def _meta_lines(meta: Mapping[str, Any], path: str) -> list[str]:

@@ -383,12 +383,14 @@ def generate(
             raise ShotcheckError("COMTRADE output needs detector.formats.write, which is not available") from None
         (out / "comtrade").mkdir(exist_ok=True)
     n_cases, seed = int(n_cases), int(seed)
-    tasks = [list(range(s, min(s + CHUNK_SIZE, n_cases))) for s in range(0, n_cases, CHUNK_SIZE)]
+    # chunking only balances the load: case i's data does not depend on it
+    w = 1 if scheduler is not None else (workers if workers is not None else (os.cpu_count() or 1))
+    size = max(1, min(CHUNK_SIZE, n_cases // (4 * w) if scheduler is None else n_cases // 8))
+    tasks = [list(range(s, min(s + size, n_cases))) for s in range(0, n_cases, size)]
     if scheduler is not None:
         results = _iter_dask(tasks, seed, families, scheduler)
         where = f"dask:{scheduler}" if isinstance(scheduler, str) else "dask"
     else:
-        w = workers if workers is not None else (os.cpu_count() or 1)
         w = max(1, min(w, len(tasks)))
         results = _iter_local(tasks, seed, families, w)
         where = f"local:{w}"

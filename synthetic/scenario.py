@@ -87,7 +87,8 @@ SCHEMA: dict[str, dict[str, _Key]] = {
         "total_ground_capacitance_F": _Key("range", 1e-12, 1e-6, "log"),
         "alpha": _Key("range", 0.3, 60.0),
         "k0": _Key("range", 0.0, 0.95),
-        "series_resistance_ohm": _Key("range", 0.0, 1e4, "log", required=False, default=10.0),
+        "series_resistance_ohm": _Key("range", 0.0, 1e6, "log", required=False, default=None),
+        "resistive_time_constant_s": _Key("range", 1e-6, 1e-3, "log", required=False, default=25e-6),
         "damping": _Key("range", 0.0, 2.0, required=False, default=0.05),
         "neutral": _Key("choice", dtype=str, required=False, default=["grounded"]),
         "shunt_ohm": _Key("range", 1e-3, 1e3, "log", required=False, default=1.0),
@@ -104,6 +105,9 @@ SCHEMA: dict[str, dict[str, _Key]] = {
         "chop_scatter_s": _Key("range", 0.0, 2e-6, required=False, default=[0.0, 0.2e-6]),
         "front_time_s": _Key("range", 0.3e-6, 5e-6, required=False, default=1.2e-6),
         "time_to_half_s": _Key("range", 10e-6, 200e-6, required=False, default=50e-6),
+        "generator_capacitance_F": _Key("range", 1e-9, 10e-6, "log", required=False, default=100e-9),
+        "load_capacitance_F": _Key("range", 50e-12, 50e-9, "log", required=False, default=1e-9),
+        "lead_inductance_H": _Key("range", 0.0, 100e-6, required=False, default=5e-6),
         "generator_drift": _Key("range", 0.0, 0.2, required=False, default=[0.0, 0.04]),
         "record_length_s": _Key("range", 10e-6, 1e-3, required=False, default=100e-6),
     },
@@ -337,6 +341,9 @@ class Scenario:
     chop_time_reference_s: float | None
     front_time_s: float
     time_to_half_s: float
+    generator_capacitance_F: float
+    load_capacitance_F: float
+    lead_inductance_H: float
     front_resistor_drift: float
     tail_resistor_drift: float
     record_length_s: float
@@ -404,11 +411,17 @@ def sample_scenario(
         "total_ground_capacitance_F": d(rng, "winding", "total_ground_capacitance_F"),
         "alpha": d(rng, "winding", "alpha"),
         "k0": d(rng, "winding", "k0"),
-        "series_resistance_ohm": d(rng, "winding", "series_resistance_ohm"),
+        "series_resistance_ohm": None,
         "damping": d(rng, "winding", "damping"),
         "neutral": d(rng, "winding", "neutral"),
         "shunt_ohm": d(rng, "winding", "shunt_ohm"),
     }
+    # series resistance at impulse frequencies: given, or from the envelope time constant 2 L / R
+    if fam.values["winding.series_resistance_ohm"] is not None:
+        winding["series_resistance_ohm"] = d(rng, "winding", "series_resistance_ohm")
+    else:
+        tau = d(rng, "winding", "resistive_time_constant_s")
+        winding["series_resistance_ohm"] = 2.0 * winding["total_inductance_H"] / tau
     mag = d(rng, "winding", "magnetising_H")
     mag_ratio = d(rng, "winding", "magnetising_full_ratio")
     test_chopped = bool(rng.random() < fam.values["test.chopped_fraction"])
@@ -422,6 +435,7 @@ def sample_scenario(
     bil = d(rng, "test", "bil_V")
     level = d(rng, "test", "reduced_level")
     vfac = d(rng, "recorder", "voltage_range_factor")
+    pretrigger = d(rng, "recorder", "pretrigger_s")  # one setting for the whole sequence
 
     def recorder(range_scale: float) -> dict[str, Any]:
         return {
@@ -431,7 +445,7 @@ def sample_scenario(
             "noise_lsb": d(rng, "recorder", "noise_lsb"),
             "interference_amplitude_lsb": d(rng, "recorder", "interference_amplitude_lsb"),
             "interference_frequency_Hz": d(rng, "recorder", "interference_frequency_Hz"),
-            "pretrigger_s": d(rng, "recorder", "pretrigger_s"),
+            "pretrigger_s": pretrigger,
             "baseline_offset_lsb": d(rng, "recorder", "baseline_offset_lsb"),
             "bandwidth_Hz": d(rng, "recorder", "bandwidth_fraction") * fs,
         }
@@ -486,6 +500,9 @@ def sample_scenario(
         chop_time_test_s=chop_test,
         chop_time_reference_s=chop_ref,
         front_time_s=d(rng, "test", "front_time_s"),
+        generator_capacitance_F=d(rng, "test", "generator_capacitance_F"),
+        load_capacitance_F=d(rng, "test", "load_capacitance_F"),
+        lead_inductance_H=d(rng, "test", "lead_inductance_H"),
         time_to_half_s=d(rng, "test", "time_to_half_s"),
         front_resistor_drift=float(rng.uniform(-drift, drift)),
         tail_resistor_drift=float(rng.uniform(-drift, drift)),
@@ -564,7 +581,8 @@ def make_pair(scenario: Scenario) -> tuple[Any, Any, dict[str, Any]]:
 
     sign = -1.0 if sc.polarity == "negative" else 1.0
     gen = design_generator(base, front_time_s=sc.front_time_s, time_to_half_s=sc.time_to_half_s,
-                           test_voltage_V=sign * sc.bil_V)
+                           C1_F=sc.generator_capacitance_F, C_load_F=sc.load_capacitance_F,
+                           L_lead_H=sc.lead_inductance_H, test_voltage_V=sign * sc.bil_V)
     gen_ref = dataclasses.replace(
         gen, R_front_ohm=gen.R_front_ohm * (1 + sc.front_resistor_drift),
         R_tail_ohm=gen.R_tail_ohm * (1 + sc.tail_resistor_drift),

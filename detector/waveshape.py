@@ -397,12 +397,17 @@ def _error(source: str | None, msg: str, field: str = "voltage") -> RecordError:
 
 
 def _smooth(u: np.ndarray, window: int) -> np.ndarray:
+    """Savitzky-Golay smoothing (quadratic over 5 samples, cubic above), edges held at the end values."""
     window = max(5, window | 1)
     if window > u.size:
         window = u.size if u.size % 2 else u.size - 1
     if window <= 5:
         return signal.savgol_filter(u, 5, 2, mode="nearest")
-    return signal.savgol_filter(u, window, 3, mode="nearest")
+    if window <= 63:
+        return signal.savgol_filter(u, window, 3, mode="nearest")
+    half = window // 2  # long windows (switching impulses): overlap-add convolution is much quicker
+    padded = np.pad(u, half, mode="edge")
+    return signal.oaconvolve(padded, signal.savgol_coeffs(window, 3), mode="valid")
 
 
 def _quantisation_step(v: np.ndarray) -> float | None:
@@ -415,11 +420,12 @@ def _quantisation_step(v: np.ndarray) -> float | None:
     d = d[d > 1e-9 * span]
     if d.size < 2:
         return None
-    q = float(np.percentile(d, 10))
-    if q <= 0:
-        return None
-    frac = np.abs(d / q - np.round(d / q))
-    if np.median(frac) < 0.05 and vals.size < 0.9 * v.size:
+    q = float(d.min())
+    ratio = d / q
+    frac = np.abs(ratio - np.round(ratio))
+    # quantised: every gap between distinct values is a whole number of steps (continuous values give
+    # fractional parts spread over 0-0.5)
+    if np.median(frac) < 0.02 and np.percentile(frac, 90) < 0.1:
         return q
     return None
 
@@ -526,17 +532,16 @@ def _shape_peak(tau1: float, tau2: float) -> float:
 
 def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, origin: float) -> DoubleExponential:
     """Fit the double exponential to ``p.u[i_lo:i_hi]``; start values in samples. Returns it in SI."""
-    idx = np.arange(i_lo, i_hi)
-    wts = np.ones(idx.size)
-    if idx.size > _MAX_FIT_POINTS:
-        # keep every sample up to a few front times past the crest, thin the tail evenly
-        dense_end = min(i_hi, p.ipk + int(6 * p.front_s / p.dt) + 1)
-        head = np.arange(i_lo, max(dense_end, i_lo + 1))
-        room = max(_MAX_FIT_POINTS - head.size, 100)
-        step = max(1, int(math.ceil((i_hi - head[-1] - 1) / room)))
-        tail = np.arange(head[-1] + 1, i_hi, step)
-        idx = np.concatenate([head, tail])
-        wts = np.concatenate([np.ones(head.size), np.full(tail.size, math.sqrt(step))])
+    # every sample up to a few front times past the crest (thinned if that alone is too many), the tail
+    # thinned evenly; weights sqrt(stride) keep the sum over samples close to a time integral
+    dense_end = min(i_hi, max(p.ipk + int(6 * p.front_s / p.dt) + 1, i_lo + 1))
+    h_step = max(1, int(math.ceil((dense_end - i_lo) / (_MAX_FIT_POINTS // 2))))
+    head = np.arange(i_lo, dense_end, h_step)
+    room = max(_MAX_FIT_POINTS - head.size, 100)
+    t_step = max(h_step, int(math.ceil((i_hi - head[-1] - 1) / room)))
+    tail = np.arange(head[-1] + t_step, i_hi, t_step)
+    idx = np.concatenate([head, tail])
+    wts = np.concatenate([np.full(head.size, math.sqrt(h_step)), np.full(tail.size, math.sqrt(t_step))])
     scale = max(p.front_s / p.dt, 1.0)  # time unit of the fit: one front time, in samples
     x = idx / scale
     y = p.u[idx] / p.peak

@@ -198,3 +198,15 @@ def test_csv_layout_and_header_forms(tmp_path: Path) -> None:
     head = (tmp_path / "y.csv").read_text().splitlines()
     assert head[0] == "# shot_kind: reduced"
     assert head[len(META)] == "time_s,U1 divider_kV,IN_A,I_tank_mA"
+
+
+@pytest.mark.parametrize("name", ["m.cfg", "m.cff", "m.csv"])
+def test_extra_metadata_keeps_its_type_when_loss_free(tmp_path: Path, name: str) -> None:
+    """Numbers and booleans in meta come back as such; text that only looks numeric stays text."""
+    extra = {"bits": 12, "noise_V": 0.25, "range_V": 1 / 3, "clipped": False, "unit_id": "0815",
+             "serial": "007", "note": "second try, after re-grounding"}
+    rec = make_record(1e8, n=50).replace(meta=extra)
+    write(rec, tmp_path / name)
+    meta = dict(read(tmp_path / name).meta)
+    for key, value in extra.items():
+        assert meta[key] == value and type(meta[key]) is type(value), key

@@ -55,7 +55,7 @@ import numpy as np
 from .._validation import FormatError, RecordError, ShotcheckError
 from ..record import Channel, Record
 from ..units import QUANTITY_UNITS
-from .csv import check_finite_table, parse_table, unit_info
+from .csv import check_finite_table, meta_value, parse_table, unit_info
 
 __all__ = ["is_format", "read", "write", "DATA_TYPES", "REVISIONS"]
 
@@ -418,9 +418,9 @@ def _check_missing(missing: np.ndarray, names: list[str], path: str, what: str) 
 # ---- INF (private section) ---------------------------------------------------------------------
 
 
-def _parse_inf(text: str) -> dict[str, str] | None:
+def _parse_inf(text: str) -> dict[str, Any] | None:
     """Return the key=value pairs of the [shotcheck record] section, or None if absent."""
-    out: dict[str, str] | None = None
+    out: dict[str, Any] | None = None
     inside = False
     for line in text.splitlines():  # a few lines of metadata, not samples
         s = line.strip()
@@ -431,7 +431,7 @@ def _parse_inf(text: str) -> dict[str, str] | None:
             continue
         if inside and "=" in s and not s.startswith(";"):
             k, v = s.split("=", 1)
-            out[k.strip()] = v.strip()  # type: ignore[index]
+            out[k.strip()] = meta_value(k.strip(), v.strip())  # type: ignore[index]
     return out
 
 
@@ -440,7 +440,7 @@ def _format_inf(meta: Mapping[str, Any], offset_s: float, path: str) -> str:
     for k, v in meta.items():
         if k == "source_format" or v is None:
             continue
-        key, text = str(k), str(v)
+        key, text = str(k), repr(v) if isinstance(v, float) else str(v)
         if "=" in key or any(c in key + text for c in "\r\n[]") or not key.strip():
             raise RecordError(
                 f"metadata {key!r}: {text!r} cannot be written as an INF key=value line", path=path, field="meta"
@@ -597,7 +597,7 @@ def read(
     private = _parse_inf(inf_text) if inf_text else None
     offset = 0.0
     if private and "time_offset_s" in private:
-        offset = _num(private.pop("time_offset_s"), float, sp, "INF time_offset_s", "a time in seconds")
+        offset = _num(str(private.pop("time_offset_s")), float, sp, "INF time_offset_s", "a time in seconds")
 
     chans: list[Channel] = []
     skipped: dict[str, str] = {}

@@ -17,7 +17,8 @@ Rules
 * **Metadata**: lines before the header that start with ``#`` and hold ``key: value`` become
   ``Record.meta[key] = value`` (text, blanks around key and value removed). Known keys are
   ``shot_kind``, ``level_percent``, ``terminal``, ``unit_id``, ``shot_id``, ``lab`` and ``recorded_at``;
-  other keys are kept as text. A ``#`` line without a colon is a free comment and is ignored. Comment
+  other keys become numbers or booleans when the text is exactly how Python writes that value
+  (``bits: 12``, ``noise_V: 0.25``), text otherwise. A ``#`` line without a colon is a free comment and is ignored. Comment
   lines are only allowed before the header.
 * **Header**: the first non-comment line. Each cell is ``<name>_<unit>`` (unit after the *last*
   underscore, e.g. ``voltage_kV``, ``neutral_current_mA``) or ``<name> [<unit>]`` (e.g. ``U1 [kV]``).
@@ -55,7 +56,7 @@ from .._validation import FormatError, RecordError, ShotcheckError
 from ..record import Channel, Record
 from ..units import QUANTITY_UNITS, TIME_UNITS, parse_unit
 
-__all__ = ["is_format", "read", "write", "split_header_cell", "parse_table", "unit_info"]
+__all__ = ["is_format", "read", "write", "split_header_cell", "parse_table", "unit_info", "meta_value"]
 
 SUFFIXES = (".csv",)
 _HEADER_BRACKET = re.compile(r"^(?P<name>.*?)\s*[\[(]\s*(?P<unit>[^\])]*?)\s*[\])]$")
@@ -316,7 +317,8 @@ def read(
         if s.startswith("#"):
             m = _META_LINE.match(s)
             if m:
-                meta[m.group("key").strip()] = m.group("value").strip()
+                key = m.group("key").strip()
+                meta[key] = meta_value(key, m.group("value").strip())
             continue
         header = s
         break
@@ -399,13 +401,49 @@ def unit_info(text: str, *, path: str | None = None, field: str | None = None) -
     return q, f, canonical
 
 
+#: Metadata keys that are always text, even when they look like numbers (``unit_id: 0815``).
+TEXT_META_KEYS = ("shot_kind", "terminal", "unit_id", "shot_id", "lab", "recorded_at", "source_format")
+
+
+def meta_value(key: str, text: str) -> Any:
+    """Turn a metadata value read as text back into a number or bool when that is loss-free.
+
+    ``'12'`` -> 12, ``'2.5e-06'`` -> 2.5e-06, ``'True'`` -> True; text that would not be written back
+    identically (``'0815'``) and the keys in :data:`TEXT_META_KEYS` stay text. ``level_percent`` is
+    converted by :class:`~detector.record.Record` itself.
+
+    Parameters
+    ----------
+    key : str
+        Metadata key.
+    text : str
+        Value as written in the file.
+
+    Returns
+    -------
+    str, int, float or bool
+    """
+    if key in TEXT_META_KEYS:
+        return text
+    if text in ("True", "False"):
+        return text == "True"
+    for kind in (int, float):
+        try:
+            value = kind(text)
+        except ValueError:
+            continue
+        if (repr(value) if kind is float else str(value)) == text:
+            return value
+    return text
+
+
 def _meta_lines(meta: Mapping[str, Any], path: str) -> list[str]:
     out = []
     for k, v in meta.items():
         if k == "source_format" or v is None:
             continue
         key = str(k)
-        text = str(v)
+        text = repr(v) if isinstance(v, float) else str(v)
         if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_.-]*", key) or "\n" in text or "\r" in text:
             raise RecordError(
                 f"metadata {key!r}: {text!r} cannot be written as a '# key: value' line "

@@ -126,6 +126,7 @@ class DoubleExponential:
     origin_s: float
 
     def __post_init__(self) -> None:
+        """Store plain floats."""
         for name in ("amplitude_V", "tau1_s", "tau2_s", "origin_s"):
             object.__setattr__(self, name, float(getattr(self, name)))
 
@@ -171,7 +172,10 @@ class ToleranceCheck:
     def to_dict(self) -> dict[str, Any]:
         """Return ``{'value', 'low', 'high', 'pass'}`` in the display unit named by ``name``."""
         scale = _display_scale(self.name)
-        conv = (lambda x: None if x is None else float(x) * scale)
+
+        def conv(x: float | None) -> float | None:
+            return None if x is None else float(x) * scale
+
         return {"value": conv(self.value), "low": conv(self.low), "high": conv(self.high),
                 "pass": bool(self.passed)}
 
@@ -246,6 +250,7 @@ class WaveShape:
     warnings: tuple[str, ...]
 
     def __post_init__(self) -> None:
+        """Store numbers as plain floats (clean reprs and JSON)."""
         for f in dataclasses.fields(self):
             val = getattr(self, f.name)
             if isinstance(val, float | np.floating) and not isinstance(val, bool):
@@ -258,7 +263,9 @@ class WaveShape:
         section 6); the time to chopping Tc of IEC 60060-1 is ``chopping_time_us - virtual_origin_us``
         and is checked in ``tolerance['time_to_chopping_us']``.
         """
-        us = (lambda x: None if x is None else float(x) * 1e6)
+        def us(x: float | None) -> float | None:
+            return None if x is None else float(x) * 1e6
+
         return {
             "kind": self.kind,
             "polarity": self.polarity,
@@ -581,7 +588,7 @@ def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, orig
 
 
 def _test_voltage_curve(p: _Prepared, base_u: np.ndarray, i_end: int) -> np.ndarray:
-    """Base curve + residual filtered with k(f), over ``[0, i_end)`` (FFT, detrended and zero padded)."""
+    """Return base curve + residual filtered with k(f) over ``[0, i_end)`` (FFT, detrended, zero padded)."""
     r = p.u[:i_end] - base_u[:i_end]
     m = r.size
     ramp = r[0] + (r[-1] - r[0]) * np.arange(m) / max(m - 1, 1)

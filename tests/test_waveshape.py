@@ -53,7 +53,7 @@ def analytic_lightning(tau1, tau2):
     return t1, t50 - o1, o1, peak
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def taus_for(t1_us, t2_us):
     """Time constants [s] of the double exponential with the given T1/T2 (solved here with brentq)."""
 

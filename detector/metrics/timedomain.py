@@ -107,16 +107,17 @@ class Collapse:
     Attributes
     ----------
     index : int
-        Sample index of the voltage just before the fall (its local maximum).
+        Sample index at (just before) the collapse instant.
     time_s : float
         Instant of the collapse [s, from the first sample]: the line through the 70 % and 10 % points of
         the fall, extended to the voltage before the fall.
     voltage_before_pu : float
-        Voltage before the fall [p.u.].
+        Voltage at the knee where the steep fall begins [p.u.].
     voltage_after_pu : float
         Lowest voltage within ``4 * max_fall_time_s`` after the fall began [p.u.].
     fall_time_s : float
-        Duration of the fall from 100 % to 0 on that line [s] (``(t10 - t70) / 0.6``).
+        Duration of the fall from 100 % to 0 on that line [s] (``(t10 - t70) / 0.6``; for a collapse
+        that stops above 10 % the lowest point replaces the 10 % point).
     """
 
     index: int
@@ -156,7 +157,9 @@ def voltage_collapse(
     -----
     The instant follows the IEC 60060-1 construction for chopped impulses (from memory): the straight
     line through the points where the fall passes 70 % and 10 % of the voltage before the fall, taken at
-    the voltage before the fall.
+    the voltage before the fall. That voltage is read at the knee, the last sample before the steep run
+    (fall per sample at least 10 % of the steepest); a fall that stops above 10 % uses the end of the
+    steep run instead of the 10 % point.
     """
     v = np.asarray(voltage_pu, dtype=np.float64)
     dt = check_range("dt", dt, 0.0, None, low_inclusive=False, unit="s")
@@ -174,29 +177,30 @@ def voltage_collapse(
     if hits.size == 0:
         return None
     i = int(hits[0])
-    i_top = i + int(np.argmax(v[i : i + w + 1]))
-    u = float(v[i_top])
-    after = v[i_top:]
-    below70 = np.flatnonzero(after < 0.7 * u)
-    j70 = int(below70[0])
-    t70 = j70 - 1 + (after[j70 - 1] - 0.7 * u) / (after[j70 - 1] - after[j70])
-    below10 = np.flatnonzero(after[j70:] < 0.1 * u)
-    if below10.size:
-        j10 = j70 + int(below10[0])
-        t10 = j10 - 1 + (after[j10 - 1] - 0.1 * u) / (after[j10 - 1] - after[j10])
+    seg = v[i : i + 2 * w + 2]  # holds the whole fall: it starts within w samples and lasts <= w
+    fall_step = -np.diff(seg)
+    steep = fall_step >= 0.1 * fall_step.max()
+    k0 = int(np.argmax(steep))  # knee: the last sample before the steep fall
+    rest = ~steep[k0:]
+    k1 = k0 + (int(np.argmax(rest)) if rest.any() else rest.size)  # first sample after the steep run
+    u = float(seg[k0])
+    fall_seg = seg[k0 : k1 + 1]
+    j70 = int(np.argmax(fall_seg < 0.7 * u))
+    t70 = j70 - 1 + (fall_seg[j70 - 1] - 0.7 * u) / (fall_seg[j70 - 1] - fall_seg[j70])
+    below10 = fall_seg < 0.1 * u
+    if below10.any():
+        j10 = int(np.argmax(below10))
+        frac_end = 0.1
+        t10 = j10 - 1 + (fall_seg[j10 - 1] - 0.1 * u) / (fall_seg[j10 - 1] - fall_seg[j10])
     else:
-        # partial collapse: use the steepest part of the fall instead of the 10 % point
-        span = after[j70 : j70 + 2 * w]
-        j10 = j70 + int(np.argmin(span))
-        t10 = float(j10)
-        frac_low = after[j10] / u
-        fall = (t10 - t70) / max(0.7 - frac_low, 1e-9)
-        t_c = t70 - 0.3 * fall
-        return Collapse(i_top, (i_top + t_c) * dt, u, float(after[j10]), float(fall * dt))
-    fall = (t10 - t70) / 0.6
-    t_c = t70 - 0.3 * fall
-    low = float(np.min(v[i_top : i_top + 4 * w + 1]))
-    return Collapse(i_top, float((i_top + t_c) * dt), u, low, float(fall * dt))
+        # partial collapse: the line through the 70 % point and the end of the steep fall
+        frac_end = float(fall_seg[-1] / u)
+        t10 = float(fall_seg.size - 1)
+    fall = (t10 - t70) / max(0.7 - frac_end, 1e-9)  # samples from 100 % to 0 on that line
+    t_c = i + k0 + t70 - 0.3 * fall
+    k = int(min(max(math.floor(t_c), 0), v.size - 1))
+    low = float(np.min(v[i : i + 4 * w + 1]))
+    return Collapse(k, float(t_c * dt), u, low, float(fall * dt))
 
 
 def voltage_windows(voltage_pu: np.ndarray, *, pretrigger_samples: int = 0, stop: int | None = None,

@@ -1,0 +1,162 @@
+"""Time-domain metrics on analytic pairs (double exponential through a known R-L-C network)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from metrics_signals import FAULTY, TAU1_S, TAU2_S, chopped, double_exponential, make_record
+from scipy.optimize import brentq
+
+from detector._validation import ShotcheckError
+from detector.metrics.timedomain import (
+    deviation_onset,
+    noise_floor,
+    time_domain_metrics,
+    voltage_collapse,
+    voltage_windows,
+    window_deviations,
+)
+from detector.preprocess import align_pair
+
+DT = 1e-8
+NOISE = 5e-4
+
+
+def _pair(**test_kw):
+    ref = make_record(amplitude_V=300e3, noise_v=NOISE, noise_i=NOISE, seed=1)
+    kw = dict(amplitude_V=600e3, noise_v=NOISE, noise_i=NOISE, seed=2)
+    kw.update(test_kw)
+    return align_pair(ref, make_record(**kw))
+
+
+def test_identical_records_give_zero_deviation():
+    rec = make_record(amplitude_V=300e3, noise_v=NOISE, noise_i=NOISE, seed=1)
+    m = time_domain_metrics(align_pair(rec, rec))
+    assert not m.dv_pu.any() and not m.di_pu.any()
+    for dev in (*m.voltage.values(), *m.current.values()):
+        assert dev.max_abs == 0.0 and dev.max_sigma == 0.0
+    assert m.onset_s is None
+    assert m.ref_collapse is None and m.test_collapse is None
+
+
+def test_noise_only_pair_stays_below_threshold():
+    p = _pair()
+    m = time_domain_metrics(p)
+    # independent noise of the two records adds in power: sqrt(2) * 5e-4 of the amplitude, per unit of
+    # the peak (0.963 of the amplitude for 1.2/50; computed from Kuffel's constants)
+    expected = math.sqrt(2) * NOISE * 300e3 / p.ref_test_voltage_V
+    assert m.voltage_noise.mad == pytest.approx(expected, rel=0.15)
+    assert m.voltage_noise.rms == pytest.approx(expected, rel=0.15)
+    assert m.voltage["all"].max_sigma < 6 and m.current["all"].max_sigma < 6
+    assert m.onset_s is None
+
+
+def test_winding_change_shows_in_the_current_not_the_voltage():
+    m = time_domain_metrics(_pair(branches=FAULTY))
+    assert m.current["all"].max_sigma > 50
+    assert m.current["crest"].max_percent > 2.0
+    assert m.voltage["all"].max_sigma < 6
+    assert m.voltage_onset_s is None
+    # the changed branch responds from the first microsecond of the front (front starts at 2 us)
+    assert 2e-6 <= m.current_onset_s < 3.5e-6
+    assert m.onset_s == m.current_onset_s
+    dev = m.current["all"]
+    assert dev.max_percent == pytest.approx(100 * dev.max_abs / np.abs(align_pair(
+        make_record(amplitude_V=300e3, noise_v=NOISE, noise_i=NOISE, seed=1),
+        make_record(amplitude_V=300e3, noise_v=NOISE, noise_i=NOISE, seed=1)).ref_current_pu).max(),
+        rel=1e-9)
+
+
+def test_onset_time_of_a_sudden_event():
+    t_event = 25e-6  # after the start of the front
+
+    def ring(t):
+        tt = t - t_event
+        return np.where(tt > 0, 2.0 * np.exp(-tt / 3e-6) * np.sin(2 * np.pi * 2e6 * tt), 0.0)
+
+    m = time_domain_metrics(_pair(extra_current=ring))
+    # the front starts 2 us after the first sample of the reference time axis
+    assert m.current_onset_s == pytest.approx(2e-6 + t_event, abs=0.1e-6)
+    assert m.voltage_onset_s is None
+
+
+def test_deviation_onset_needs_the_minimum_duration():
+    d = np.zeros(1000)
+    d[100:103] = 10.0  # 3 samples: a spike
+    d[500:510] = -10.0  # 10 samples
+    assert deviation_onset(d, 1.0, DT, k_sigma=5, min_duration_s=50e-9) == 500
+    assert deviation_onset(d, 1.0, DT, k_sigma=5, min_duration_s=0.0) == 100
+    assert deviation_onset(d, 1.0, DT, k_sigma=20) is None
+    assert deviation_onset(d, 1.0, DT, stop=400) is None
+    with pytest.raises(ShotcheckError, match="sigma"):
+        deviation_onset(d, 0.0, DT)
+
+
+def test_windows_follow_the_analytic_wave():
+    t = np.arange(20000) * DT
+    t0 = 2e-6
+    v = double_exponential(t, 1.0, t0)
+    w = voltage_windows(v / v.max(), pretrigger_samples=180)
+    # time to peak of A (exp(-t/tau1) - exp(-t/tau2)): tau1 tau2 ln(tau1/tau2) / (tau1 - tau2) (computed)
+    t_peak = TAU1_S * TAU2_S * math.log(TAU1_S / TAU2_S) / (TAU1_S - TAU2_S)
+    assert w["front"].start == 180
+    assert abs(w["front"].stop * DT - (t0 + t_peak)) <= 1.5 * DT
+    vpk = math.exp(-t_peak / TAU1_S) - math.exp(-t_peak / TAU2_S)
+    t90 = brentq(lambda x: math.exp(-x / TAU1_S) - math.exp(-x / TAU2_S) - 0.9 * vpk, t_peak, 100e-6)
+    assert abs(w["crest"].stop * DT - (t0 + t90)) <= 1.5 * DT
+    assert w["tail"] == slice(w["crest"].stop, 20000) and w["all"] == slice(0, 20000)
+
+
+def test_window_deviations_units():
+    d = np.zeros(100)
+    d[40] = -0.02
+    out = window_deviations(d, 0.001, 0.5, {"a": slice(0, 50), "b": slice(50, 100), "e": slice(5, 5)},
+                            np.arange(100) * DT)
+    assert out["a"].max_sigma == pytest.approx(20.0)
+    assert out["a"].max_percent == pytest.approx(4.0)
+    assert out["a"].time_s == pytest.approx(40 * DT)
+    assert out["b"].max_abs == 0.0 and math.isnan(out["e"].time_s)
+
+
+@pytest.mark.parametrize("chop_s", [2e-6, 3.3e-6, 6e-6])
+def test_collapse_instant_of_a_linear_chop(chop_s):
+    """A linear fall from U to 0 in 0.2 us: the 70 %-10 % line meets U at the start of the fall.
+
+    IEC 60060-1 chopping instant from the 70 % and 10 % points (from memory); exact for a linear fall
+    up to the slow decay of the tail during the 0.2 us (a few 1e-3 of a sample).
+    """
+    t = np.arange(20000) * DT
+    v = chopped(double_exponential(t, 1.0, 2e-6), t, 2e-6 + chop_s, fall_s=0.2e-6)
+    c = voltage_collapse(v / v.max(), DT)
+    assert c.time_s == pytest.approx(2e-6 + chop_s, abs=0.05 * DT)
+    assert c.fall_time_s == pytest.approx(0.2e-6, rel=0.01)
+    assert c.voltage_after_pu == pytest.approx(0.0, abs=1e-9)
+    assert voltage_collapse(double_exponential(t, 1.0, 2e-6), DT) is None
+
+
+def test_partial_collapse_and_threshold():
+    t = np.arange(5000) * DT
+    v = double_exponential(t, 1.0, 1e-6)
+    v = v * np.clip(1.0 - 0.6 * (t - 10e-6) / 0.1e-6, 0.4, 1.0)  # falls to 40 % in 0.1 us
+    c = voltage_collapse(v / v.max(), DT)
+    assert c.time_s == pytest.approx(10e-6, abs=0.5 * DT)
+    assert c.voltage_after_pu == pytest.approx(0.4 * c.voltage_before_pu, rel=0.03)  # tail decays 2 us
+    assert voltage_collapse(v / v.max(), DT, min_drop_pu=0.7) is None
+
+
+def test_chopped_test_against_full_reference():
+    p = _pair(chop_s=3e-6)
+    m = time_domain_metrics(p)
+    assert m.ref_collapse is None
+    assert m.test_collapse.time_s == pytest.approx(5e-6, abs=0.3 * DT)
+    assert m.compared_until_s < 5e-6 - 0.15e-6
+    # before the chop the records hold the same wave through the same network: noise only
+    assert m.voltage["all"].max_sigma < 6 and m.current["all"].max_sigma < 6
+    assert m.onset_s is None
+
+
+def test_noise_floor_adds_in_power():
+    nf = noise_floor((3.0, 4.0), (4.0, 3.0))
+    assert nf == (5.0, 5.0)

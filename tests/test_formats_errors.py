@@ -169,3 +169,15 @@ def test_named_channel_with_unknown_unit(tmp_path: Path) -> None:
         read(tmp_path / "x.cfg", voltage_channel="U1")
     with pytest.raises(RecordError, match="no channel 'U7'"):
         read(tmp_path / "x.cfg", voltage_channel="U7")
+
+
+def test_overflow_to_infinity_names_the_file(tmp_path: Path) -> None:
+    cfg = (MALFORMED / "missing_value.cfg").read_text().replace("kV,0.01,", "kV,1e306,")
+    (tmp_path / "big.cfg").write_text(cfg)
+    lines = [f"{k + 1},{k},{1000 * k - 5000},1,0" for k in range(20)]
+    (tmp_path / "big.dat").write_text("\r\n".join(lines))
+    with pytest.raises(RecordError, match=r"big\.cfg: channel 'U1': sample 0 is -inf"):
+        read(tmp_path / "big.cfg")
+    (tmp_path / "big.csv").write_text("time_s,U_MV\n" + "\n".join(f"{k},{1e305}" for k in range(20)))
+    with pytest.raises(RecordError, match=r"big\.csv: channel 'U': sample 0 is inf"):
+        read(tmp_path / "big.csv")

@@ -571,6 +571,16 @@ def read(
     RecordError, FormatError
         Naming the file, the line or field, and what was expected.
     """
+    with np.errstate(all="ignore"):  # overflow in a*x+b etc. is caught as non-finite samples
+        return _read(path, voltage_channel=voltage_channel, current_channel=current_channel)
+
+
+def _read(
+    path: str | os.PathLike,
+    *,
+    voltage_channel: str | int | None,
+    current_channel: str | int | None,
+) -> Record:
     p = Path(path)
     sp = str(path)
     if p.suffix.lower() == ".cff":
@@ -611,7 +621,10 @@ def read(
         vals = an.a * x[:, an.index] + an.b
         if an.ps == "S":
             vals = vals * (an.primary / an.secondary)
-        chans.append(Channel(an.name or f"channel {an.index + 1}", q, vals * factor, source_unit=canon))
+        try:
+            chans.append(Channel(an.name or f"channel {an.index + 1}", q, vals * factor, source_unit=canon))
+        except RecordError as e:  # e.g. a huge multiplier overflowing to inf: name the file too
+            raise RecordError(e.detail, path=sp, field=e.field) from None
         if an.skew_us:
             skews[an.name] = an.skew_us * 1e-6
     for key in (voltage_channel, current_channel):

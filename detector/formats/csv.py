@@ -207,7 +207,26 @@ def _diagnose(
 def check_finite_table(
     table: np.ndarray, *, path: str, first_line: int, column_names: Sequence[str], what: str = "line"
 ) -> None:
-    """Raise a FormatError naming line and column of the first NaN or infinite value in ``table``."""
+    """Raise a FormatError naming line and column of the first NaN or infinite value in ``table``.
+
+    Parameters
+    ----------
+    table : numpy.ndarray
+        Parsed rows, shape (n_rows, n_columns).
+    path : str
+        File name for the message.
+    first_line : int
+        1-based line (or sample) number of the first row.
+    column_names : sequence of str
+        Name of each column.
+    what : str
+        Word for a row in the message (``'line'`` or ``'sample'``).
+
+    Raises
+    ------
+    FormatError
+        If any value is not finite.
+    """
     bad = ~np.isfinite(table)
     if bad.any():
         r, c = np.unravel_index(int(np.argmax(bad)), table.shape)
@@ -281,6 +300,16 @@ def read(
         Missing or empty file, bad header, unknown unit, wrong field count, non-numeric/NaN values,
         non-uniform or decreasing time.
     """
+    with np.errstate(all="ignore"):  # overflow in a*x+b etc. is caught as non-finite samples
+        return _read(path, voltage_channel=voltage_channel, current_channel=current_channel)
+
+
+def _read(
+    path: str | os.PathLike,
+    *,
+    voltage_channel: str | int | None,
+    current_channel: str | int | None,
+) -> Record:
     p = str(path)
     try:
         raw = Path(path).read_bytes()
@@ -362,10 +391,13 @@ def read(
             f"time goes backwards or stands still ({table[i + 1, 0]:g} {tunit} after {table[i, 0]:g} {tunit}); "
             "time must increase", path=p, field=f"line {header_line + 2 + i}",
         )
-    chans = tuple(
-        Channel(name, q, table[:, k + 1] * f, source_unit=u)
-        for k, (name, f, q, u) in enumerate(quantities)
-    )
+    try:
+        chans = tuple(
+            Channel(name, q, table[:, k + 1] * f, source_unit=u)
+            for k, (name, f, q, u) in enumerate(quantities)
+        )
+    except RecordError as e:  # e.g. 1e308 kV overflowing to inf: name the file too
+        raise RecordError(e.detail, path=p, field=e.field) from None
     meta["source_format"] = "CSV"
     rec = Record.from_times(t, chans, meta=meta, source=p)
     if voltage_channel is not None or current_channel is not None:

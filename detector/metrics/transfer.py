@@ -102,6 +102,7 @@ def transfer_function(
     *,
     window_tau_s: float | None = None,
     pretrigger_samples: int = 0,
+    voltage_noise: float | None = None,
     snr: float = 10.0,
     noise_floor_rel: float = 1e-6,
     n_fft: int | None = None,
@@ -122,6 +123,9 @@ def transfer_function(
     pretrigger_samples : int
         Samples before the front; with at least 32 the voltage noise is estimated there (MAD), otherwise
         from the second differences of the last fifth of the record (the tail).
+    voltage_noise : float, optional
+        Standard deviation of the voltage noise [unit of ``voltage``], e.g.
+        ``AlignedPair.ref_noise.voltage_mad_pu``; overrides the estimate from ``pretrigger_samples``.
     snr : float
         The estimate is kept where ``|V(f)| >= snr * noise`` [1].
     noise_floor_rel : float
@@ -167,7 +171,9 @@ def transfer_function(
     w = np.exp(-np.arange(n) * (dt / tau))
     spec = sfft.rfft(np.stack((v * w, i * w)), nf, axis=-1)
     f = sfft.rfftfreq(nf, dt)
-    if pretrigger_samples >= MIN_NOISE_SAMPLES:
+    if voltage_noise is not None:
+        sigma = check_range("voltage_noise", voltage_noise, 0.0, None)
+    elif pretrigger_samples >= MIN_NOISE_SAMPLES:
         sigma = noise_estimate(v[:pretrigger_samples]).mad
     else:
         sigma = _second_difference_noise(v[-max(n // 5, 16):]).mad

@@ -315,8 +315,8 @@ def _design(winding: WindingDesign | None, T1: float, T2: float, kind: str, C1_F
 
 def _measure_grid(T1: float, T2: float, kind: str) -> np.ndarray:
     if kind == "switching":
-        return np.linspace(0.0, 3.0 * T2, 6001)
-    return np.concatenate((np.linspace(0.0, 4.0 * T1, 3001)[:-1], np.linspace(4.0 * T1, 3.0 * T2, 3001)))
+        return np.linspace(0.0, 4.0 * T2, 8001)
+    return np.concatenate((np.linspace(0.0, 4.0 * T1, 3001)[:-1], np.linspace(4.0 * T1, 4.0 * T2, 4001)))
 
 
 def _refine(winding: WindingDesign, gen: ImpulseGenerator, T1: float, T2: float, kind: str, tol: float
@@ -329,17 +329,21 @@ def _refine(winding: WindingDesign, gen: ImpulseGenerator, T1: float, T2: float,
     def times(z: np.ndarray) -> np.ndarray:
         g = dataclasses.replace(gen, R_front_ohm=float(np.exp(z[0])), R_tail_ohm=float(np.exp(z[1])))
         f, h, _ = measure_front_tail(t, _terminal_voltage(winding, g, t), kind=kind)
-        if not (np.isfinite(f) and np.isfinite(h)):
+        if not np.isfinite(h):  # tail still above half at the end of the grid: call it twice as long
+            h = 2.0 * t[-1]
+        if not (np.isfinite(f) and f > 0):
             return np.array([np.nan, np.nan])
         return np.log([f / T1, h / T2])
 
     z = np.log([gen.R_front_ohm, gen.R_tail_ohm])
     J = np.eye(2)
     r = times(z)
+    best = (np.inf, z)
     for _ in range(25):
-        if np.all(np.isfinite(r)) and np.max(np.abs(r)) < np.log1p(tol):
-            return dataclasses.replace(gen, R_front_ohm=float(np.exp(z[0])), R_tail_ohm=float(np.exp(z[1])))
-        if not np.all(np.isfinite(r)):
+        err = float(np.max(np.abs(r))) if np.all(np.isfinite(r)) else np.inf
+        if err < best[0]:
+            best = (err, z)
+        if err < np.log1p(tol) or not np.isfinite(err):
             break
         step = -np.linalg.solve(J, r)
         step = np.clip(step, -1.0, 1.0)
@@ -350,6 +354,11 @@ def _refine(winding: WindingDesign, gen: ImpulseGenerator, T1: float, T2: float,
         else:
             z_new, r_new = z + 0.3 * step, times(z + 0.3 * step)
         z, r = z_new, r_new
+    # an oscillating tail makes T2 (first 50 % crossing) jump between lobes; accept the best point when it is
+    # within 10 % (half the IEC 60060-1:2010 tolerance of +/-20 % on T2, a third of +/-30 % on T1)
+    if best[0] < np.log1p(max(tol, 0.10)):
+        z = best[1]
+        return dataclasses.replace(gen, R_front_ohm=float(np.exp(z[0])), R_tail_ohm=float(np.exp(z[1])))
     raise ShotcheckError(
         f"cannot reach front {T1:g} s and time to half {T2:g} s on winding {winding.name!r}: "
         "its inductance or capacitance drags the wave shape out of reach of the front and tail resistors; "
@@ -374,7 +383,9 @@ def design_generator(
     Starts from the textbook resistors for the capacitive load ``C_load_F`` + the winding's input
     capacitance, then (``refine=True``) corrects both resistors on the simulated network until the terminal
     voltage has the wanted T1 and T2 within ``tol`` (relative), and sets ``charge_V`` so that its peak equals
-    ``test_voltage_V``. Costs about ten network decompositions (tens of ms for 40 sections).
+    ``test_voltage_V``. When the winding's oscillation rides on the tail, T2 (the first 50 % crossing) jumps
+    between oscillation lobes as R_tail changes; the closest point is then accepted if within 10 % of both
+    targets (inside the IEC 60060-1 tolerances), otherwise an error is raised. Costs about ten network decompositions (tens of ms for 40 sections).
 
     Parameters
     ----------

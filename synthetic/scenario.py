@@ -27,9 +27,11 @@ Event classes
     A train of short current pulses at a node, topology unchanged.
 
 Faults occur in the test shot only. Their breakdown (or inception) voltage lies between the stress
-of the gap at the reduced level and at full level (``breakdown_fraction`` 0..1 between the two): the
-network is linear before the event, so the reduced-level stress is the level times the full-level
-stress computed by :func:`synthetic.simulate.max_stress`.
+of the gap at the reduced level and at full level: the network is linear before the event, so the
+reduced-level stress is the level times the full-level stress computed by
+:func:`synthetic.simulate.max_stress`. Within that band the voltage is chosen so that the gap strikes
+in a target phase of the applied wave (``phases``: front, crest, tail; drawn per case) where the
+gap's stress allows it (see ``_breakdown_voltage``).
 """
 
 from __future__ import annotations
@@ -130,6 +132,8 @@ SCHEMA: dict[str, dict[str, _Key]] = {
         "shorted_turns": _Key("range", 1, 1000, "int", int, required=False, default=[1, 10]),
         "section_short_fraction": _Key("fraction", 0.0, 1.0, required=False, default=0.3),
         "breakdown_fraction": _Key("range", 0.0, 1.0, required=False, default=[0.05, 0.95]),
+        "phases": _Key("choice", dtype=str, required=False, default=["front", "crest", "tail"]),
+        "front_region": _Key("fraction", 0.0, 1.0, required=False, default=0.15),
         "discharge_charge_C": _Key("range", 1e-14, 1e-6, "log", required=False, default=[1e-12, 3e-8]),
         "discharge_width_s": _Key("range", 1e-9, 1e-6, required=False, default=[10e-9, 60e-9]),
         "discharge_pulses": _Key("range", 1, 1000, "int", int, required=False, default=[1, 20]),
@@ -141,6 +145,7 @@ _CHOICES = {
     ("winding", "neutral"): ("grounded", "isolated"),
     ("test", "polarity"): ("negative", "positive"),
     ("faults", "classes"): EVENT_CLASSES,
+    ("faults", "phases"): ("front", "crest", "tail"),
 }
 
 
@@ -461,24 +466,31 @@ def sample_scenario(
     fault: dict[str, Any] = {}
     if event in ("turn_to_turn", "to_ground", "discharge_only"):
         fault["breakdown_fraction"] = d(rng, "faults", "breakdown_fraction")
+        fault["target_phase"] = d(rng, "faults", "phases")
+    # Front-of-wave stress concentrates on the line-end sections (initial distribution
+    # sinh(alpha (1 - x)) / sinh(alpha), Greenwood, Electrical Transients in Power Systems): a fault aimed
+    # at the front is placed in the line-end share ``front_region`` of the winding, others anywhere.
+    reach = n
+    if fault.get("target_phase") == "front":
+        reach = max(2, int(np.ceil(fam.values["faults.front_region"] * n)))
     if event == "turn_to_turn":
         if rng.random() < fam.values["faults.section_short_fraction"] and n >= 3:
             span = int(rng.integers(1, 3))
-            first = int(rng.integers(0, n - span + 1))
+            first = int(rng.integers(0, min(n - span, reach) + 1))
             fault.update(kind="sections", first_section=first, sections_bridged=span,
                          shorted_turns=span * turns)
         else:
             lo, hi = (fam.values["faults.shorted_turns"] if isinstance(fam.values["faults.shorted_turns"], list)
                       else [fam.values["faults.shorted_turns"]] * 2)
             k = int(rng.integers(lo, min(hi, turns - 1) + 1)) if lo <= turns - 1 else 1
-            fault.update(kind="turns", section=int(rng.integers(0, n)), shorted_turns=k,
+            fault.update(kind="turns", section=int(rng.integers(0, reach)), shorted_turns=k,
                          line_side=bool(rng.random() < 0.5))
         fault["arc_resistance_ohm"] = d(rng, "faults", "arc_resistance_ohm")
     elif event == "to_ground":
-        fault.update(node=int(rng.integers(1, n)), arc_resistance_ohm=d(rng, "faults", "arc_resistance_ohm"))
+        fault.update(node=int(rng.integers(1, min(reach, n - 1) + 1)), arc_resistance_ohm=d(rng, "faults", "arc_resistance_ohm"))
     elif event == "discharge_only":
         fault.update(
-            node=int(rng.integers(1, n)),
+            node=int(rng.integers(1, min(reach, n - 1) + 1)),
             charge_C=d(rng, "faults", "discharge_charge_C"),
             width_s=d(rng, "faults", "discharge_width_s"),
             max_pulses=d(rng, "faults", "discharge_pulses"),
@@ -526,6 +538,35 @@ def _phase(t_fault_s: float, times_s: np.ndarray, v_healthy: np.ndarray) -> str:
     if a[k] >= 0.95 * a[k_peak]:
         return "crest"
     return "front" if k < k_peak else "tail"
+
+
+def _breakdown_voltage(sc: Scenario, f: Mapping[str, Any], full_stress: float, healthy: Any,
+                       node_a: int, node_b: int | None) -> float:
+    """Breakdown (or inception) voltage of the gap for the scenario's target phase.
+
+    The stress of a healthy network is linear in the level, so any voltage in (level x full stress,
+    full stress) strikes in the full-level shot only. The gap breaks down at the first instant its
+    running maximum stress reaches the breakdown voltage; among the instants where that running
+    maximum rises inside the allowed band and the healthy applied voltage is in the target phase
+    (front, crest, tail), one is picked by ``breakdown_fraction`` (as a quantile). If the target phase
+    has no such instant, ``breakdown_fraction`` places the voltage linearly in the band.
+    """
+    lo = full_stress * (sc.reduced_level + 0.02 * (1.0 - sc.reduced_level))
+    hi = full_stress * (1.0 - 0.02 * (1.0 - sc.reduced_level))
+    frac = f["breakdown_fraction"]
+    v_nodes = healthy.node_voltages_V
+    gap = v_nodes[:, node_a] - (v_nodes[:, node_b] if node_b is not None else 0.0)
+    run_max = np.maximum.accumulate(np.abs(gap))
+    rising = np.r_[False, run_max[1:] > run_max[:-1]] & (run_max > lo) & (run_max < hi)
+    a = np.abs(healthy.terminal_voltage_V)
+    k_peak = int(np.argmax(a))
+    idx = np.arange(a.size)
+    phase = np.where(a >= 0.95 * a[k_peak], "crest", np.where(idx < k_peak, "front", "tail"))
+    cand = np.flatnonzero(rising & (phase == f.get("target_phase", "")))
+    if cand.size:
+        k = cand[min(int(frac * cand.size), cand.size - 1)]
+        return float(0.5 * (run_max[k - 1] + run_max[k]))
+    return float(full_stress * (sc.reduced_level + frac * (1.0 - sc.reduced_level)))
 
 
 def make_pair(scenario: Scenario) -> tuple[Any, Any, dict[str, Any]]:
@@ -597,9 +638,8 @@ def make_pair(scenario: Scenario) -> tuple[Any, Any, dict[str, Any]]:
     bdv = math.nan
     if sc.event != "none":
         full_stress = max_stress(test_design, gen, t_end_s=t_end, node_a=node_a, node_b=node_b, chop=chop_t)
-        # linear network before the event: reduced-level stress = level x full-level stress
-        frac = f["breakdown_fraction"]
-        bdv = full_stress * (sc.reduced_level + frac * (1.0 - sc.reduced_level))
+        bdv = _breakdown_voltage(sc, f, full_stress, simulate(test_design, gen, t_end_s=t_end, dt_s=dt_sim,
+                                                              chop=chop_t, record_nodes=True), node_a, node_b)
         if sc.event == "discharge_only":
             faults = (DischargeTrain(node_a, bdv, f["charge_C"], f["width_s"], f["max_pulses"], f["repetition_s"]),)
         else:

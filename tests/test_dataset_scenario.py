@@ -74,11 +74,15 @@ def test_sampled_scenarios_respect_the_family_ranges(name):
                 assert 0 <= sc.fault["first_section"] and sc.fault["first_section"] + sc.fault["sections_bridged"] <= n
         elif sc.event == "to_ground":
             assert 1 <= sc.fault["node"] <= n - 1
+            if sc.fault["target_phase"] == "front":  # aimed at the front: line-end share of the winding
+                assert sc.fault["node"] <= max(2, math.ceil(f["front_region"] * n))
         elif sc.event == "discharge_only":
             assert within(sc.fault["charge_C"], f["discharge_charge_C"])
             assert within(sc.fault["max_pulses"], f["discharge_pulses"])
         else:
             assert sc.fault == {}
+        if sc.event != "none":
+            assert sc.fault["target_phase"] in ("front", "crest", "tail")
     # the whole winding is covered and both shot kinds occur
     pos = [sc.fault["node"] / sc.winding["n_sections"] for sc in scs if sc.event == "to_ground"]
     assert min(pos) < 0.15 and max(pos) > 0.85

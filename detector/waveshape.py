@@ -374,6 +374,13 @@ def _first_fall(y: np.ndarray, level: float, start: int) -> float | None:
     return i + (y[i] - level) / (y[i] - y[i + 1])
 
 
+def _fall_at(y: np.ndarray, i: int, level: float) -> float:
+    """Fractional index where ``y`` falls through ``level`` between samples ``i`` and ``i + 1``."""
+    if i < 0 or i + 1 >= y.size or not y[i] > y[i + 1]:
+        return float(max(i, 0))
+    return i + min(max((y[i] - level) / (y[i] - y[i + 1]), 0.0), 1.0)
+
+
 def _interp(y: np.ndarray, x: float) -> float:
     return float(np.interp(x, np.arange(y.size), y))
 
@@ -537,7 +544,8 @@ def _shape_peak(tau1: float, tau2: float) -> float:
     return math.exp(-tp / tau1) - math.exp(-tp / tau2)
 
 
-def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, origin: float) -> DoubleExponential:
+def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, origin: float,
+              source: str | None) -> DoubleExponential:
     """Fit the double exponential to ``p.u[i_lo:i_hi]``; start values in samples. Returns it in SI."""
     # every sample up to a few front times past the crest (thinned if that alone is too many), the tail
     # thinned evenly; weights sqrt(stride) keep the sum over samples close to a time integral
@@ -552,11 +560,20 @@ def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, orig
     scale = max(p.front_s / p.dt, 1.0)  # time unit of the fit: one front time, in samples
     x = idx / scale
     y = p.u[idx] / p.peak
-    x0 = np.array([1.0 / _shape_peak(tau1, tau2), math.log(tau1 / scale), math.log(tau2 / scale), origin / scale])
+    failed = RecordError("the base-curve fit failed; expected an impulse of double-exponential shape "
+                         "(a front, a crest and a decaying tail)", path=source, field="voltage")
+    try:
+        x0 = np.array([1.0 / _shape_peak(tau1, tau2), math.log(tau1 / scale), math.log(tau2 / scale),
+                       origin / scale])
+    except (ValueError, ZeroDivisionError, OverflowError):
+        raise failed from None
+
+    def taus(par: np.ndarray) -> tuple[float, float]:
+        return math.exp(min(max(par[1], -300.0), 300.0)), math.exp(min(max(par[2], -300.0), 300.0))
 
     def model(par: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         s = np.clip(x - par[3], 0.0, None)
-        t1, t2 = math.exp(par[1]), math.exp(par[2])
+        t1, t2 = taus(par)
         return s, np.exp(-s / t1), np.exp(-s / t2)
 
     def fun(par: np.ndarray) -> np.ndarray:
@@ -565,7 +582,7 @@ def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, orig
 
     def jac(par: np.ndarray) -> np.ndarray:
         s, e1, e2 = model(par)
-        t1, t2 = math.exp(par[1]), math.exp(par[2])
+        t1, t2 = taus(par)
         on = s > 0
         j = np.empty((s.size, 4))
         j[:, 0] = e1 - e2
@@ -576,10 +593,17 @@ def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, orig
 
     f_scale = max(3.0 * p.sigma / p.peak, 0.005)
     # unbounded: the log time constants keep them positive, and trf without bounds is much quicker
-    res = optimize.least_squares(fun, x0, jac=jac, loss="soft_l1", f_scale=f_scale, x_scale="jac",
-                                 xtol=1e-9, ftol=1e-9, gtol=1e-9, max_nfev=200)
-    if not np.all(np.isfinite(res.x)) or not 1e-3 < abs(res.x[0]) < 1e3:
-        raise ShotcheckError("the base-curve fit failed; expected an impulse of double-exponential shape")
+    if not np.all(np.isfinite(x0)):
+        raise failed
+    try:
+        with np.errstate(all="ignore"):  # overflow to inf / 0 * inf = nan on wild trial steps is rejected
+            res = optimize.least_squares(fun, x0, jac=jac, loss="soft_l1", f_scale=f_scale, x_scale="jac",
+                                         xtol=1e-9, ftol=1e-9, gtol=1e-9, max_nfev=200)
+    except (ValueError, OverflowError, FloatingPointError, np.linalg.LinAlgError):
+        raise failed from None
+    if not np.all(np.isfinite(res.x)) or not 1e-3 < abs(res.x[0]) < 1e3 or not -300 < res.x[1] < 300 \
+            or not -300 < res.x[2] < 300:
+        raise failed
     a, l1, l2, o = res.x
     t1, t2 = math.exp(l1) * scale * p.dt, math.exp(l2) * scale * p.dt
     if t2 > t1:  # the same curve with the constants swapped
@@ -636,10 +660,8 @@ def _chopping(p: _Prepared, i_c: int, source: str | None) -> tuple[float, int]:
     if above.size == 0 or lo10.size == 0:
         raise _error(source, "the voltage collapse does not fall to 10 % of the voltage at chopping; "
                      "expected a chopped impulse recorded through its collapse")
-    i7 = int(above[-1])
-    k70 = i7 + (y[i7] - 0.7 * uc) / (y[i7] - y[i7 + 1])
-    i1 = k50 + int(lo10[0]) - 1
-    k10 = i1 + (y[i1] - 0.1 * uc) / (y[i1] - y[i1 + 1])
+    k70 = _fall_at(y, int(above[-1]), 0.7 * uc)
+    k10 = _fall_at(y, k50 + int(lo10[0]) - 1, 0.1 * uc)
     # line through the 70 % and 10 % points, taken back to the voltage at chopping (from memory)
     tc = k70 - 0.5 * (k10 - k70)
     return tc, max(int(math.floor(tc)) - 1, 1)
@@ -742,7 +764,7 @@ def _evaluate_lightning(p: _Prepared, chopped: bool | None, *, specified_test_vo
     if i_hi - i_lo < 8:
         raise _error(source, f"too few samples on the impulse ({i_hi - i_lo}) to fit a base curve; expected a "
                      "faster recording")
-    base = _fit_base(p, i_lo, i_hi, tau1, tau2, o1 - 0.1 * front)
+    base = _fit_base(p, i_lo, i_hi, tau1, tau2, o1 - 0.1 * front, source)
     times = p.t0 + np.arange(n) * p.dt
     base_u = base(times)
     tv = _test_voltage_curve(p, base_u, i_end)
@@ -817,7 +839,7 @@ def _evaluate_switching(p: _Prepared, *, specified_test_voltage_V: float | None,
     tau1 = max((a50 - origin0) / 0.792 if a50 is not None else 12.6 * tp0, 3.0 * tau2)  # 2500 / 3155
     i_lo = max(int(math.floor(a20)), 0)
     i_hi = n if a40 is None else int(math.ceil(a40)) + 1
-    base = _fit_base(p, i_lo, i_hi, tau1, tau2, origin0)
+    base = _fit_base(p, i_lo, i_hi, tau1, tau2, origin0, source)
     tab_s = tab * p.dt
     t2_us = None
     t2_s = None

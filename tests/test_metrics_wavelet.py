@@ -1,0 +1,153 @@
+"""Wavelet difference: PyWavelets reference properties, noise scale, discharge vs winding change."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+import pywt
+from metrics_signals import FAULTY, gaussian_pulses, make_record
+
+from detector._validation import ShotcheckError
+from detector.metrics.wavelet import (
+    DEFAULT_MAX_LEVEL,
+    BoundaryEffectWarning,
+    level_bands_Hz,
+    resolve_level,
+    resolve_wavelet,
+    wavelet_difference,
+)
+from detector.preprocess import MAD_NORMAL_CONSTANT, align_pair
+
+DT = 1e-8
+NOISE = 5e-4
+PULSES_S = (20e-6, 35e-6, 50e-6)  # after the start of the front (2 us into the record)
+
+
+@pytest.mark.parametrize("name", ["db4", "sym8", "coif3"])
+def test_perfect_reconstruction_of_the_wavelets(name):
+    # PyWavelets tests/test_perfect_reconstruction.py: idwt(dwt(x)) == x; and iswt(swt(x)) == x
+    x = np.random.default_rng(0).standard_normal(4096)
+    rec = pywt.waverec(pywt.wavedec(x, name, mode="periodization", level=6), name, mode="periodization")
+    np.testing.assert_allclose(rec, x, atol=1e-10)
+    np.testing.assert_allclose(pywt.iswt(pywt.swt(x, name, level=6), name), x, atol=1e-10)
+
+
+def test_mad_sigma_of_white_noise():
+    """Donoho & Johnstone 1994: sigma = MAD / 0.6745 of the finest detail coefficients.
+
+    Difference of two independent N(0, s^2) records has standard deviation sqrt(2) s, and the level-1
+    SWT detail filter of an orthogonal wavelet has unit norm, so sigma(D1) = sqrt(2) s.
+    """
+    rng = np.random.default_rng(4)
+    s = 0.3
+    a, b = s * rng.standard_normal(50_000), s * rng.standard_normal(50_000)
+    w = wavelet_difference(a, b, DT)
+    assert MAD_NORMAL_CONSTANT == 0.6745
+    assert w.sigma[0] == pytest.approx(math.sqrt(2) * s, rel=0.02)
+    # every detail level of an orthogonal filter bank keeps the white-noise variance (unit-norm filters)
+    np.testing.assert_allclose(w.sigma[: w.level], math.sqrt(2) * s, rtol=0.06)
+    # the largest of 50 000 normal samples is about 4.4 sigma: below the 6-sigma significance
+    assert np.all(w.peak_sigma[: w.level] < 5.5) and w.fault_time_s is None
+
+
+def test_identical_currents_give_zero_difference():
+    rec = make_record(noise_i=NOISE, seed=3)
+    i = rec.current.samples
+    w = wavelet_difference(i, i, DT)
+    assert not w.energy_ratio.any() and not w.peak_sigma.any()
+    assert w.fault_time_s is None and np.isnan(w.first_time_s).all()
+    assert w.difference_map.shape == (w.level + 1, i.size)
+
+
+def test_time_of_a_single_sample_difference():
+    rng = np.random.default_rng(8)
+    a = 1e-3 * rng.standard_normal(8192)
+    b = a + 1e-3 * rng.standard_normal(8192) * 1e-3
+    b[5000] += 0.05
+    for method in ("swt", "dwt"):
+        w = wavelet_difference(a, b, DT, method=method, t0_s=-1e-6)
+        assert w.fault_time_s == pytest.approx(-1e-6 + 5000 * DT, abs=4 * DT), method
+        assert w.peak_sigma[0] > 100
+
+
+def _pair(**test_kw):
+    ref = make_record(amplitude_V=300e3, noise_v=NOISE, noise_i=NOISE, seed=1)
+    kw = dict(amplitude_V=600e3, noise_v=NOISE, noise_i=NOISE, seed=2)
+    kw.update(test_kw)
+    p = align_pair(ref, make_record(**kw))
+    return p
+
+
+def _levels(w, f_lo, f_hi):
+    """Detail rows whose whole band lies within [f_lo, f_hi]."""
+    b = w.band_Hz[: w.level]
+    return np.flatnonzero((b[:, 0] >= f_lo) & (b[:, 1] <= f_hi))
+
+
+@pytest.mark.parametrize("method", ["swt", "dwt"])
+def test_discharges_show_in_fine_levels_winding_change_in_coarse(method):
+    """15 ns discharge pulses (40 nC, about 14 noise sigma per sample in the current) against a 6 % change
+    of one branch inductance (its 420 kHz resonance moves by 3 %)."""
+    pulses = gaussian_pulses(PULSES_S, (40e-9,) * 3, width_s=15e-9)
+    quiet = _pair()
+    dis = _pair(extra_current=pulses)
+    wind = _pair(branches=FAULTY)
+    kw = dict(method=method)
+    wq, wd, ww = (wavelet_difference(p.ref_current_pu, p.test_current_pu, p.sample_interval_s,
+                                     t0_s=p.times_s[0], **kw) for p in (quiet, dis, wind))
+    fine = _levels(wd, 3e6, 50e6)  # D1-D4 at 100 MS/s
+    coarse = _levels(wd, 0.0, 800e3)  # D7, D8
+    assert fine.size == 4 and coarse.size == 2
+    # discharges: significant only in the fine levels, nothing structural in the coarse ones
+    assert wd.peak_sigma[fine].max() > 10
+    assert wd.peak_sigma[coarse].max() < 6
+    np.testing.assert_allclose(wd.energy_ratio[coarse], wq.energy_ratio[coarse], rtol=0.5)
+    # winding change: large and significant in the coarse levels, fine levels stay at noise
+    assert ww.peak_sigma[coarse].max() > 100
+    assert ww.energy_ratio[coarse].max() > 100 * wq.energy_ratio[coarse].max()
+    assert ww.peak_sigma[fine].max() < 6
+    # the fault instant is the first pulse (front starts 2 us into the reference record)
+    assert wd.fault_time_s == pytest.approx(2e-6 + PULSES_S[0], abs=50e-9)
+    assert wq.fault_time_s is None
+
+
+def test_level_choice_and_bands():
+    w = resolve_wavelet("db4")
+    assert resolve_level(20000, w, None) == DEFAULT_MAX_LEVEL
+    assert resolve_level(64, w, None) == pywt.dwt_max_level(64, 8) == 3
+    b = level_bands_Hz(3, 1e-8)
+    # detail level j covers fs/2^(j+1)..fs/2^j (dyadic filter bank), approximation 0..fs/2^(L+1)
+    np.testing.assert_allclose(b, [[25e6, 50e6], [12.5e6, 25e6], [6.25e6, 12.5e6], [0, 6.25e6]])
+    with pytest.warns(BoundaryEffectWarning, match="too deep"):
+        resolve_level(1000, w, 9)
+    with pytest.raises(ShotcheckError, match="at least 1"):
+        resolve_level(1000, w, -1)
+    with pytest.raises(ShotcheckError, match="at least 1"):
+        resolve_level(1000, w, 0)
+    with pytest.raises(ShotcheckError, match="too short"):
+        resolve_level(5, w, None)
+
+
+def test_deep_level_warns_through_the_public_function():
+    x = np.sin(np.arange(600) / 7.0)
+    with pytest.warns(BoundaryEffectWarning):
+        w = wavelet_difference(x, 1.01 * x, DT, level=8)
+    assert w.level == 8 and len(w.labels) == 9 and w.labels[-1] == "A8"
+
+
+def test_wavelet_names_and_options():
+    x = np.zeros(256)
+    with pytest.raises(ShotcheckError, match=r"'db44'.*Did you mean 'db4'.*pywt.wavelist\(kind='discrete'\)"):
+        wavelet_difference(x, x, DT, wavelet="db44")
+    with pytest.raises(ShotcheckError, match="not a discrete wavelet"):
+        wavelet_difference(x, x, DT, wavelet="morl")
+    with pytest.raises(ShotcheckError, match="Invalid value for 'mode'"):
+        wavelet_difference(x, x, DT, method="dwt", mode="periodic-ish")
+    with pytest.raises(ShotcheckError, match="Invalid value for 'method'"):
+        wavelet_difference(x, x, DT, method="cwt")
+    with pytest.raises(ShotcheckError, match="one length"):
+        wavelet_difference(x, x[:100], DT)
+    w = wavelet_difference(x, x, DT, wavelet=pywt.Wavelet("sym4"))
+    assert w.wavelet == "sym4"

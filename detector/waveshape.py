@@ -56,6 +56,7 @@ __all__ = [
     "evaluate_lightning",
     "evaluate_switching",
     "evaluate_waveshape",
+    "filter_residual",
     "test_voltage_factor",
 ]
 
@@ -611,16 +612,39 @@ def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, orig
     return DoubleExponential(float(a * p.peak), t1, t2, p.t0 + float(o) * scale * p.dt)
 
 
-def _test_voltage_curve(p: _Prepared, base_u: np.ndarray, i_end: int) -> np.ndarray:
-    """Return base curve + residual filtered with k(f) over ``[0, i_end)`` (FFT, detrended, zero padded)."""
-    r = p.u[:i_end] - base_u[:i_end]
+def filter_residual(residual_V: Any, sample_interval_s: float) -> np.ndarray:
+    """Filter a residual curve with the test voltage function k(f) of IEC 60060-1:2010.
+
+    The residual is detrended by the straight line through its end points and zero padded to at least
+    twice its length before the FFT, so that the filter does not wrap its end onto its start; the line
+    is added back unchanged (k(0) = 1 and k is even, so a straight line passes the filter as it is).
+
+    Parameters
+    ----------
+    residual_V : array_like
+        Recorded curve minus base curve [V], uniformly sampled.
+    sample_interval_s : float
+        Sample interval [s].
+
+    Returns
+    -------
+    numpy.ndarray
+        Filtered residual [V], same length.
+    """
+    r = np.asarray(residual_V, dtype=np.float64)
     m = r.size
+    if m == 0:
+        return r.copy()
     ramp = r[0] + (r[-1] - r[0]) * np.arange(m) / max(m - 1, 1)
     nfft = _fft.next_fast_len(2 * m, real=True)
     spec = _fft.rfft(r - ramp, nfft)
-    spec *= test_voltage_factor(_fft.rfftfreq(nfft, p.dt))
-    filtered = _fft.irfft(spec, nfft)[:m] + ramp  # k(0) = 1 and k is even: a ramp passes unchanged
-    return base_u[:i_end] + filtered
+    spec *= test_voltage_factor(_fft.rfftfreq(nfft, sample_interval_s))
+    return _fft.irfft(spec, nfft)[:m] + ramp
+
+
+def _test_voltage_curve(p: _Prepared, base_u: np.ndarray, i_end: int) -> np.ndarray:
+    """Return base curve + residual filtered with k(f) over ``[0, i_end)``."""
+    return base_u[:i_end] + filter_residual(p.u[:i_end] - base_u[:i_end], p.dt)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -22,6 +22,7 @@ from detector.waveshape import (
     evaluate_lightning,
     evaluate_switching,
     evaluate_waveshape,
+    filter_residual,
     test_voltage_factor,
 )
 
@@ -406,3 +407,19 @@ def test_offset_baseline_removed():
     assert ws.baseline_V == pytest.approx(3e3, rel=1e-6)
     assert ws.test_voltage_V == pytest.approx(ws0.test_voltage_V, rel=1e-6)
     assert ws.front_time_s == pytest.approx(ws0.front_time_s, rel=1e-6)
+
+
+def test_filter_residual_no_wraparound():
+    """k(f) filter of the residual: a straight line passes unchanged (k(0) = 1, k even; IEC 60060-1:2010
+    test voltage function) and an oscillation matches an independent time-domain convolution with the
+    filter's impulse response, up to both ends of the window. A circular FFT filter would turn the line
+    into a saw-tooth jump at the ends and fail here."""
+    dt = 1e-8
+    t = np.arange(3000) * dt
+    line = 2e3 - 1.5e3 * t / t[-1]
+    s = np.clip(t - 8e-6, 0.0, None)
+    osc = 4e3 * np.sin(2 * np.pi * 0.7e6 * s) * np.exp(-s / 2e-6) * (t > 8e-6)
+    out = filter_residual(line + osc, dt)
+    expected = line + _lowpass_k(osc, dt)
+    assert np.max(np.abs(out - expected)) < 5.0  # volts, on a 2 kV line + 4 kV oscillation
+    assert np.max(np.abs(filter_residual(line, dt) - line)) < 1e-6

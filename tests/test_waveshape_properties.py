@@ -84,3 +84,36 @@ def test_switching_scaling_and_polarity(scale, sign):
     assert b.time_to_peak_s == pytest.approx(a.time_to_peak_s, rel=1e-6)
     assert b.time_to_half_s == pytest.approx(a.time_to_half_s, rel=1e-6)
     assert b.test_voltage_V == pytest.approx(sign * scale * a.test_voltage_V, rel=1e-6)
+
+
+@settings(max_examples=40)
+@given(
+    form=st.sampled_from(["noise", "spike", "step", "sine", "chopped_early", "walk"]),
+    n=st.sampled_from([16, 40, 300, 3000]),
+    dt_exp=st.floats(-9.0, -5.0),
+    seed=st.integers(0, 2**16),
+)
+def test_any_input_gives_result_or_shotcheck_error(form, n, dt_exp, seed):
+    """Whatever the samples, the evaluation returns finite numbers or raises a ShotcheckError naming the
+    source; never another exception or a numpy warning (pytest turns warnings into errors)."""
+    from detector._validation import ShotcheckError
+
+    rng = np.random.default_rng(seed)
+    t = np.arange(n) * 10.0**dt_exp
+    k = np.arange(n)
+    v = {
+        "noise": lambda: rng.normal(0.0, 1.0, n),
+        "spike": lambda: np.where(k == rng.integers(0, n), 1e3, 0.0) + rng.normal(0.0, 1.0, n),
+        "step": lambda: np.where(k > n // 3, 5e4, 0.0),
+        "sine": lambda: 1e3 * np.sin(k * rng.uniform(0.01, 1.0)),
+        "chopped_early": lambda: np.where((k > n // 4) & (k < n // 4 + 3), 1e5, 0.0),
+        "walk": lambda: np.round(rng.normal(0.0, 1.0, n).cumsum()),
+    }[form]()
+    try:
+        ws = evaluate_lightning(t, v, source="fuzz.csv")
+    except ShotcheckError as e:
+        assert "fuzz.csv" in str(e) or "must" in str(e)
+        return
+    d = ws.to_dict()
+    for key in ("peak_kV", "test_voltage_kV", "front_time_us"):
+        assert np.isfinite(d[key])

@@ -272,3 +272,19 @@ def test_bad_simulation_arguments(case, kwargs, match):
     args.update(kwargs)
     with pytest.raises(ShotcheckError, match=match):
         simulate(w, g, **args)
+
+
+@FEW
+@given(n=st.integers(10, 120), alpha=st.floats(1, 30), k0=st.floats(0, 0.95), r_tot=st.floats(0, 3e4),
+       damping=st.sampled_from([0.0, 0.01, 0.3, 1.0]), arc=st.floats(0.01, 50), seed=st.integers(0, 99))
+def test_decomposition_stays_accurate_over_the_design_range(n, alpha, k0, r_tot, damping, arc, seed):
+    """Energy scaling keeps the eigenvector matrix well conditioned: V^-1 V = I and A V = V diag(lam) to
+    round-off, with and without a closed arc, over the range of designs the data set draws from."""
+    rng = np.random.default_rng(seed)
+    w = WindingDesign.from_totals(n, total_inductance_H=10 ** rng.uniform(-2.5, 0),
+                                  total_ground_capacitance_F=10 ** rng.uniform(-9.5, -8), alpha=alpha, k0=k0,
+                                  series_resistance_ohm=r_tot, damping=damping)
+    g = ImpulseGenerator(0.3e-6, 250.0, 600.0, 1e-9, 5e-6, 1.0)
+    a = int(rng.integers(0, n))
+    for closed in ((), (Breakdown(a, a + 1, 1.0, arc),), (Breakdown(a, None, 1.0, arc),)):
+        assert build_network(w, g, closed=closed).residual < 1e-11

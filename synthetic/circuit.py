@@ -307,16 +307,19 @@ def _design(winding: WindingDesign | None, T1: float, T2: float, kind: str, C1_F
         gen = _refine(winding, gen, T1, T2, kind, tol)
     from .simulate import _terminal_voltage
 
-    t = _measure_grid(T1, T2, kind)
-    v = _terminal_voltage(winding, gen, t)
+    grids, t = _measure_grid(T1, T2, kind)
+    v = _terminal_voltage(winding, gen, grids)
     _, _, pk = measure_front_tail(t, v, kind=kind)
     return dataclasses.replace(gen, charge_V=Vt / pk)
 
 
-def _measure_grid(T1: float, T2: float, kind: str) -> np.ndarray:
+def _measure_grid(T1: float, T2: float, kind: str) -> tuple[list[tuple[float, float, int]], np.ndarray]:
+    """Uniform grids (t0, dt, m) dense on the front and along the tail, and their concatenated times."""
     if kind == "switching":
-        return np.linspace(0.0, 4.0 * T2, 8001)
-    return np.concatenate((np.linspace(0.0, 4.0 * T1, 3001)[:-1], np.linspace(4.0 * T1, 4.0 * T2, 4001)))
+        grids = [(0.0, 4.0 * T2 / 8000, 8001)]
+    else:
+        grids = [(0.0, 4.0 * T1 / 3000, 3000), (4.0 * T1, (4.0 * T2 - 4.0 * T1) / 4000, 4001)]
+    return grids, np.concatenate([t0 + dt * np.arange(m) for t0, dt, m in grids])
 
 
 def _refine(winding: WindingDesign, gen: ImpulseGenerator, T1: float, T2: float, kind: str, tol: float
@@ -324,11 +327,11 @@ def _refine(winding: WindingDesign, gen: ImpulseGenerator, T1: float, T2: float,
     """Adjust log R_front, log R_tail by Broyden steps until the simulated T1, T2 match within ``tol``."""
     from .simulate import _terminal_voltage
 
-    t = _measure_grid(T1, T2, kind)
+    grids, t = _measure_grid(T1, T2, kind)
 
     def times(z: np.ndarray) -> np.ndarray:
         g = dataclasses.replace(gen, R_front_ohm=float(np.exp(z[0])), R_tail_ohm=float(np.exp(z[1])))
-        f, h, _ = measure_front_tail(t, _terminal_voltage(winding, g, t), kind=kind)
+        f, h, _ = measure_front_tail(t, _terminal_voltage(winding, g, grids), kind=kind)
         if not np.isfinite(h):  # tail still above half at the end of the grid: call it twice as long
             h = 2.0 * t[-1]
         if not (np.isfinite(f) and f > 0):

@@ -427,8 +427,12 @@ def _modal_uniform(lam: np.ndarray, coef: np.ndarray, s0: float, dt: float, m: i
     J = -(-m // B)
     P = np.exp(np.outer(lam, s0 + dt * np.arange(B)))
     Q = np.exp(np.outer(lam, dt * B * np.arange(J)))
-    out = np.real(np.matmul(coef[:, None, :] * Q.T[None, :, :], P))  # rows x J x B
-    return out.reshape(rows, J * B)[:, :m]
+    if rows <= 4:
+        out = np.real(np.matmul(coef[:, None, :] * Q.T[None, :, :], P))  # rows x J x B
+        return out.reshape(rows, J * B)[:, :m]
+    # many rows: form exp(lam t) once and use one real matrix product, Re(c E) = Re c Re E - Im c Im E
+    E = (Q[:, :, None] * P[:, None, :]).reshape(lam.size, J * B)[:, :m]
+    return np.concatenate((coef.real, -coef.imag), axis=1) @ np.concatenate((E.real, E.imag), axis=0)
 
 
 def _grid_values(lam: np.ndarray, coef: np.ndarray, t_s: float, dt: float, k_s: int, n: int) -> np.ndarray:
@@ -848,11 +852,11 @@ def max_stress(
 
 
 @single_threaded
-def _terminal_voltage(winding: WindingDesign | None, generator: ImpulseGenerator, times_s: np.ndarray
-                      ) -> np.ndarray:
-    """Healthy terminal voltage [V] at arbitrary times (used to design generators)."""
+def _terminal_voltage(winding: WindingDesign | None, generator: ImpulseGenerator,
+                      grids: Sequence[tuple[float, float, int]]) -> np.ndarray:
+    """Healthy terminal voltage [V] on uniform grids (t0, dt, m), concatenated (used to design generators)."""
     net = _network(winding, generator, None, ())
     x0 = np.zeros(net.nx)
     x0[net.node_state("gen")] = generator.charge_V
     coef = (net.modal_row(net.row_voltage(0)) * net.to_modal(x0))[None, :]
-    return _modal_at(net.lam, coef, np.asarray(times_s, dtype=float))[0]
+    return np.concatenate([_modal_uniform(net.lam, coef, t0, dt, m)[0] for t0, dt, m in grids])

@@ -136,7 +136,7 @@ def _second_difference_noise(samples: np.ndarray) -> NoiseEstimate:
 
 
 def _median3(x: np.ndarray) -> np.ndarray:
-    """Running median of three samples (same length; ends kept)."""
+    """Return the running median of three samples (same length; ends kept)."""
     if x.size < 3:
         return x.copy()
     a, b, c = x[:-2], x[1:-1], x[2:]
@@ -194,7 +194,7 @@ def _unit_front(voltage: np.ndarray) -> np.ndarray:
 
 
 def detect_pretrigger_samples(voltage: np.ndarray) -> int:
-    """Number of samples before the foot of the voltage front.
+    """Count the samples before the foot of the voltage front.
 
     Parameters
     ----------
@@ -497,18 +497,20 @@ def front_delay_s(ref_v: np.ndarray, test_v: np.ndarray, dt: float) -> float:
 
 
 def _periodic_extension(x: np.ndarray, n_pad: int, hold: int = 0) -> np.ndarray:
-    """Append ``n_pad`` samples so that the periodic extension of ``x`` is smooth.
+    """Append ``n_pad`` samples (last axis) so that the periodic extension of ``x`` is smooth.
 
-    The padding holds ``x[-1]`` for ``hold`` samples, blends to ``x[0]`` with a raised cosine, and holds
-    ``x[0]`` for the last ``hold`` samples (``hold`` is reduced if the padding is too short).
+    The padding holds ``x[..., -1]`` for ``hold`` samples, blends to ``x[..., 0]`` with a raised cosine,
+    and holds ``x[..., 0]`` for the last ``hold`` samples (``hold`` is reduced if the padding is short).
     """
     if n_pad <= 0:
         return x
     hold = max(0, min(hold, (n_pad - 8) // 2))
     n_blend = n_pad - 2 * hold
     k = np.arange(1, n_blend + 1) / (n_blend + 1)
-    blend = x[-1] + (x[0] - x[-1]) * 0.5 * (1.0 - np.cos(np.pi * k))
-    return np.concatenate((x, np.full(hold, x[-1]), blend, np.full(hold, x[0])))
+    first, last = x[..., :1], x[..., -1:]
+    blend = last + (first - last) * (0.5 * (1.0 - np.cos(np.pi * k)))
+    shape = x.shape[:-1] + (hold,)
+    return np.concatenate((x, np.broadcast_to(last, shape), blend, np.broadcast_to(first, shape)), axis=-1)
 
 
 def shift_fourier(x: np.ndarray, delay_s: float, dt: float) -> np.ndarray:
@@ -517,7 +519,7 @@ def shift_fourier(x: np.ndarray, delay_s: float, dt: float) -> np.ndarray:
     Parameters
     ----------
     x : array_like
-        Samples [any unit], 1-D.
+        Samples [any unit], 1-D, or 2-D to shift every row (last axis is time).
     delay_s : float
         Delay [s]; positive moves the content to later samples: ``y(t) = x(t - delay_s)``.
     dt : float
@@ -542,14 +544,14 @@ def shift_fourier(x: np.ndarray, delay_s: float, dt: float) -> np.ndarray:
     if delay_s == 0.0:
         return x.copy()
     shift = delay_s / dt
-    n = x.size
+    n = x.shape[-1]
     hold = int(math.ceil(abs(shift))) + 8
     n_fft = sfft.next_fast_len(n + max(2 * hold + 16, n // 8), real=True)
     xp = _periodic_extension(x, n_fft - n, hold)
-    spec = sfft.rfft(xp)
-    k = np.arange(spec.size)
+    spec = sfft.rfft(xp, axis=-1)
+    k = np.arange(spec.shape[-1])
     spec *= np.exp(-2j * np.pi * k * shift / n_fft)
-    return sfft.irfft(spec, n_fft)[:n]
+    return sfft.irfft(spec, n_fft, axis=-1)[..., :n]
 
 
 # --------------------------------------------------------------------------------------------------
@@ -627,6 +629,7 @@ class AlignedPair:
     warnings: tuple[str, ...]
 
     def __post_init__(self) -> None:
+        """Store the arrays as read-only float64."""
         for f in ("times_s", "test_times_s", "ref_voltage_pu", "test_voltage_pu", "ref_current_pu",
                   "test_current_pu"):
             a = np.asarray(getattr(self, f), dtype=np.float64)
@@ -744,8 +747,7 @@ def align_pair(
     frac = shift - k
     if frac != 0.0:
         # move the test content earlier by the fractional part: sample m then holds test(m + frac)
-        tv = shift_fourier(tv, -frac * dt, dt)
-        ti = shift_fourier(ti, -frac * dt, dt)
+        tv, ti = shift_fourier(np.stack((tv, ti)), -frac * dt, dt)
     m0 = max(0, -k + (1 if frac < 0 else 0))
     m1 = min(rv.size, tv.size - k - (1 if frac > 0 else 0))
     if m1 - m0 < 16:

@@ -178,7 +178,7 @@ def transfer_function(
     else:
         sigma = _second_difference_noise(v[-max(n // 5, 16):]).mad
     sigma = max(sigma if np.isfinite(sigma) else 0.0, noise_floor_rel * float(np.max(np.abs(v))))
-    noise = sigma * math.sqrt(float(w @ w))
+    noise = sigma * math.sqrt(float(np.einsum('i,i->', w, w)))
     vf = spec[0]
     valid = np.abs(vf) >= snr * noise
     valid[0] = False
@@ -245,11 +245,11 @@ def band_indices(ref_dB: np.ndarray, test_dB: np.ndarray, f_low_Hz: float = 0.0,
         rho = float("nan")
     else:
         da, db = a - a.mean(), b - b.mean()
-        den = math.sqrt(float(da @ da) * float(db @ db))
+        den = math.sqrt(float(np.einsum('i,i->', da, da)) * float(np.einsum('i,i->', db, db)))
         if den == 0.0:
             rho = 1.0 if np.array_equal(da, db) else float("nan")
         else:
-            rho = float(np.clip((da @ db) / den, -1.0, 1.0))
+            rho = float(np.clip(np.einsum('i,i->', da, db) / den, -1.0, 1.0))
     if np.isfinite(rho):
         r = min(R_MAX, -math.log10(max(1.0 - rho, 10.0**-R_MAX)))
     else:

@@ -23,7 +23,7 @@ import numpy as np
 import pywt
 
 from .._validation import ShotcheckError, check_option, check_range
-from ..preprocess import MAD_NORMAL_CONSTANT, _periodic_extension
+from ..preprocess import MAD_NORMAL_CONSTANT
 
 __all__ = [
     "DEFAULT_MAX_LEVEL",
@@ -256,8 +256,10 @@ def _dwt_centre_offsets(wavelet_name: str, level: int, mode: str) -> tuple[int, 
 
 
 def _dwt_rows(x2: np.ndarray, w: pywt.Wavelet, level: int, mode: str) -> tuple[list, np.ndarray]:
-    """DWT of the rows; the coefficient lists (D1..DL, AL) and each row mapped onto the n samples
-    (each sample takes the coefficient centred nearest to it)."""
+    """DWT of the rows: coefficient lists (D1..DL, AL) and each row mapped onto the n samples.
+
+    Each sample takes the coefficient centred nearest to it.
+    """
     n = x2.shape[1]
     coeffs = pywt.wavedec(x2, w, mode=mode, level=level, axis=-1)
     rows = [coeffs[k] for k in range(level, 0, -1)] + [coeffs[0]]
@@ -272,9 +274,11 @@ def _dwt_rows(x2: np.ndarray, w: pywt.Wavelet, level: int, mode: str) -> tuple[l
 
 
 def _first_event_times(dmap: np.ndarray, k_sigma: float, half_support: np.ndarray) -> np.ndarray:
-    """Per row: index of the largest value within one wavelet support after the first crossing of
-    ``k_sigma`` (-1 if none). The peak, not the crossing, marks the event: a strong event crosses the
-    threshold already at the edge of the wavelet's support."""
+    """Per row, index of the largest value within one wavelet support after the first crossing.
+
+    -1 where ``k_sigma`` is never crossed. The peak, not the crossing, marks the event: a strong event
+    crosses the threshold already at the edge of the wavelet's support.
+    """
     over = dmap > k_sigma
     first = np.argmax(over, axis=1)
     out = np.full(dmap.shape[0], -1, dtype=np.int64)
@@ -380,8 +384,8 @@ def wavelet_difference(
         rows, stretched = _dwt_rows(x2, w, lev, mode)
         dmap_raw = np.abs(stretched[1])
         counts = np.array([c.shape[-1] for c in rows])
-    ref_energy = np.array([float(c[0] @ c[0]) for c in rows])
-    dif_energy = np.array([float(c[1] @ c[1]) for c in rows])
+    ref_energy = np.array([np.einsum('i,i->', c[0], c[0]) for c in rows])  # no BLAS threads
+    dif_energy = np.array([np.einsum('i,i->', c[1], c[1]) for c in rows])
     ref_rms = np.sqrt(ref_energy / counts)
     # detail coefficients of noise have zero median: MAD = median(|d|) (Donoho & Johnstone 1994);
     # the approximation is centred on its median first

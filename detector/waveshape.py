@@ -704,7 +704,12 @@ def _recorder_warnings(p: _Prepared, tx_s: float, *, full_scale_V: float | None,
     amp = abs(p.peak)
     q = p.q
     if bits is not None and full_scale_V is not None:
-        q = full_scale_V / 2.0 ** bits
+        q = 2.0 * full_scale_V / 2.0 ** bits  # codes spread over -full_scale_V .. +full_scale_V
+        if p.q is not None:
+            steps = p.q / q
+            if steps < 0.99 or abs(steps - round(steps)) > 0.01 * steps:
+                w.append(f"the samples change in steps of {p.q:.4g} V, not in whole steps of "
+                         f"2 x full_scale_V / 2**bits = {q:.4g} V; check bits and full_scale_V")
     eff: float | None = None
     if q is not None and q > 0:
         eff = math.log2(amp / q) if amp > q else 0.0
@@ -720,6 +725,7 @@ def _recorder_warnings(p: _Prepared, tx_s: float, *, full_scale_V: float | None,
                  "(IEC 61083-1)")
     # clipping: many samples at the extreme code, few one step below (a smooth crest gives a ratio < 2.5)
     top = float(p.u.max())
+    q = p.q if p.q is not None else q  # the step seen in the samples is the one that tells clipping
     if q is not None and q > 0:
         n_top = int(np.count_nonzero(p.u >= top - 0.5 * q))
         n_next = int(np.count_nonzero((p.u < top - 0.5 * q) & (p.u >= top - 1.5 * q)))
@@ -736,13 +742,21 @@ def _recorder_warnings(p: _Prepared, tx_s: float, *, full_scale_V: float | None,
     return w, eff
 
 
-def _check_bits(bits: int | None, full_scale_V: float | None) -> None:
-    if bits is not None and (not isinstance(bits, int | np.integer) or not 1 <= int(bits) <= 32):
+def _check_bits(bits: int | None, full_scale_V: float | None,
+                specified_test_voltage_V: float | None = None) -> None:
+    if bits is not None and (isinstance(bits, bool) or not isinstance(bits, int | np.integer)
+                             or not 1 <= int(bits) <= 32):
         raise ShotcheckError(f"bits must be an integer from 1 to 32, got {bits!r}")
-    if full_scale_V is not None:
-        fsv = float(full_scale_V)
-        if not np.isfinite(fsv) or fsv <= 0:
-            raise ShotcheckError(f"full_scale_V must be a positive number of volts, got {full_scale_V!r}")
+    for name, val in (("full_scale_V", full_scale_V), ("specified_test_voltage_V", specified_test_voltage_V)):
+        if val is None:
+            continue
+        try:
+            x = float(val)
+        except (TypeError, ValueError):
+            x = float("nan")
+        if not np.isfinite(x) or (x <= 0 if name == "full_scale_V" else x == 0):
+            what = "a positive" if name == "full_scale_V" else "a non-zero"
+            raise ShotcheckError(f"{name} must be {what} number of volts, got {val!r}")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -918,7 +932,8 @@ def evaluate_lightning(
     specified_test_voltage_V : float, optional
         Specified test voltage [V] for the +/- 3 % check (compared by magnitude).
     full_scale_V : float, optional
-        Recorder full-scale range [V] (span from the lowest to the highest code).
+        Recorder full scale [V]: the codes span ``-full_scale_V .. +full_scale_V`` (as
+        ``synthetic.digitiser`` and ``meta['voltage_range_V']``), one step ``2 full_scale_V / 2**bits``.
     bits : int, optional
         Recorder resolution [bits].
     for_comparison : bool
@@ -935,7 +950,7 @@ def evaluate_lightning(
     RecordError
         No impulse, record too short, no pre-trigger, non-monotone front, non-uniform time.
     """
-    _check_bits(bits, full_scale_V)
+    _check_bits(bits, full_scale_V, specified_test_voltage_V)
     p = _prepare(times_s, voltage_V, source)
     return _evaluate_lightning(p, chopped, specified_test_voltage_V=specified_test_voltage_V,
                                full_scale_V=full_scale_V, bits=bits, for_comparison=for_comparison,
@@ -967,7 +982,7 @@ def evaluate_switching(
         ``test_voltage_V`` is the peak value; ``origin_s`` is the true origin (start of the fitted base
         curve); ``front_time_s``, ``overshoot_percent`` and ``virtual_origin_s`` are None.
     """
-    _check_bits(bits, full_scale_V)
+    _check_bits(bits, full_scale_V, specified_test_voltage_V)
     p = _prepare(times_s, voltage_V, source)
     return _evaluate_switching(p, specified_test_voltage_V=specified_test_voltage_V, full_scale_V=full_scale_V,
                                bits=bits, for_comparison=for_comparison, source=source)
@@ -995,7 +1010,8 @@ def evaluate_waveshape(
         None detects it: switching if ``meta['shot_kind']`` says so or the front time 1.67 (t90 - t30)
         exceeds 20 us, chopped if the voltage collapses after the crest.
     specified_test_voltage_V, full_scale_V, bits, for_comparison
-        As for :func:`evaluate_lightning`.
+        As for :func:`evaluate_lightning`; when neither ``bits`` nor ``full_scale_V`` is given,
+        ``meta['bits']`` and ``meta['voltage_range_V']`` are used if the record has both.
 
     Returns
     -------
@@ -1022,10 +1038,22 @@ def evaluate_waveshape(
         raise ShotcheckError(f"expected a Record, got {type(record).__name__}")
     if kind is not None:
         check_option("kind", kind, KINDS)
-    _check_bits(bits, full_scale_V)
+    _check_bits(bits, full_scale_V, specified_test_voltage_V)
     meta: Mapping[str, Any] = record.meta
     if kind is None:
         kind = _META_KIND.get(str(meta.get("shot_kind")))
+    if bits is None and full_scale_V is None and meta.get("bits") is not None \
+            and meta.get("voltage_range_V") is not None:
+        try:  # recorder settings stored with the record (synthetic.digitiser writes these keys)
+            bits, full_scale_V = int(meta["bits"]), float(meta["voltage_range_V"])
+        except (TypeError, ValueError):
+            raise RecordError(f"meta bits={meta['bits']!r}, voltage_range_V={meta['voltage_range_V']!r}; "
+                              "expected an integer and a number of volts", path=record.source,
+                              field="meta") from None
+        try:
+            _check_bits(bits, full_scale_V)
+        except ShotcheckError as e:
+            raise RecordError(f"recorder settings in meta: {e}", path=record.source, field="meta") from None
     src = record.source
     p = _prepare(record.times(), record.voltage.samples, src)
     if kind is None and p.front_s > _SWITCHING_FRONT_THRESHOLD_S:

@@ -73,11 +73,11 @@ def lightning_wave(tau1=68.22e-6, tau2=0.405e-6, amplitude=1e5, dt=1e-8, pre_s=2
 
 
 def quantise(v, full_scale, bits, rng=None, noise=0.0):
-    """Bipolar recorder: range [-full_scale/2, full_scale/2], step full_scale / 2**bits, clipped at the range."""
-    q = full_scale / 2**bits
+    """Bipolar recorder: codes over [-full_scale, full_scale], step 2 full_scale / 2**bits, clipped there."""
+    q = 2 * full_scale / 2**bits
     if rng is not None and noise:
         v = v + rng.normal(0.0, noise, v.size)
-    return np.clip(np.round(v / q) * q, -full_scale / 2, full_scale / 2 - q)
+    return np.clip(np.round(v / q) * q, -full_scale, full_scale - q)
 
 
 def record_of(t, v, **meta):
@@ -162,7 +162,7 @@ def test_analytic_lightning_shapes(t1_us, t2_us, sign):
 
 
 def test_noisy_12_bit_record(global_random_seed):
-    """1.2/50 us at 100 MS/s, 12 bits over a 250 kV span, noise 0.1 % of the peak (invented recorder).
+    """1.2/50 us at 100 MS/s, 12 bits over +/- 250 kV, noise 0.1 % of the peak (invented recorder).
 
     T1, T2 within 1 % of the analytic values and the test voltage within 0.5 % of the clean crest (no
     overshoot, so the test voltage is the crest of the smooth curve; IEC 60060-1:2010).
@@ -171,8 +171,8 @@ def test_noisy_12_bit_record(global_random_seed):
     tau1, tau2 = 68.22e-6, 0.405e-6  # Kuffel, Zaengl & Kuffel (recalled)
     t1, t2, _, peak = analytic_lightning(tau1, tau2)
     t, v = lightning_wave(tau1, tau2, -1.9e5, dt=1e-8, pre_s=20e-6, dur_s=180e-6)
-    vq = quantise(v, 4e5, 12, rng, noise=1.9e5 * 1e-3)
-    ws = evaluate_lightning(t, vq, bits=12, full_scale_V=4e5)
+    vq = quantise(v, 2.5e5, 12, rng, noise=1.9e5 * 1e-3)
+    ws = evaluate_lightning(t, vq, bits=12, full_scale_V=2.5e5)
     assert ws.front_time_s == pytest.approx(t1, rel=0.01)
     assert ws.time_to_half_s == pytest.approx(t2, rel=0.01)
     assert ws.test_voltage_V == pytest.approx(-1.9e5 * peak, rel=0.005)
@@ -195,7 +195,7 @@ def test_chopped_wave(chop_us, collapse_ns, sign, global_random_seed):
     t, v = lightning_wave(tau1, tau2, sign * 1.2e5, dur_s=30e-6)
     t_chop = o1 + chop_us * 1e-6
     v = v * np.clip(1.0 - (t - t_chop) / (collapse_ns * 1e-9), 0.0, 1.0)
-    v = quantise(v, 3e5, 12, rng, noise=100.0)
+    v = quantise(v, 1.5e5, 12, rng, noise=100.0)
     ws = evaluate_lightning(t, v)
     assert ws.kind == "lightning_chopped"
     assert ws.chopping_instant_s == pytest.approx(t_chop, abs=50e-9)
@@ -306,11 +306,11 @@ def test_low_sample_rate_warning():
 
 def test_eight_bit_warnings():
     t, v = lightning_wave(amplitude=1e5)
-    v8 = quantise(v, 2.2e5, 8)
-    for ws in (evaluate_lightning(t, v8), evaluate_lightning(t, v8, bits=8, full_scale_V=2.2e5)):
+    v8 = quantise(v, 1.1e5, 8)
+    for ws in (evaluate_lightning(t, v8), evaluate_lightning(t, v8, bits=8, full_scale_V=1.1e5)):
         assert any(w.startswith("fewer than 8 effective bits") for w in ws.warnings)  # IEC 61083-1
     # 10 bits: enough for IEC 61083-1 but below the usual 10 bits for compared records (common practice)
-    v10 = quantise(v, 2.2e5, 10)
+    v10 = quantise(v, 1.1e5, 10)
     ws = evaluate_lightning(t, v10)
     assert any(w.startswith("fewer than 10 bits") for w in ws.warnings)
     assert not any("fewer than" in w for w in evaluate_lightning(t, v10, for_comparison=False).warnings)
@@ -318,15 +318,15 @@ def test_eight_bit_warnings():
 
 def test_clipping_and_low_range_warnings():
     t, v = lightning_wave(amplitude=1e5)
-    vc = quantise(v, 1.8e5, 12)  # range top 90 kV < crest 96.4 kV
+    vc = quantise(v, 0.9e5, 12)  # range top 90 kV < crest 96.4 kV
     ws = evaluate_lightning(t, vc)
     assert any(w.startswith("clipping:") for w in ws.warnings)
-    ok = quantise(v, 2.2e5, 12)
+    ok = quantise(v, 1.1e5, 12)
     assert not any(w.startswith("clipping:") for w in evaluate_lightning(t, ok).warnings)
     # exact float repeats at the extreme also count
     assert any(w.startswith("clipping:") for w in evaluate_lightning(t, np.minimum(v, 9e4)).warnings)
     # peak below 20 % of full scale (IEC 61083-1)
-    ws = evaluate_lightning(t, quantise(v, 1.2e6, 14), bits=14, full_scale_V=1.2e6)
+    ws = evaluate_lightning(t, quantise(v, 6e5, 14), bits=14, full_scale_V=6e5)
     assert any("below 20 % of the full scale" in w for w in ws.warnings)
 
 
@@ -423,3 +423,19 @@ def test_filter_residual_no_wraparound():
     expected = line + _lowpass_k(osc, dt)
     assert np.max(np.abs(out - expected)) < 5.0  # volts, on a 2 kV line + 4 kV oscillation
     assert np.max(np.abs(filter_residual(line, dt) - line)) < 1e-6
+
+
+def test_recorder_settings_from_meta_and_step_check():
+    """``meta['bits']``/``meta['voltage_range_V']`` (written by synthetic.digitiser) are used when the caller
+    gives none; a full scale that does not match the samples' step is reported."""
+    t, v = lightning_wave(amplitude=1e5)
+    v10 = quantise(v, 1.1e5, 10)  # 8.8 effective bits: below the usual 10 for compared records
+    ws = evaluate_waveshape(record_of(t, v10, bits=10, voltage_range_V=1.1e5))
+    assert ws.effective_bits == pytest.approx(math.log2(v.max() / (2 * 1.1e5 / 2**10)), abs=0.01)
+    assert any(w.startswith("fewer than 10 bits") for w in ws.warnings)
+    ws = evaluate_lightning(t, v10, bits=10, full_scale_V=2.2e5)  # twice the real range
+    assert any("not in whole steps" in w for w in ws.warnings)
+    with pytest.raises(RecordError, match=r"lab7/shot12.cfg: meta: recorder settings in meta: bits must be"):
+        evaluate_waveshape(record_of(t, v10, bits=0, voltage_range_V=1.1e5))
+    with pytest.raises(ShotcheckError, match=r"specified_test_voltage_V must be a non-zero number"):
+        evaluate_lightning(t, v10, specified_test_voltage_V="high")

@@ -299,3 +299,23 @@ def test_recorded_gaps_equal_node_differences(case):
     np.testing.assert_allclose(r.terminal_voltage_V, nodes[:, 0], atol=1e-9 * nodes.max())
     with pytest.raises(ShotcheckError, match="record_gaps"):
         simulate(w, g, t_end_s=1e-6, dt_s=1e-8, record_gaps=((3, 400),))
+
+
+def test_state_and_pulses_carry_across_a_topology_change(case):
+    """A 'chop' through 1e15 ohm changes the topology but (to 1e-9 A) not the physics: the pulse-only part of
+    the shot must be unchanged when a discharge pulse is in flight at the switching instant (its remaining
+    current continues in the new topology)."""
+    w, g = case
+    train = DischargeTrain(node=6, inception_V=2e5, charge_C=50e-9, width_s=200e-9, max_pulses=2,
+                           repetition_s=1e-6)
+    kw = {"t_end_s": 10e-6, "dt_s": 1e-8, "record_gaps": ((6, None),)}
+    plain = simulate(w, g, faults=(train,), **kw)
+    t_pulse = plain.fault_time_s
+    chop = ChoppingGap(t_pulse + 50e-9, arc_resistance_ohm=1e15, lead_inductance_H=0.0)
+    switched = simulate(w, g, faults=(train,), chop=chop, **kw)
+    assert [e[1] for e in switched.events] == ["discharge node 6", "chop", "discharge node 6"]
+    for field in ("neutral_current_A", "gap_voltages_V"):
+        d_plain = getattr(plain, field) - getattr(simulate(w, g, **kw), field)
+        d_switched = getattr(switched, field) - getattr(simulate(w, g, chop=chop, **kw), field)
+        assert np.abs(d_plain).max() > 0
+        np.testing.assert_allclose(d_switched, d_plain, rtol=0, atol=1e-6 * np.abs(d_plain).max())

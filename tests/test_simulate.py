@@ -112,21 +112,25 @@ def test_stored_energy_never_grows_without_source(n, alpha, k0, seed, neutral):
     assert e[-1] < e[0]
 
 
-def test_discharge_pulses_inject_their_charge():
+@FEW
+@given(charge=st.floats(1e-12, 50e-9), width=st.floats(5e-9, 200e-9), node=st.integers(0, 20),
+       n_pulses=st.integers(1, 6))
+def test_discharge_pulses_inject_their_charge(charge, width, node, n_pulses):
     """With no DC path to ground (isolated neutral, no tail resistor) the charge of the pulses ends up spread
     over all ground capacitances: the final common voltage rises by Q_total / C_total (charge conservation)."""
     w = WindingDesign.from_totals(20, total_inductance_H=0.05, total_ground_capacitance_F=2e-9, alpha=5.0,
                                   neutral="isolated", series_resistance_ohm=2e4, damping=0.3)
     g = ImpulseGenerator(2e-9, 100.0, np.inf, 0.5e-9, 0.0, 1e4)
-    train = DischargeTrain(node=3, inception_V=2e3, charge_C=1e-9, width_s=20e-9, max_pulses=5, repetition_s=2e-6)
+    train = DischargeTrain(node=node, inception_V=2e3, charge_C=charge, width_s=width, max_pulses=n_pulses,
+                           repetition_s=2e-6)
     a = simulate(w, g, t_end_s=2e-3, dt_s=1e-6, record_nodes=True)
     b = simulate(w, g, t_end_s=2e-3, dt_s=1e-6, record_nodes=True, faults=(train,))
-    pulses = [e for e in b.events if e[1] == "discharge node 3"]
-    assert len(pulses) == 5
+    pulses = [e for e in b.events if e[1] == f"discharge node {node}"]
+    assert len(pulses) == n_pulses
     np.testing.assert_allclose(np.diff([p[0] for p in pulses]), 2e-6, rtol=1e-9)
     c_total = w.Cg_F.sum() + g.C1_F + g.C_load_F
     rise = b.node_voltages_V[-1] - a.node_voltages_V[-1]
-    np.testing.assert_allclose(rise, 5 * 1e-9 / c_total, rtol=1e-6)
+    np.testing.assert_allclose(rise, n_pulses * charge / c_total, rtol=1e-6)
     assert b.fault_time_s == pytest.approx(pulses[0][0])
 
 

@@ -170,12 +170,14 @@ class WaveletDifference:
     band_Hz : numpy.ndarray
         (L + 1, 2) approximate band of each row [Hz].
     ref_energy : numpy.ndarray
-        Sum of squared reference coefficients per row [(unit of the input)^2].
+        Sum of squared reference coefficients per row of the discrete (orthogonal with
+        ``mode="periodization"``) transform [(unit of the input)^2].
     energy_ratio : numpy.ndarray
-        Sum of squared coefficient differences over ``ref_energy`` [1].
+        Sum of squared coefficient differences over ``ref_energy``, same transform [1].
     sigma : numpy.ndarray
-        Noise standard deviation of the coefficient differences per row: MAD / 0.6745, not below
-        ``sigma_floor_rel`` times the RMS reference coefficient [unit of the input].
+        Noise standard deviation of the coefficient differences per row: MAD / 0.6745 of the discrete
+        coefficients, not below ``sigma_floor_rel`` times their RMS reference coefficient
+        [unit of the input]; it applies to the stationary coefficients too (same filters).
     peak_sigma : numpy.ndarray
         Largest ``|difference| / sigma`` per row [1].
     first_time_s : numpy.ndarray
@@ -224,21 +226,21 @@ def _taper_pad(x: np.ndarray, n_pad: int) -> np.ndarray:
     return np.concatenate((x, down, np.zeros(n_pad - 2 * m), up))
 
 
-def _swt_rows(x2: np.ndarray, w: pywt.Wavelet, level: int) -> list[np.ndarray]:
-    """SWT of the rows of ``x2`` (2, n): list of (2, n) arrays for D1..DL then AL, centred in time."""
-    n = x2.shape[1]
+def _swt_rows(x: np.ndarray, w: pywt.Wavelet, level: int) -> np.ndarray:
+    """SWT of ``x`` (n,): array (L+1, n) of D1..DL then AL, each centred in time."""
+    n = x.shape[-1]
     block = 2**level
     offs = _swt_centre_offsets(w.name, level)
     n_pad = int(math.ceil((n + max(abs(o) for o in offs) + 32) / block) * block)
-    xp = np.stack([_taper_pad(r, n_pad - n) for r in x2])
-    coeffs = pywt.swt(xp, w, level=level, trim_approx=True, axis=-1)
+    coeffs = pywt.swt(_taper_pad(x, n_pad - n), w, level=level, trim_approx=True)
     rows = [coeffs[k] for k in range(level, 0, -1)] + [coeffs[0]]
-    out = []
-    for c, off in zip(rows, offs, strict=True):  # loop over levels: index k holds the coefficient
-        if off >= 0:                              # centred on sample k (the transform is periodic)
-            out.append(c[:, off : off + n])
+    out = np.empty((level + 1, n))
+    for j, (c, off) in enumerate(zip(rows, offs, strict=True)):  # loop over levels: index k holds
+        if off >= 0:                                              # the coefficient centred on sample k
+            out[j] = c[off : off + n]                             # (the transform is periodic)
         else:
-            out.append(np.concatenate((c[:, n_pad + off :], c[:, : n + off]), axis=1))
+            out[j, :-off] = c[n_pad + off :]
+            out[j, -off:] = c[: n + off]
     return out
 
 
@@ -255,22 +257,24 @@ def _dwt_centre_offsets(wavelet_name: str, level: int, mode: str) -> tuple[int, 
     return tuple(p - int(np.argmax(np.abs(r))) * st for r, st in zip(rows, steps, strict=True))
 
 
-def _dwt_rows(x2: np.ndarray, w: pywt.Wavelet, level: int, mode: str) -> tuple[list, np.ndarray]:
-    """DWT of the rows: coefficient lists (D1..DL, AL) and each row mapped onto the n samples.
+def _dwt_rows(x2: np.ndarray, w: pywt.Wavelet, level: int, mode: str) -> list[np.ndarray]:
+    """DWT of the rows of ``x2``: coefficient arrays (rows, m_j) for D1..DL, then AL."""
+    with warnings.catch_warnings():  # resolve_level has already warned in our own words
+        warnings.filterwarnings("ignore", message="Level value of", category=UserWarning)
+        coeffs = pywt.wavedec(x2, w, mode=mode, level=level, axis=-1)
+    return [coeffs[k] for k in range(level, 0, -1)] + [coeffs[0]]
 
-    Each sample takes the coefficient centred nearest to it.
-    """
-    n = x2.shape[1]
-    coeffs = pywt.wavedec(x2, w, mode=mode, level=level, axis=-1)
-    rows = [coeffs[k] for k in range(level, 0, -1)] + [coeffs[0]]
+
+def _dwt_map(rows: list[np.ndarray], w: pywt.Wavelet, level: int, mode: str, n: int) -> np.ndarray:
+    """Map DWT rows (1-D each) onto n samples: each sample takes the coefficient centred nearest to it."""
     offs = _dwt_centre_offsets(w.name, level, mode)
     m = np.arange(n)
-    stretched = np.empty((2, level + 1, n))
+    out = np.empty((level + 1, n))
     for j, (c, off) in enumerate(zip(rows, offs, strict=True)):  # loop over levels
         step = 2 ** min(j + 1, level)
-        k = np.clip(np.rint((m - off) / step).astype(np.int64), 0, c.shape[-1] - 1)
-        stretched[:, j, :] = c[:, k]
-    return rows, stretched
+        k = np.clip((m - off + step // 2) // step, 0, c.shape[-1] - 1)
+        out[j] = c[k]
+    return out
 
 
 def _first_event_times(dmap: np.ndarray, k_sigma: float, half_support: np.ndarray) -> np.ndarray:
@@ -312,8 +316,9 @@ def wavelet_difference(
     wavelet : str or pywt.Wavelet
         Discrete wavelet (``pywt.wavelist(kind="discrete")``).
     mode : str
-        Signal extension mode of the discrete transform (``pywt.Modes.modes``); the stationary transform
-        is periodic and pads the record with a smooth blend between its end values instead.
+        Signal extension mode of the discrete transform (``pywt.Modes.modes``), which gives the per-level
+        energies and noise for both methods; the stationary transform is periodic and pads the record
+        with zeros reached through short tapers instead.
     level : int, optional
         Number of levels; default ``min(8, pywt.dwt_max_level(n, filter length))``.
     method : {'swt', 'dwt'}
@@ -373,24 +378,21 @@ def wavelet_difference(
     w = resolve_wavelet(wavelet)
     lev = resolve_level(r.size, w, level)
     n = r.size
-    x2 = np.stack((r, t - r))  # the transform is linear: transform the difference directly
+    x2 = np.stack((r, t - r))  # the transforms are linear: transform the difference directly
+    # energies and noise from the orthogonal DWT (Parseval: the rows' energies add up to the signal's)
+    rows = _dwt_rows(x2, w, lev, mode)
     if method == "swt":
-        rows = _swt_rows(x2, w, lev)
-        dmap_raw = np.empty((lev + 1, n))
-        for j, c in enumerate(rows):
-            np.abs(c[1], out=dmap_raw[j])
-        counts = np.full(lev + 1, n)
+        dmap_raw = np.abs(_swt_rows(x2[1], w, lev))
     else:
-        rows, stretched = _dwt_rows(x2, w, lev, mode)
-        dmap_raw = np.abs(stretched[1])
-        counts = np.array([c.shape[-1] for c in rows])
-    ref_energy = np.array([np.einsum('i,i->', c[0], c[0]) for c in rows])  # no BLAS threads
-    dif_energy = np.array([np.einsum('i,i->', c[1], c[1]) for c in rows])
+        dmap_raw = np.abs(_dwt_map([c[1] for c in rows], w, lev, mode, n))
+    counts = np.array([c.shape[-1] for c in rows])
+    ref_energy = np.array([np.einsum("i,i->", c[0], c[0]) for c in rows])  # einsum: no BLAS threads
+    dif_energy = np.array([np.einsum("i,i->", c[1], c[1]) for c in rows])
     ref_rms = np.sqrt(ref_energy / counts)
     # detail coefficients of noise have zero median: MAD = median(|d|) (Donoho & Johnstone 1994);
-    # the approximation is centred on its median first
-    abs_d = dmap_raw if method == "swt" else [np.abs(c[1]) for c in rows]
-    mad = np.array([np.median(abs_d[j]) for j in range(lev)]
+    # the approximation is centred on its median first. Stationary coefficients of a level have the
+    # same distribution as the decimated ones (same filters), so one sigma serves both.
+    mad = np.array([np.median(np.abs(c[1])) for c in rows[:-1]]
                    + [np.median(np.abs(rows[-1][1] - np.median(rows[-1][1])))]) / MAD_NORMAL_CONSTANT
     sigma = np.maximum(mad, sigma_floor_rel * ref_rms)
     sigma = np.where(sigma > 0.0, sigma, np.finfo(float).tiny)

@@ -716,20 +716,20 @@ def _recorder_warnings(p: _Prepared, tx_s: float, *, full_scale_V: float | None,
     elif bits is not None:
         eff = float(bits)
     if eff is not None and eff < 8.0:
-        w.append(f"fewer than 8 effective bits ({eff:.1f}) over the impulse; IEC 61083-1 asks for at least 8")
+        w.append(f"fewer than 8 effective bits ({eff:.2f}) over the impulse; IEC 61083-1 asks for at least 8")
     elif eff is not None and for_comparison and eff < 10.0:
-        w.append(f"fewer than 10 bits ({eff:.1f}) over the impulse for a record that will be compared "
+        w.append(f"fewer than 10 bits ({eff:.2f}) over the impulse for a record that will be compared "
                  "(common practice: 10 bits or more)")
     if full_scale_V is not None and amp < 0.2 * full_scale_V:
         w.append(f"peak {amp / 1e3:.4g} kV is below 20 % of the full scale {full_scale_V / 1e3:.4g} kV "
                  "(IEC 61083-1)")
-    # clipping: many samples at the extreme code, few one step below (a smooth crest gives a ratio < 2.5)
+    # clipping: many samples at the extreme code, few per code in the three below (a smooth crest: ratio < 2)
     top = float(p.u.max())
     q = p.q if p.q is not None else q  # the step seen in the samples is the one that tells clipping
     if q is not None and q > 0:
         n_top = int(np.count_nonzero(p.u >= top - 0.5 * q))
-        n_next = int(np.count_nonzero((p.u < top - 0.5 * q) & (p.u >= top - 1.5 * q)))
-        clipped = n_top >= 5 and n_top > 4 * max(n_next, 1)
+        n_next3 = int(np.count_nonzero((p.u < top - 0.5 * q) & (p.u >= top - 3.5 * q)))
+        clipped = n_top >= 5 and n_top > 4 * max(n_next3 / 3.0, 1.0)
     else:
         n_top = int(np.count_nonzero(p.u == top))
         clipped = n_top >= 3

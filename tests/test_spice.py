@@ -110,3 +110,16 @@ def test_discharge_pulses_match_ngspice(circuit):
     err = np.abs(d_model - d_spice).max() / np.abs(d_model).max()
     print(f"pulse-only neutral current: deviation from ngspice {err:.2e} of its peak")
     assert err < 0.02  # ngspice (1 ns step)
+
+
+def test_isolated_neutral_with_magnetising_branch_matches_ngspice():
+    """Isolated neutral and a magnetising inductance at the terminal: terminal and neutral-end voltages within
+    1 % of their peaks (ngspice)."""
+    w = WindingDesign.from_totals(20, total_inductance_H=0.1, total_ground_capacitance_F=3e-9, alpha=12.0,
+                                  k0=0.5, neutral="isolated", magnetising_H=0.05, name="isolated-20")
+    g = design_generator(w, test_voltage_V=100e3, refine=False)
+    r = simulate(w, g, t_end_s=T_END, dt_s=DT, record_gaps=((20, None),))
+    t, vals = run_ngspice(w.to_spice(g, t_end_s=T_END, dt_s=DT), ["v(n0)", "v(n20)"])
+    for name, ours in (("v(n0)", r.terminal_voltage_V), ("v(n20)", r.gap_voltages_V[:, 0])):
+        theirs = np.interp(r.times_s, t, vals[name])
+        assert np.abs(theirs - ours).max() < 0.01 * np.abs(ours).max(), name  # ngspice, 1 % of peak

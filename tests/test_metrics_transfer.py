@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -171,12 +172,18 @@ def test_band_indices_by_hand():
     assert math.isnan(band_indices(a[:2], b[:2]).rho)  # too few points
 
 
+@functools.cache
+def _healthy_and_faulty():
+    v = double_exponential(T, 1.0, 2e-6)
+    f, h = transfer_function(v, current_exact(T, 1.0, 2e-6), DT, pretrigger_samples=200)
+    _, h2 = transfer_function(v, current_exact(T, 1.0, 2e-6, FAULTY), DT, pretrigger_samples=200)
+    return f, h, h2
+
+
 @settings(max_examples=15)  # deterministic profile from conftest.py
 @given(st.floats(min_value=-1.0, max_value=1.0))
 def test_level_offset_leaves_correlation_unchanged(log_gain):
-    v = double_exponential(T, 1.0, 2e-6)
-    f, h = transfer_function(v, current_exact(T, 1.0, 2e-6), DT, pretrigger_samples=200)
-    f2, h2 = transfer_function(v, current_exact(T, 1.0, 2e-6, FAULTY), DT, pretrigger_samples=200)
+    f, h, h2 = _healthy_and_faulty()
     base = compare_transfer(h, h2, f)
     g = 10.0**log_gain
     c = compare_transfer(h, g * h2, f)
@@ -193,12 +200,17 @@ def _indices_from_records(ref, test):
     return compare_transfer(r.H_S, t.H_S, r.frequency_Hz)
 
 
+@functools.cache
+def _scaling_base():
+    ref = make_record(amplitude_V=1.0, noise_v=1e-3, noise_i=1e-3, seed=1, n=8000)
+    test = make_record(amplitude_V=2.0, noise_v=1e-3, noise_i=1e-3, seed=2, n=8000, branches=FAULTY)
+    return ref, test, _indices_from_records(ref, test)
+
+
 @settings(max_examples=12)  # deterministic profile from conftest.py
 @given(st.floats(min_value=-3.0, max_value=4.0))
 def test_scaling_both_records_leaves_indices_unchanged(log_level):
-    ref = make_record(amplitude_V=1.0, noise_v=1e-3, noise_i=1e-3, seed=1, n=8000)
-    test = make_record(amplitude_V=2.0, noise_v=1e-3, noise_i=1e-3, seed=2, n=8000, branches=FAULTY)
-    base = _indices_from_records(ref, test)
+    ref, test, base = _scaling_base()
     a = 10.0**log_level
 
     def scaled(r):

@@ -14,6 +14,7 @@ tuples out, SI units (per unit for normalised records).
 from .timedomain import TimeDomainMetrics, time_domain_metrics, voltage_collapse
 from .transfer import (
     DLT911_BANDS_HZ,
+    R_MAX,
     TransferComparison,
     TransferFunction,
     compare_transfer,
@@ -23,6 +24,7 @@ from .wavelet import BoundaryEffectWarning, WaveletDifference, wavelet_differenc
 
 __all__ = [
     "DLT911_BANDS_HZ",
+    "R_MAX",
     "BoundaryEffectWarning",
     "TimeDomainMetrics",
     "TransferComparison",

@@ -169,26 +169,28 @@ class Network:
         self.nx = self.nv + self.nb
         self._node_pos = {name: i for i, name in enumerate(node_names)}
         self._branch_pos = {name: i for i, name in enumerate(branch_names)}
+        # energy coordinates xi = T x with T = blockdiag(Lc^T, Ll^T), C = Lc Lc^T, Lb = Ll Ll^T; there
+        # A_e = [[-D1, -K], [K^T, -D2]], D1 = Lc^-1 G Lc^-T, D2 = Ll^-1 R Ll^-T (symmetric), K = Lc^-1 P Ll^-T,
+        # assembled with that exact structure (skew coupling, symmetric losses)
         Lc = np.linalg.cholesky(C)
-        Cinv = np.linalg.inv(C)
-        A = np.zeros((self.nx, self.nx))
-        A[: self.nv, : self.nv] = -Cinv @ G
+        Lci = sla.solve_triangular(Lc, np.eye(self.nv), lower=True)
+        D1 = Lci @ G @ Lci.T
+        Ae = np.zeros((self.nx, self.nx))
+        Ae[: self.nv, : self.nv] = -0.5 * (D1 + D1.T)
         if self.nb:
             Ll = np.linalg.cholesky(Lb)
-            Linv = np.linalg.inv(Lb)
-            A[: self.nv, self.nv:] = -Cinv @ P
-            A[self.nv:, : self.nv] = Linv @ P.T
-            A[self.nv:, self.nv:] = -Linv @ Rb
+            Lli = sla.solve_triangular(Ll, np.eye(self.nb), lower=True)
+            K = Lci @ P @ Lli.T
+            D2 = Lli @ Rb @ Lli.T
+            Ae[: self.nv, self.nv:] = -K
+            Ae[self.nv:, : self.nv] = K.T
+            Ae[self.nv:, self.nv:] = -0.5 * (D2 + D2.T)
         else:
-            Ll = np.zeros((0, 0))
-        self.A = A
-        # energy coordinates xi = T x, T = blockdiag(Lc^T, Ll^T)
+            Ll = Lli = np.zeros((0, 0))
         T = sla.block_diag(Lc.T, Ll.T)
-        Tinv = sla.block_diag(sla.solve_triangular(Lc.T, np.eye(self.nv), lower=False),
-                              sla.solve_triangular(Ll.T, np.eye(self.nb), lower=False) if self.nb
-                              else np.zeros((0, 0)))
-        Ae = T @ A @ Tinv
-        # remove round-off asymmetry of the exact structure J - D
+        Tinv = sla.block_diag(Lci.T, Lli.T)
+        self.A = Tinv @ Ae @ T
+        Cinv = Lci.T @ Lci
         lam, V = sla.eig(Ae, overwrite_a=False, check_finite=False)
         W = np.linalg.solve(V, np.eye(self.nx))
         scale = max(np.abs(Ae).max(), 1e-300)

@@ -323,3 +323,19 @@ def test_state_and_pulses_carry_across_a_topology_change(case):
         d_switched = getattr(switched, field) - getattr(simulate(w, g, chop=chop, **kw), field)
         assert np.abs(d_plain).max() > 0
         np.testing.assert_allclose(d_switched, d_plain, rtol=0, atol=1e-6 * np.abs(d_plain).max())
+
+
+def test_state_matrix_is_the_nodal_equations(case):
+    """C v' = -G v - P i, L i' = P^T v - R i: the energy-scaled assembly gives back these equations, and a
+    lossless network has purely imaginary modes."""
+    w, g = case
+    net = build_network(w, g, chop=ChoppingGap(1e-6, 1.0, 1e-6), closed=(Breakdown(4, 9, 1.0, 0.3),))
+    nv = net.nv
+    ref = np.block([[-np.linalg.solve(net.C, net.G), -np.linalg.solve(net.C, net.P)],
+                    [np.linalg.solve(net.Lb, net.P.T), -np.linalg.solve(net.Lb, net.Rb)]])
+    np.testing.assert_allclose(net.A, ref, rtol=1e-9, atol=1e-12 * np.abs(ref).max())
+    assert net.branch_names[-1] == "gap" and nv == w.n_nodes + 1
+    lossless = WindingDesign.from_totals(15, total_inductance_H=0.05, total_ground_capacitance_F=3e-9, alpha=9.0,
+                                         k0=0.7, series_resistance_ohm=0.0, damping=0.0, neutral="isolated")
+    lam = build_network(lossless, None).lam
+    assert np.abs(lam.real).max() < 1e-10 * np.abs(lam).max()

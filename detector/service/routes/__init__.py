@@ -1,0 +1,1 @@
+"""Routers of the service, one module per resource."""

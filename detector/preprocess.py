@@ -72,6 +72,8 @@ RESAMPLE_METHODS = {
 MAX_RESAMPLE_DENOMINATOR = 1000
 #: Samples at the extreme value in a row from which a channel counts as clipped.
 CLIP_RUN_SAMPLES = 3
+#: A clipped channel holds its extreme value this many times longer than the two codes below it.
+CLIP_NEAR_RATIO = 3
 
 
 # --------------------------------------------------------------------------------------------------
@@ -247,20 +249,33 @@ def clipping_warning(samples: np.ndarray, label: str, *, unit: str = "") -> str 
     -----
     A digitiser driven beyond its range returns its full-scale code; a run of at least
     ``CLIP_RUN_SAMPLES`` samples equal to the maximum (or minimum) of the channel is taken as clipping
-    (common practice).
+    (common practice) if the channel also spends more than ``CLIP_NEAR_RATIO`` times as many samples at
+    that value as within the two quantisation steps below it. The second condition keeps the flat
+    crest of a coarsely quantised record (8 bits), which spends comparable times at its top code and
+    the codes just below, from counting.
     """
     x = np.asarray(samples, dtype=np.float64)
-    for value, name in ((x.max(), "maximum"), (x.min(), "minimum")):
+    d = np.abs(np.diff(x))
+    nz = d[d > 0.0]
+    lsb = float(nz.min()) if nz.size else 0.0  # the quantisation step of a digitised record
+    for value, name, sign in ((x.max(), "maximum", 1.0), (x.min(), "minimum", -1.0)):
         if value == 0.0:
             continue
-        at = np.concatenate(([0], (x == value).astype(np.int8), [0]))
+        on = x == value
+        at = np.concatenate(([0], on.astype(np.int8), [0]))
         edges = np.flatnonzero(np.diff(at))
-        runs = edges[1::2] - edges[::2]
-        if runs.size and runs.max() >= CLIP_RUN_SAMPLES:
+        run = int((edges[1::2] - edges[::2]).max())
+        if run < CLIP_RUN_SAMPLES:
+            continue
+        # a smooth crest spends about as long within the two codes below its top as at the top; a
+        # clipped signal sits at the limit far longer than it takes to pass the codes below it
+        gap = sign * (value - x)
+        n_near = int(np.count_nonzero((gap > 0.0) & (gap <= 2.0 * lsb)))
+        if int(on.sum()) > CLIP_NEAR_RATIO * n_near:
             return (
-                f"{label} looks clipped: {int(runs.max())} samples in a row at its {name} {value:.6g} {unit}"
-                "; the recorder range was probably exceeded, differences near the peak are not reliable"
-            ).replace("  ", " ")
+                f"{label} looks clipped: {run} samples in a row at its {name} {value:.6g} {unit}".rstrip()
+                + "; the recorder range was probably exceeded, differences near the peak are not reliable"
+            )
     return None
 
 

@@ -264,6 +264,20 @@ def test_warning_current_clipping():
     assert clipping_warning(ref.current.samples, "x") is None
 
 
+def test_quantised_crest_is_not_clipping():
+    """An 8-bit record (IEC 61083-1 minimum resolution for approved systems, recalled) has a flat crest
+    many samples long at its top code; it is not clipping, a signal held at 60 % of its peak is."""
+    rec = make_record(n=6000, noise_v=2e-3, seed=5)
+    v = rec.voltage.samples
+    lsb = 2 * 600e3 / 256  # +-600 kV range, 8 bits
+    q = np.round(v / lsb) * lsb
+    top = np.flatnonzero(q == q.max())
+    assert top.size >= 3  # the flat crest exists
+    assert clipping_warning(q, "v", unit="V") is None
+    clipped = np.minimum(q, np.round(0.6 * q.max() / lsb) * lsb)
+    assert "looks clipped" in clipping_warning(clipped, "v", unit="V")
+
+
 def test_warning_short_pretrigger():
     ref = make_record(amplitude_V=300e3, noise_v=5e-4, seed=1)
     test = make_record(amplitude_V=600e3, noise_v=5e-4, seed=2, pretrigger_s=0.15e-6)

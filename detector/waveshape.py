@@ -651,14 +651,25 @@ def _test_voltage_curve(p: _Prepared, base_u: np.ndarray, i_end: int) -> np.ndar
 # Chopping
 # ---------------------------------------------------------------------------------------------
 def _find_collapse(p: _Prepared) -> int | None:
-    """Index where the smoothed curve starts to fall by more than half the peak within 0.5 us."""
+    """Index where a collapse starts: the smoothed curve, at 10 % of the peak or more, falls below half
+    its value within 0.5 us and stays low (mean over the next 1 us below 30 % of that value), so that a
+    decaying tail or an oscillation riding on it is not taken for a chop."""
     m = max(2, int(round(0.5e-6 / p.dt)))
     y = p.uf
+    n = y.size
     start = max(p.ipk - m, 0)
-    if start + m >= y.size:
+    if start + m >= n:
         return None
-    drop = y[start: y.size - m] - y[start + m:]
-    c = np.flatnonzero(drop > 0.5 * p.peak)
+    y0 = y[start: n - m]
+    cand = (y0 >= 0.1 * p.peak) & (y0 - y[start + m:] > 0.5 * y0)
+    if not cand.any():
+        return None
+    j = np.arange(start, n - m)
+    csum = np.concatenate(([0.0], np.cumsum(y)))
+    a = j + m
+    b = np.minimum(j + 3 * m, n)
+    after = (csum[b] - csum[a]) / np.maximum(b - a, 1)
+    c = np.flatnonzero(cand & (after < 0.3 * y0))
     return None if c.size == 0 else start + int(c[0])
 
 
@@ -805,6 +816,7 @@ def _evaluate_lightning(p: _Prepared, chopped: bool | None, *, specified_test_vo
     base = _fit_base(p, i_lo, i_hi, tau1, tau2, o1 - 0.1 * front, source)
     times = p.t0 + np.arange(n) * p.dt
     base_u = base(times)
+    _fit_quality_warning(warnings, p, base_u, i_lo, i_hi)
     tv = _test_voltage_curve(p, base_u, i_end)
     itv = int(np.argmax(tv))
     ut = float(tv[itv])
@@ -852,6 +864,14 @@ def _evaluate_lightning(p: _Prepared, chopped: bool | None, *, specified_test_vo
         tolerance=tol, within_tolerance=all(c.passed for c in tol), warnings=tuple(warnings))
 
 
+def _fit_quality_warning(warnings: list[str], p: _Prepared, base_u: np.ndarray, i_lo: int, i_hi: int) -> None:
+    """Warn when the record departs from a double exponential over the fit window (a collapse, a fault)."""
+    rms = float(np.sqrt(np.mean((p.u[i_lo:i_hi] - base_u[i_lo:i_hi]) ** 2)))
+    if rms > 0.05 * p.peak:
+        warnings.append(f"the record departs from a double-exponential impulse (base-curve residual "
+                        f"{100 * rms / p.peak:.1f} % rms of the peak): the parameters are uncertain")
+
+
 def _polarity_warning(warnings: list[str], sign: float, spec: float | None) -> None:
     if spec is not None and spec != 0 and math.copysign(1.0, spec) != sign:
         warnings.append(f"specified test voltage {spec / 1e3:.4g} kV has the opposite polarity of the record")
@@ -878,6 +898,7 @@ def _evaluate_switching(p: _Prepared, *, specified_test_voltage_V: float | None,
     i_lo = max(int(math.floor(a20)), 0)
     i_hi = n if a40 is None else int(math.ceil(a40)) + 1
     base = _fit_base(p, i_lo, i_hi, tau1, tau2, origin0, source)
+    _fit_quality_warning(warnings, p, base(p.t0 + np.arange(n) * p.dt), i_lo, i_hi)
     tab_s = tab * p.dt
     t2_us = None
     t2_s = None

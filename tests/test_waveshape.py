@@ -439,3 +439,21 @@ def test_recorder_settings_from_meta_and_step_check():
         evaluate_waveshape(record_of(t, v10, bits=0, voltage_range_V=1.1e5))
     with pytest.raises(ShotcheckError, match=r"specified_test_voltage_V must be a non-zero number"):
         evaluate_lightning(t, v10, specified_test_voltage_V="high")
+
+
+def test_tail_oscillation_is_not_a_chop_and_low_level_chop_is():
+    """A 1 MHz oscillation of 10 % of the peak riding on the tail is no collapse; a gap firing late at a
+    low voltage (after a fault pulled the wave down) is one, and its instant is still found within 50 ns
+    (70 %/10 % construction, IEC 60060-1:2010, recalled)."""
+    t, v = lightning_wave(amplitude=1e5, dur_s=120e-6)
+    s = np.clip(t - 30e-6, 0.0, None)
+    ws = evaluate_lightning(t, v + 1e4 * np.sin(2 * np.pi * 1e6 * s) * np.exp(-s / 5e-6) * (t > 30e-6))
+    assert ws.kind == "lightning_full"
+    assert ws.time_to_half_s == pytest.approx(analytic_lightning(68.22e-6, 0.405e-6)[1], rel=0.02)
+    # a fault at 8 us drags the voltage down to about a quarter, the gap fires at 14 us
+    sag = np.where(t > 8e-6, 0.25 + 0.75 * np.exp(-np.clip(t - 8e-6, 0, None) / 1e-6), 1.0)
+    vf = v * sag * np.clip(1.0 - (t - 14e-6) / 100e-9, 0.0, 1.0)
+    ws = evaluate_lightning(t, vf)
+    assert ws.kind == "lightning_chopped"
+    assert ws.chopping_instant_s == pytest.approx(14e-6, abs=50e-9)
+    assert any(w.startswith("the record departs from a double-exponential") for w in ws.warnings)

@@ -25,6 +25,7 @@ time 0 on the record's own axis.
 from __future__ import annotations
 
 import dataclasses
+import functools
 from collections.abc import Mapping
 from typing import Any
 
@@ -161,7 +162,7 @@ def band_limit(x: np.ndarray, fine_interval_s: float, bandwidth_Hz: float | None
     Parameters
     ----------
     x : numpy.ndarray
-        Samples on the fine grid, starting from rest [V or A].
+        Samples on the fine grid, starting from rest [V or A]; 2-D arrays are filtered along axis 0.
     fine_interval_s : float
         Interval of the fine grid [s].
     bandwidth_Hz : float or None
@@ -187,8 +188,14 @@ def band_limit(x: np.ndarray, fine_interval_s: float, bandwidth_Hz: float | None
             f"simulated waveform (time step {fine_interval_s:g} s); simulate with a time step below "
             f"{MAX_BANDWIDTH_FRACTION_OF_NYQUIST / (2 * bandwidth_Hz):g} s or lower the bandwidth"
         )
-    sos = signal.bessel(FILTER_ORDER, bandwidth_Hz, btype="low", norm="mag", output="sos", fs=fs)
-    return signal.sosfilt(sos, x)
+    return signal.sosfilt(_bessel_sos(float(bandwidth_Hz), fs), x, axis=0)
+
+
+@functools.lru_cache(maxsize=64)
+def _bessel_sos(bandwidth_Hz: float, fs_Hz: float) -> np.ndarray:
+    sos = signal.bessel(FILTER_ORDER, bandwidth_Hz, btype="low", norm="mag", output="sos", fs=fs_Hz)
+    sos.flags.writeable = False
+    return sos
 
 
 def _check_waveforms(times_s: Any, voltage_V: Any, current_A: Any) -> tuple[np.ndarray, ...]:
@@ -277,7 +284,7 @@ def digitise_waveforms(
     rec_t = np.arange(n_samples) * dt
     sim_t = rec_t - trigger_time_s
 
-    vi = np.stack([band_limit(v, fine_dt, dg.bandwidth_Hz), band_limit(i, fine_dt, dg.bandwidth_Hz)], axis=1)
+    vi = band_limit(np.stack([v, i], axis=1), fine_dt, dg.bandwidth_Hz)
     # before the first simulated instant the network is at rest: zero
     spline = interpolate.CubicSpline(t, vi, axis=0, bc_type="not-a-knot", extrapolate=False)
     analog = spline(np.clip(sim_t, t[0], t[-1]))

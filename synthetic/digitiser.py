@@ -194,7 +194,6 @@ def band_limit(x: np.ndarray, fine_interval_s: float, bandwidth_Hz: float | None
 @functools.lru_cache(maxsize=64)
 def _bessel_sos(bandwidth_Hz: float, fs_Hz: float) -> np.ndarray:
     sos = signal.bessel(FILTER_ORDER, bandwidth_Hz, btype="low", norm="mag", output="sos", fs=fs_Hz)
-    sos.flags.writeable = False
     return sos
 
 

@@ -19,8 +19,25 @@ Method (lightning impulse, IEC 60060-1:2010 clause 7 and annex B, as recalled)
 4. The extreme value comes from the lightly smoothed recorded curve; the relative overshoot is
    ``beta = (extreme - base peak) / extreme``.
 
+Chopped lightning impulse: a collapse is a fall of the (5-sample smoothed) curve, from 10 % of the peak or
+more, to below half its value within 0.5 us, after which it stays low. The voltage at chopping is the
+largest value in the 0.5 us before the collapse's 50 % point; the instant of chopping is where the line
+through the collapse's 70 % and 10 % points meets that voltage (IEC 60060-1:2010, from memory). The fit and
+the test voltage curve use the part before the collapse; T2 does not apply.
+
+Switching impulse (IEC 60060-1:2010 clause 8, from memory): test voltage = peak of the smoothed curve;
+time to peak ``Tp = K (t90 - t30)`` with ``K = 2.42 - 3.08e-3 T_AB + 1.51e-4 T2`` (T_AB = t90 - t30 and
+T2 in us); T2 from the true origin, taken as the start of the fitted double exponential.
+
+Recorder adequacy (IEC 61083-1, recalled): sample rate at least 30/Tx for the front (Tx = t90 - t30),
+at least 8 effective bits over the impulse (10 for records to be compared, common practice), peak at least
+20 % of full scale, no clipping, and a pre-trigger of at least 20 samples (common practice).
+
 Times returned (virtual origin, chopping instant) are on the input's own time axis; intervals
 (front time, time to half-value, time to chopping, time to peak) are durations.
+
+The signal helpers live in ``detector._waveshape_signal``, the base-curve fit and the k(f) filter in
+``detector._waveshape_fit``.
 
 Examples
 --------
@@ -41,11 +58,26 @@ from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
-from scipy import fft as _fft
-from scipy import optimize, signal
 
-from ._validation import RecordError, ShotcheckError, check_finite_1d, check_option
-from .record import MIN_SAMPLES, Record
+from ._validation import RecordError, ShotcheckError, check_option
+from ._waveshape_fit import (
+    DoubleExponential,
+    _fit_base,
+    _test_voltage_curve,
+    filter_residual,
+    test_voltage_factor,
+)
+from ._waveshape_signal import (
+    _check_monotone_front,
+    _chopping,
+    _error,
+    _find_collapse,
+    _first_fall,
+    _last_rise,
+    _prepare,
+    _Prepared,
+)
+from .record import Record
 
 __all__ = [
     "KINDS",
@@ -80,72 +112,6 @@ MAX_OVERSHOOT_PERCENT = 10.0
 _SWITCHING_FRONT_THRESHOLD_S = 20e-6
 #: Minimum samples before the virtual origin for a baseline and noise estimate (common practice).
 _MIN_PRETRIGGER_SAMPLES = 20
-#: Largest fit sample count; the tail is thinned beyond this (weights keep the time integral).
-_MAX_FIT_POINTS = 1500
-
-
-# ---------------------------------------------------------------------------------------------
-# Small public building blocks
-# ---------------------------------------------------------------------------------------------
-def test_voltage_factor(frequency_Hz: Any) -> np.ndarray:
-    """Test voltage function k(f) of IEC 60060-1:2010 (lightning impulses with overshoot).
-
-    Parameters
-    ----------
-    frequency_Hz : array_like
-        Frequency [Hz]; the sign is ignored.
-
-    Returns
-    -------
-    numpy.ndarray
-        ``k = 1 / (1 + 2.2 f^2)`` with ``f`` in MHz (dimensionless, 1 at 0 Hz).
-    """
-    f_MHz = np.asarray(frequency_Hz, dtype=np.float64) * 1e-6
-    return 1.0 / (1.0 + 2.2 * f_MHz * f_MHz)
-
-
-test_voltage_factor.__test__ = False  # type: ignore[attr-defined]  # not a pytest test despite its name
-
-
-@dataclasses.dataclass(frozen=True)
-class DoubleExponential:
-    """Double-exponential impulse ``A (exp(-(t-t0)/tau1) - exp(-(t-t0)/tau2))`` for ``t >= t0``, else 0.
-
-    Parameters
-    ----------
-    amplitude_V : float
-        A [V]; its sign is the polarity.
-    tau1_s, tau2_s : float
-        Tail and front time constants [s], ``tau1_s > tau2_s > 0``.
-    origin_s : float
-        Start time t0 [s].
-    """
-
-    amplitude_V: float
-    tau1_s: float
-    tau2_s: float
-    origin_s: float
-
-    def __post_init__(self) -> None:
-        """Store plain floats."""
-        for name in ("amplitude_V", "tau1_s", "tau2_s", "origin_s"):
-            object.__setattr__(self, name, float(getattr(self, name)))
-
-    def __call__(self, times_s: Any) -> np.ndarray:
-        """Evaluate the curve at ``times_s`` [s]; returns volts."""
-        s = np.clip(np.asarray(times_s, dtype=np.float64) - self.origin_s, 0.0, None)
-        return self.amplitude_V * (np.exp(-s / self.tau1_s) - np.exp(-s / self.tau2_s))
-
-    @property
-    def peak_time_s(self) -> float:
-        """Instant of the crest [s], on the same axis as ``origin_s``."""
-        t1, t2 = self.tau1_s, self.tau2_s
-        return self.origin_s + math.log(t1 / t2) * t1 * t2 / (t1 - t2)
-
-    @property
-    def peak_V(self) -> float:
-        """Crest value [V] (signed)."""
-        return float(self(self.peak_time_s))
 
 
 @dataclasses.dataclass(frozen=True)
@@ -341,365 +307,6 @@ def check_tolerances(
         out.append(_check("test_voltage_kV", abs(float(test_voltage_V)),
                           spec * (1 - TEST_VOLTAGE_TOLERANCE), spec * (1 + TEST_VOLTAGE_TOLERANCE)))
     return tuple(out)
-
-
-# ---------------------------------------------------------------------------------------------
-# Crossing helpers (fractional sample indices, linear interpolation)
-# ---------------------------------------------------------------------------------------------
-def _last_rise(y: np.ndarray, level: float, stop: int) -> float | None:
-    """Last upward crossing of ``level`` by ``y[:stop + 1]``."""
-    seg = y[: stop + 1]
-    c = np.flatnonzero((seg[:-1] < level) & (seg[1:] >= level))
-    if c.size == 0:
-        return None
-    i = int(c[-1])
-    return i + (level - y[i]) / (y[i + 1] - y[i])
-
-
-def _first_rise(y: np.ndarray, level: float, stop: int) -> float | None:
-    seg = y[: stop + 1]
-    c = np.flatnonzero((seg[:-1] < level) & (seg[1:] >= level))
-    if c.size == 0:
-        return None
-    i = int(c[0])
-    return i + (level - y[i]) / (y[i + 1] - y[i])
-
-
-def _first_fall(y: np.ndarray, level: float, start: int) -> float | None:
-    """First downward crossing of ``level`` by ``y[start:]``."""
-    seg = y[start:]
-    c = np.flatnonzero((seg[:-1] >= level) & (seg[1:] < level))
-    if c.size == 0:
-        return None
-    i = start + int(c[0])
-    return i + (y[i] - level) / (y[i] - y[i + 1])
-
-
-def _fall_at(y: np.ndarray, i: int, level: float) -> float:
-    """Fractional index where ``y`` falls through ``level`` between samples ``i`` and ``i + 1``."""
-    if i < 0 or i + 1 >= y.size or not y[i] > y[i + 1]:
-        return float(max(i, 0))
-    return i + min(max((y[i] - level) / (y[i] - y[i + 1]), 0.0), 1.0)
-
-
-def _interp(y: np.ndarray, x: float) -> float:
-    return float(np.interp(x, np.arange(y.size), y))
-
-
-# ---------------------------------------------------------------------------------------------
-# Preparation: validation, baseline, polarity, noise, quantisation, smoothing
-# ---------------------------------------------------------------------------------------------
-@dataclasses.dataclass
-class _Prepared:
-    t0: float  # time of the first sample [s]
-    dt: float
-    sign: float
-    baseline: float
-    u: np.ndarray  # sign * (v - baseline): impulse made positive
-    us: np.ndarray  # lightly smoothed u (cubic, about 10 % of t90 - t30)
-    uf: np.ndarray  # u smoothed over 5 samples only (for the collapse of chopped waves)
-    sigma: float  # noise standard deviation estimate [V]
-    q: float | None  # quantisation step [V] if the samples are quantised
-    n_pre: int  # samples before the start of the wave
-    ipk: int  # index of the smoothed extreme
-    peak: float  # smoothed extreme (positive)
-    front_s: float  # crude 1.67 (t90 - t30) [s]
-    warnings: list[str]
-
-
-def _error(source: str | None, msg: str, field: str = "voltage") -> RecordError:
-    return RecordError(msg, path=source, field=field)
-
-
-def _smooth(u: np.ndarray, window: int) -> np.ndarray:
-    """Savitzky-Golay smoothing (quadratic over 5 samples, cubic above), edges held at the end values."""
-    window = max(5, window | 1)
-    if window > u.size:
-        window = u.size if u.size % 2 else u.size - 1
-    if window <= 5:
-        return signal.savgol_filter(u, 5, 2, mode="nearest")
-    if window <= 63:
-        return signal.savgol_filter(u, window, 3, mode="nearest")
-    half = window // 2  # long windows (switching impulses): overlap-add convolution is much quicker
-    padded = np.pad(u, half, mode="edge")
-    return signal.oaconvolve(padded, signal.savgol_coeffs(window, 3), mode="valid")
-
-
-def _quantisation_step(v: np.ndarray) -> float | None:
-    """Step of the sample values if they are quantised, else None (continuous values)."""
-    vals = np.unique(v)
-    if vals.size < 3:
-        return None
-    span = vals[-1] - vals[0]
-    d = np.diff(vals)
-    d = d[d > 1e-9 * span]
-    if d.size < 2:
-        return None
-    q = float(d.min())
-    ratio = d / q
-    frac = np.abs(ratio - np.round(ratio))
-    # quantised: every gap between distinct values is a whole number of steps (continuous values give
-    # fractional parts spread over 0-0.5)
-    if np.median(frac) < 0.02 and np.percentile(frac, 90) < 0.1:
-        return q
-    return None
-
-
-def _prepare(times_s: Any, voltage_V: Any, source: str | None) -> _Prepared:
-    t = check_finite_1d("time", times_s, min_len=MIN_SAMPLES, path=source)
-    v = check_finite_1d("voltage", voltage_V, min_len=MIN_SAMPLES, path=source)
-    if t.size != v.size:
-        raise _error(source, f"{v.size} voltage samples but {t.size} time stamps; expected one time per sample",
-                     "time")
-    n = v.size
-    dt = (t[-1] - t[0]) / (n - 1)
-    d = np.diff(t)
-    if not dt > 0 or (np.abs(d - dt) > 1e-3 * dt).any():
-        raise _error(source, "time stamps must be strictly increasing and uniform (resample first)", "time")
-    span = float(v.max() - v.min())
-    if span == 0.0:
-        raise _error(source, f"no impulse: the voltage is constant at {v[0]:.6g} V; expected a lightning "
-                     "or switching impulse")
-    dv = np.diff(v)
-    sigma = float(1.4826 * np.median(np.abs(dv - np.median(dv))) / math.sqrt(2.0))
-    # polarity from the larger excursion from the first samples; if those already sit far from zero the
-    # record may start on the impulse itself, so take zero as the reference (caught below as no front)
-    b0 = float(np.median(v[:8]))
-    if abs(b0) > 0.25 * span:
-        b0 = 0.0
-    dev = v - b0
-    iext = int(np.argmax(np.abs(dev)))
-    sign = 1.0 if dev[iext] > 0 else -1.0
-    u0 = sign * dev
-    amp0 = float(u0[iext])
-    if amp0 <= 10.0 * sigma:
-        raise _error(source, f"no impulse found: the largest excursion ({amp0:.3g} V) is only "
-                     f"{amp0 / sigma:.1f} times the noise level ({sigma:.3g} V); expected an impulse well above "
-                     "the noise")
-    us0 = _smooth(u0, 5)
-    ipk0 = int(np.argmax(us0))
-    pk0 = float(us0[ipk0])
-    i10 = _first_rise(us0, 0.1 * pk0, ipk0)
-    i90 = _first_rise(us0, 0.9 * pk0, ipk0)
-    if i10 is None or i90 is None:
-        raise _error(source, "the record starts on or after the impulse's front (no rise through 10 % and 90 % "
-                     "of the peak); expected a pre-trigger before the front")
-    # the wave starts well before its 10 % point: leave half the 10-90 % rise as a margin
-    n_pre = int(math.floor(i10 - 0.5 * (i90 - i10))) - 1
-    warnings: list[str] = []
-    if n_pre >= 1:
-        baseline = float(np.mean(v[:n_pre]))
-    else:
-        n_pre = 0
-        baseline = 0.0
-        warnings.append("no pre-trigger before the front: the baseline is taken as 0 V")
-    u = sign * (v - baseline)
-    # crude front time to size the smoothing window (about 10 % of t90 - t30, at least 5 samples)
-    us1 = _smooth(u, 5)
-    uf = _smooth(u, int(round(20e-9 / dt))) if 20e-9 / dt > 5 else us1  # about 20 ns for collapses
-    ipk1 = int(np.argmax(us1))
-    pk1 = float(us1[ipk1])
-    a = _last_rise(us1, 0.3 * pk1, ipk1)
-    b = _last_rise(us1, 0.9 * pk1, ipk1)
-    if a is None or b is None or ipk1 >= n - 2:
-        if ipk1 >= n - 2:
-            raise _error(source, "record too short: it ends before the crest of the impulse; expected the "
-                         "crest and part of the tail")
-        raise _error(source, "the record starts on or after the impulse's front; expected a pre-trigger")
-    tab = max(b - a, 1e-3)
-    w = int(round(0.1 * tab))
-    us = _smooth(u, w) if w > 5 else us1
-    ipk = int(np.argmax(us))
-    if ipk >= n - 2:
-        raise _error(source, "record too short: it ends before the crest of the impulse; expected the crest "
-                     "and part of the tail")
-    return _Prepared(t0=float(t[0]), dt=float(dt), sign=sign, baseline=baseline, u=u, us=us, uf=uf, sigma=sigma,
-                     q=_quantisation_step(v), n_pre=n_pre, ipk=ipk, peak=float(us[ipk]),
-                     front_s=1.67 * tab * dt, warnings=warnings)
-
-
-def _check_monotone_front(p: _Prepared, y: np.ndarray, peak: float, stop: int, limit: float,
-                          source: str | None) -> None:
-    """Raise if ``y`` falls back by more than ``limit`` x ``peak`` between its 30 % and 90 % points."""
-    a = _first_rise(y, 0.3 * peak, stop)
-    b = _last_rise(y, 0.9 * peak, stop)
-    if a is None or b is None:
-        return
-    seg = y[int(a): int(math.ceil(b)) + 1]
-    if seg.size < 2:
-        return
-    drop = np.maximum.accumulate(seg) - seg
-    k = int(np.argmax(drop))
-    if drop[k] > limit * peak + 3 * p.sigma:
-        tk = p.t0 + (int(a) + k) * p.dt
-        raise _error(source, f"non-monotone front: the voltage falls back by {100 * drop[k] / peak:.0f} % of "
-                     f"the peak at t = {tk * 1e6:.3f} us between the 30 % and 90 % points; expected a single "
-                     "rising front")
-
-
-# ---------------------------------------------------------------------------------------------
-# Base curve fit
-# ---------------------------------------------------------------------------------------------
-def _shape_peak(tau1: float, tau2: float) -> float:
-    tp = math.log(tau1 / tau2) * tau1 * tau2 / (tau1 - tau2)
-    return math.exp(-tp / tau1) - math.exp(-tp / tau2)
-
-
-def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, origin: float,
-              source: str | None) -> DoubleExponential:
-    """Fit the double exponential to ``p.u[i_lo:i_hi]``; start values in samples. Returns it in SI."""
-    # every sample up to a few front times past the crest (thinned if that alone is too many), the tail
-    # thinned evenly; weights sqrt(stride) keep the sum over samples close to a time integral
-    dense_end = min(i_hi, max(p.ipk + int(6 * p.front_s / p.dt) + 1, i_lo + 1))
-    h_step = max(1, int(math.ceil((dense_end - i_lo) / (_MAX_FIT_POINTS // 2))))
-    head = np.arange(i_lo, dense_end, h_step)
-    room = max(_MAX_FIT_POINTS - head.size, 100)
-    t_step = max(h_step, int(math.ceil((i_hi - head[-1] - 1) / room)))
-    tail = np.arange(head[-1] + t_step, i_hi, t_step)
-    idx = np.concatenate([head, tail])
-    wts = np.concatenate([np.full(head.size, math.sqrt(h_step)), np.full(tail.size, math.sqrt(t_step))])
-    scale = max(p.front_s / p.dt, 1.0)  # time unit of the fit: one front time, in samples
-    x = idx / scale
-    y = p.u[idx] / p.peak
-    failed = RecordError("the base-curve fit failed; expected an impulse of double-exponential shape "
-                         "(a front, a crest and a decaying tail)", path=source, field="voltage")
-    try:
-        x0 = np.array([1.0 / _shape_peak(tau1, tau2), math.log(tau1 / scale), math.log(tau2 / scale),
-                       origin / scale])
-    except (ValueError, ZeroDivisionError, OverflowError):
-        raise failed from None
-
-    def taus(par: np.ndarray) -> tuple[float, float]:
-        return math.exp(min(max(par[1], -300.0), 300.0)), math.exp(min(max(par[2], -300.0), 300.0))
-
-    def model(par: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        s = np.clip(x - par[3], 0.0, None)
-        t1, t2 = taus(par)
-        return s, np.exp(-s / t1), np.exp(-s / t2)
-
-    def fun(par: np.ndarray) -> np.ndarray:
-        _, e1, e2 = model(par)
-        return wts * (par[0] * (e1 - e2) - y)
-
-    def jac(par: np.ndarray) -> np.ndarray:
-        s, e1, e2 = model(par)
-        t1, t2 = taus(par)
-        on = s > 0
-        j = np.empty((s.size, 4))
-        j[:, 0] = e1 - e2
-        j[:, 1] = par[0] * e1 * s / t1
-        j[:, 2] = -par[0] * e2 * s / t2
-        j[:, 3] = np.where(on, par[0] * (e1 / t1 - e2 / t2), 0.0)
-        return j * wts[:, None]
-
-    f_scale = max(3.0 * p.sigma / p.peak, 0.005)
-    # unbounded: the log time constants keep them positive, and trf without bounds is much quicker
-    if not np.all(np.isfinite(x0)):
-        raise failed
-    try:
-        with np.errstate(all="ignore"):  # overflow to inf / 0 * inf = nan on wild trial steps is rejected
-            res = optimize.least_squares(fun, x0, jac=jac, loss="soft_l1", f_scale=f_scale, x_scale="jac",
-                                         xtol=1e-9, ftol=1e-9, gtol=1e-9, max_nfev=200)
-    except (ValueError, OverflowError, FloatingPointError, np.linalg.LinAlgError):
-        raise failed from None
-    if not np.all(np.isfinite(res.x)) or not 1e-3 < abs(res.x[0]) < 1e3 or not -300 < res.x[1] < 300 \
-            or not -300 < res.x[2] < 300:
-        raise failed
-    a, l1, l2, o = res.x
-    t1, t2 = math.exp(l1) * scale * p.dt, math.exp(l2) * scale * p.dt
-    if t2 > t1:  # the same curve with the constants swapped
-        t1, t2, a = t2, t1, -a
-    return DoubleExponential(float(a * p.peak), t1, t2, p.t0 + float(o) * scale * p.dt)
-
-
-def filter_residual(residual_V: Any, sample_interval_s: float) -> np.ndarray:
-    """Filter a residual curve with the test voltage function k(f) of IEC 60060-1:2010.
-
-    The residual is detrended by the straight line through its end points and zero padded to at least
-    twice its length before the FFT, so that the filter does not wrap its end onto its start; the line
-    is added back unchanged (k(0) = 1 and k is even, so a straight line passes the filter as it is).
-
-    Parameters
-    ----------
-    residual_V : array_like
-        Recorded curve minus base curve [V], uniformly sampled.
-    sample_interval_s : float
-        Sample interval [s].
-
-    Returns
-    -------
-    numpy.ndarray
-        Filtered residual [V], same length.
-    """
-    r = np.asarray(residual_V, dtype=np.float64)
-    m = r.size
-    if m == 0:
-        return r.copy()
-    ramp = r[0] + (r[-1] - r[0]) * np.arange(m) / max(m - 1, 1)
-    nfft = _fft.next_fast_len(2 * m, real=True)
-    spec = _fft.rfft(r - ramp, nfft)
-    spec *= test_voltage_factor(_fft.rfftfreq(nfft, sample_interval_s))
-    return _fft.irfft(spec, nfft)[:m] + ramp
-
-
-def _test_voltage_curve(p: _Prepared, base_u: np.ndarray, i_end: int) -> np.ndarray:
-    """Return base curve + residual filtered with k(f) over ``[0, i_end)``."""
-    return base_u[:i_end] + filter_residual(p.u[:i_end] - base_u[:i_end], p.dt)
-
-
-# ---------------------------------------------------------------------------------------------
-# Chopping
-# ---------------------------------------------------------------------------------------------
-def _find_collapse(p: _Prepared) -> int | None:
-    """Index where a collapse starts: the smoothed curve, at 10 % of the peak or more, falls below half
-    its value within 0.5 us and stays low (mean over the next 1 us below 30 % of that value), so that a
-    decaying tail or an oscillation riding on it is not taken for a chop."""
-    m = max(2, int(round(0.5e-6 / p.dt)))
-    y = p.uf
-    n = y.size
-    start = max(p.ipk - m, 0)
-    if start + m >= n:
-        return None
-    y0 = y[start: n - m]
-    cand = (y0 >= 0.1 * p.peak) & (y0 - y[start + m:] > 0.5 * y0)
-    if not cand.any():
-        return None
-    j = np.arange(start, n - m)
-    csum = np.concatenate(([0.0], np.cumsum(y)))
-    a = j + m
-    b = np.minimum(j + 3 * m, n)
-    after = (csum[b] - csum[a]) / np.maximum(b - a, 1)
-    c = np.flatnonzero(cand & (after < 0.3 * y0))
-    return None if c.size == 0 else start + int(c[0])
-
-
-def _chopping(p: _Prepared, i_c: int, source: str | None) -> tuple[float, int]:
-    """Instant of chopping (fractional index) and the last index before the collapse.
-
-    The voltage at chopping is the largest value in the 0.5 us before the collapse's 50 % point; the
-    70 % point is the last one at or above 70 % before that, the 10 % point the first one below 10 %
-    after it, so that ringing after the collapse and noise on it do not move them.
-    """
-    y = p.uf
-    m = max(2, int(round(0.5e-6 / p.dt)))
-    hi = min(i_c + 2 * m, y.size - 1)
-    ref = float(y[i_c: i_c + m + 1].max())
-    below = np.flatnonzero(y[i_c: hi + 1] < 0.5 * ref)
-    if below.size == 0:
-        raise _error(source, "the voltage collapse does not fall to half the voltage at chopping; expected a "
-                     "chopped impulse recorded through its collapse")
-    k50 = i_c + int(below[0])
-    uc = float(y[max(k50 - m, 0): k50 + 1].max())
-    above = np.flatnonzero(y[:k50 + 1] >= 0.7 * uc)
-    lo10 = np.flatnonzero(y[k50:] < 0.1 * uc)
-    if above.size == 0 or lo10.size == 0:
-        raise _error(source, "the voltage collapse does not fall to 10 % of the voltage at chopping; "
-                     "expected a chopped impulse recorded through its collapse")
-    k70 = _fall_at(y, int(above[-1]), 0.7 * uc)
-    k10 = _fall_at(y, k50 + int(lo10[0]) - 1, 0.1 * uc)
-    # line through the 70 % and 10 % points, taken back to the voltage at chopping (from memory)
-    tc = k70 - 0.5 * (k10 - k70)
-    return tc, max(int(math.floor(tc)) - 1, 1)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -16,7 +16,8 @@ The steps, in the order :func:`align_pair` runs them:
 4. **Alignment** (:func:`front_delay_s`, :func:`shift_fourier`): the sub-sample delay of the test voltage
    front relative to the reference front is estimated by a least-squares fit, and the test record is moved
    by it with a Fourier phase shift (integer part by indexing).
-5. **Overlap**: both records are cut to the samples they share after alignment.
+5. **Overlap**: both records are cut to the samples they share after alignment, less 16 samples at
+   each end of the test record when it was moved by a fraction of a sample.
 
 Every step that changes the data without the user asking (resampling, a short pre-trigger, clipping)
 adds a message to :attr:`AlignedPair.warnings`.
@@ -70,6 +71,8 @@ RESAMPLE_METHODS = {
 }
 #: Largest denominator of the rational approximation of the interval ratio.
 MAX_RESAMPLE_DENOMINATOR = 1000
+#: Samples dropped at each end of a record moved by a fractional Fourier shift.
+SHIFT_EDGE_SAMPLES = 16
 #: Samples at the extreme value in a row from which a channel counts as clipped.
 CLIP_RUN_SAMPLES = 3
 #: A clipped channel holds its extreme value this many times longer than the two codes below it.
@@ -763,8 +766,11 @@ def align_pair(
     if frac != 0.0:
         # move the test content earlier by the fractional part: sample m then holds test(m + frac)
         tv, ti = shift_fourier(np.stack((tv, ti)), -frac * dt, dt)
-    m0 = max(0, -k + (1 if frac < 0 else 0))
-    m1 = min(rv.size, tv.size - k - (1 if frac > 0 else 0))
+    # samples within SHIFT_EDGE_SAMPLES of a test record end carry the error of the Fourier
+    # interpolation against the padding (it decays only as 1/distance): they are dropped
+    edge = SHIFT_EDGE_SAMPLES if frac != 0.0 else 0
+    m0 = max(0, -k + edge)
+    m1 = min(rv.size, tv.size - k - edge)
     if m1 - m0 < 16:
         raise RecordError(
             f"the records overlap for only {max(m1 - m0, 0)} samples after aligning the voltage fronts "

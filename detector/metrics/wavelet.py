@@ -213,17 +213,15 @@ class WaveletDifference:
     level: int
 
 
-def _taper_pad(x: np.ndarray, n_pad: int) -> np.ndarray:
-    """Pad with zeros, reached from ``x[-1]`` and left towards ``x[0]`` by short raised-cosine tapers.
+def _mirror_pad(x: np.ndarray, n_end: int, n_start: int) -> np.ndarray:
+    """Append mirror images of the record's end and start, so its periodic extension is continuous.
 
-    Zero (not a blend between the end values) keeps the padding free of a long constant level, which
-    the coarse levels of a periodic transform would see as a large coefficient.
+    The result is ``[x, x reflected at its end (n_end), x reflected at its start (n_start)]``: both
+    record ends meet their own reflections (no jump, same noise statistics, a slow offset continues), and
+    the one jump, between the two reflections, lies ``n_end`` samples away from the record.
     """
-    m = max(1, min(16, n_pad // 2))
-    k = (np.arange(1, m + 1)) / (m + 1)
-    down = x[-1] * 0.5 * (1.0 + np.cos(np.pi * k))
-    up = x[0] * 0.5 * (1.0 - np.cos(np.pi * k))
-    return np.concatenate((x, down, np.zeros(n_pad - 2 * m), up))
+    xp = np.pad(x, (n_start, n_end), mode="symmetric")
+    return np.roll(xp, -n_start)
 
 
 def _swt_rows(x: np.ndarray, w: pywt.Wavelet, level: int) -> np.ndarray:
@@ -231,8 +229,10 @@ def _swt_rows(x: np.ndarray, w: pywt.Wavelet, level: int) -> np.ndarray:
     n = x.shape[-1]
     block = 2**level
     offs = _swt_centre_offsets(w.name, level)
-    n_pad = int(math.ceil((n + max(abs(o) for o in offs) + 32) / block) * block)
-    coeffs = pywt.swt(_taper_pad(x, n_pad - n), w, level=level, trim_approx=True)
+    half_support = (w.dec_len - 1) * 2 ** (level - 1)
+    n_pad = int(math.ceil((n + 2 * half_support + max(abs(o) for o in offs) + 32) / block) * block)
+    n_end = (n_pad - n) // 2
+    coeffs = pywt.swt(_mirror_pad(x, n_end, n_pad - n - n_end), w, level=level, trim_approx=True)
     rows = [coeffs[k] for k in range(level, 0, -1)] + [coeffs[0]]
     out = np.empty((level + 1, n))
     for j, (c, off) in enumerate(zip(rows, offs, strict=True)):  # loop over levels: index k holds
@@ -318,7 +318,8 @@ def wavelet_difference(
     mode : str
         Signal extension mode of the discrete transform (``pywt.Modes.modes``), which gives the per-level
         energies and noise for both methods; the stationary transform is periodic and pads the record
-        with zeros reached through short tapers instead.
+        with mirror images of its two ends instead (at least the wavelet's half support at the deepest
+        level on each side), so neither end sees a jump.
     level : int, optional
         Number of levels; default ``min(8, pywt.dwt_max_level(n, filter length))``.
     method : {'swt', 'dwt'}

@@ -319,7 +319,9 @@ def wavelet_difference(
         Signal extension mode of the discrete transform (``pywt.Modes.modes``), which gives the per-level
         energies and noise for both methods; the stationary transform is periodic and pads the record
         with mirror images of its two ends instead (at least the wavelet's half support at the deepest
-        level on each side), so neither end sees a jump.
+        level on each side), so neither end sees a jump. With ``method="dwt"`` prefer
+        ``mode="symmetric"``: periodization joins the two record ends, and a slow benign offset in the
+        difference then appears as a step at the end of the deep levels.
     level : int, optional
         Number of levels; default ``min(8, pywt.dwt_max_level(n, filter length))``.
     method : {'swt', 'dwt'}

@@ -143,7 +143,7 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
         """
         _check_params(self, self._constraints)
         check_option("calibration", self.calibration, ("isotonic", "sigmoid"))
-        X, y = validate_data(self, X, y, ensure_min_samples=2)
+        X, y = validate_data(self, X, y, ensure_min_samples=2, ensure_all_finite="allow-nan")
         self.classes_ = unique_labels(y)
         if self.classes_.size < 2:
             raise ValueError(f"FaultClassifier needs at least 2 classes in y, got {self.classes_.size}")
@@ -173,10 +173,15 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
             self.n_iter_ = base.n_iter_
         return self
 
+    def __sklearn_tags__(self):  # missing features (NaN) are handled by the boosted trees
+        tags = super().__sklearn_tags__()
+        tags.input_tags.allow_nan = True
+        return tags
+
     def predict_proba(self, X: Any) -> np.ndarray:
         """Probability of each class in ``classes_`` order, shape (n_samples, n_classes)."""
         check_is_fitted(self)
-        X = validate_data(self, X, reset=False)
+        X = validate_data(self, X, reset=False, ensure_all_finite="allow-nan")
         return self.calibrated_.predict_proba(X)
 
     def predict(self, X: Any) -> np.ndarray:
@@ -237,7 +242,7 @@ class LocationRegressor(RegressorMixin, BaseEstimator):
         """
         _check_params(self, self._constraints)
         check_option("loss", self.loss, ("absolute_error", "squared_error"))
-        X, y = validate_data(self, X, y, ensure_min_samples=2, y_numeric=True)
+        X, y = validate_data(self, X, y, ensure_min_samples=2, y_numeric=True, ensure_all_finite="allow-nan")
         self.model_ = HistGradientBoostingRegressor(
             loss=self.loss,
             max_iter=self.max_iter,
@@ -249,10 +254,15 @@ class LocationRegressor(RegressorMixin, BaseEstimator):
         self.n_iter_ = self.model_.n_iter_
         return self
 
+    def __sklearn_tags__(self):  # missing features (NaN) are handled by the boosted trees
+        tags = super().__sklearn_tags__()
+        tags.input_tags.allow_nan = True
+        return tags
+
     def predict(self, X: Any) -> np.ndarray:
         """Position along the winding, clipped to [0, 1] (fraction of its length from the line end)."""
         check_is_fitted(self)
-        X = validate_data(self, X, reset=False)
+        X = validate_data(self, X, reset=False, ensure_all_finite="allow-nan")
         return np.clip(self.model_.predict(X), 0.0, 1.0)
 
 

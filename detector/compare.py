@@ -1,0 +1,204 @@
+"""compare(reference, test) -> Verdict: the one entry point everything else calls.
+
+The verdict says whether a fault is indicated, which event the classifier sees (``none``,
+``turn_to_turn``, ``to_ground``, ``discharge_only``) with calibrated probabilities, when it began on
+the test record's own time axis, roughly where along the winding (0 line end .. 1 neutral end), which
+metrics exceeded their calibrated thresholds and by how much, the wave shape of both records, and every
+warning met on the way. It is an advisory second opinion; the responsible engineer decides.
+
+Examples
+--------
+>>> from detector.compare import compare            # doctest: +SKIP
+>>> v = compare(reduced_record, full_record)        # doctest: +SKIP
+>>> v.to_dict()["fault_indicated"]                  # doctest: +SKIP
+False
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import functools
+import math
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ._validation import ShotcheckError
+from .features import FEATURE_NAMES, SCHEMA_VERSION, PairAnalysis, describe, extract
+from .model import EVENT_CLASSES, ShotModel, load_model
+from .record import Record
+from .scoring import exceeded
+
+__all__ = ["Verdict", "compare", "default_model", "DEFAULT_MODEL_PATH", "FAULT_PROBABILITY"]
+
+#: The model that ships with the package (see DEVELOPERS.md, "The default model").
+DEFAULT_MODEL_PATH = Path(__file__).parent / "resources" / "default_model.skops"
+
+#: A fault is indicated when the classifier gives the class ``none`` less than this probability.
+FAULT_PROBABILITY = 0.5
+
+
+@functools.lru_cache(maxsize=4)
+def _load_cached(path: str, mtime: float) -> ShotModel:
+    return load_model(path, expected_schema=SCHEMA_VERSION)
+
+
+def default_model(path: str | Path | None = None) -> ShotModel:
+    """Load (once) the bundled model or the one at ``path``.
+
+    Parameters
+    ----------
+    path : str or Path, optional
+        Model file; default :data:`DEFAULT_MODEL_PATH`.
+
+    Returns
+    -------
+    ShotModel
+    """
+    p = Path(path) if path is not None else DEFAULT_MODEL_PATH
+    if not p.is_file():
+        if path is None:
+            raise ShotcheckError(
+                f"the bundled model {p} is missing; build it with the command in DEVELOPERS.md "
+                "('The default model') or pass --model"
+            )
+        raise ShotcheckError(f"{p}: model file not found")
+    return _load_cached(str(p.resolve()), p.stat().st_mtime)
+
+
+@dataclasses.dataclass(frozen=True)
+class Verdict:
+    """Result of comparing a test shot with its reference.
+
+    Attributes
+    ----------
+    fault_indicated : bool
+    event : str
+        Most probable event class; ``none`` when no fault is indicated.
+    probabilities : dict of str to float
+        Calibrated probability of each event class.
+    fault_time_s : float or None
+        Onset of the difference on the test record's own time axis [s]; None without a fault.
+    location : float or None
+        Estimated fault position along the winding, 0 line end .. 1 neutral end; None without a fault
+        or for a model without a locator.
+    exceeded : list of dict
+        Metrics above their thresholds (see :func:`detector.scoring.exceeded`).
+    analysis : PairAnalysis
+        All measurements (for reports).
+    warnings : tuple of str
+    model : dict
+        Name, schema version and creation time of the model used.
+    """
+
+    fault_indicated: bool
+    event: str
+    probabilities: dict[str, float]
+    fault_time_s: float | None
+    location: float | None
+    exceeded: list[dict[str, Any]]
+    analysis: PairAnalysis
+    warnings: tuple[str, ...]
+    model: dict[str, Any]
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready dictionary with the keys of DESIGN.md section 6."""
+        a = self.analysis
+        return {
+            "fault_indicated": self.fault_indicated,
+            "event": self.event,
+            "probabilities": dict(self.probabilities),
+            "fault_time_us": None if self.fault_time_s is None else 1e6 * self.fault_time_s,
+            "location": self.location,
+            "metrics": describe(a.features),
+            "exceeded": list(self.exceeded),
+            "waveshape": {
+                "reference": None if a.reference_shape is None else a.reference_shape.to_dict(),
+                "test": None if a.test_shape is None else a.test_shape.to_dict(),
+            },
+            "warnings": list(self.warnings),
+            "model": dict(self.model),
+        }
+
+
+def _fault_time_pair_s(a: PairAnalysis) -> float | None:
+    """Earliest credible onset of the difference on the pair's time axis [s]."""
+    cands = []
+    if a.wavelet is not None and a.wavelet.fault_time_s is not None:
+        cands.append(float(a.wavelet.fault_time_s))
+    if a.time_domain.onset_s is not None:
+        cands.append(float(a.time_domain.onset_s))
+    tc = a.time_domain.test_collapse
+    if tc is not None and (a.test_shape is None or a.test_shape.kind != "lightning_chopped"):
+        cands.append(float(tc.time_s))
+    cands = [c for c in cands if c >= a.front_time_s - 0.5e-6]
+    return min(cands) if cands else None
+
+
+def compare(
+    reference: Record,
+    test: Record,
+    *,
+    model: ShotModel | str | Path | None = None,
+) -> Verdict:
+    """Compare a test shot with its reference shot.
+
+    Parameters
+    ----------
+    reference : Record
+        Reduced-level full wave of the same terminal (voltage and neutral current).
+    test : Record
+        Full-level full or chopped wave (voltage and neutral current).
+    model : ShotModel or path, optional
+        Model to use; default the bundled model.
+
+    Returns
+    -------
+    Verdict
+
+    Raises
+    ------
+    RecordError
+        A record lacks a channel or the two do not overlap.
+    ShotcheckError
+        No impulse in a record, or no usable model.
+    """
+    m = model if isinstance(model, ShotModel) else default_model(model)
+    if tuple(m.feature_names) != FEATURE_NAMES:
+        raise ShotcheckError("the model's feature names differ from this shotcheck's; retrain the model")
+    a = extract(reference, test)
+    x = a.features.reshape(1, -1)
+    proba = m.classifier.predict_proba(x)[0]
+    probs = {c: 0.0 for c in EVENT_CLASSES}
+    for c, p in zip(m.classifier.classes_, proba, strict=True):
+        probs[str(c)] = float(p)
+    fault = probs["none"] < FAULT_PROBABILITY
+    event = "none"
+    if fault:
+        event = max((c for c in EVENT_CLASSES if c != "none"), key=lambda c: probs[c])
+    over = exceeded(a.features, m.thresholds)
+    warnings = list(a.warnings)
+    if over and not fault:
+        warnings.append(
+            f"{len(over)} metric(s) exceed their thresholds although the classifier sees no fault "
+            f"(largest: {over[0]['metric']} at {over[0]['ratio']:.2f} x threshold); look at the records"
+        )
+    t_fault = None
+    loc = None
+    if fault:
+        t_fault = a.to_test_time_s(_fault_time_pair_s(a))
+        if m.locator is not None:
+            loc = float(m.locator.predict(x)[0])
+    info = {
+        "name": str(m.card.get("name", "custom")),
+        "schema_version": m.schema_version,
+        "created": m.card.get("created"),
+    }
+    return Verdict(fault, event, probs, t_fault, None if loc is None or not math.isfinite(loc) else loc,
+                   over, a, tuple(warnings), info)
+
+
+def batch_features(pairs: list[tuple[Record, Record]]) -> np.ndarray:
+    """Feature matrix of many pairs (serial; see :mod:`detector.training` for the parallel version)."""
+    return np.vstack([extract(r, t).features for r, t in pairs])

@@ -1,0 +1,289 @@
+"""One named, versioned feature vector per compared pair.
+
+:func:`extract` runs the whole measurement chain on a reference (reduced-level) and a test
+(full-level) record: the IEC 60060-1 wave shape of each, alignment and level normalisation
+(:mod:`detector.preprocess`), and the time-domain, transfer-function and wavelet metrics
+(:mod:`detector.metrics`). It returns the metric objects (for the verdict and the report) and a flat
+feature vector whose names and order are fixed by :data:`FEATURE_NAMES` and versioned by
+:data:`SCHEMA_VERSION`. Change either and every model must be retrained: :func:`detector.model.load_model`
+refuses a model trained on another schema.
+
+Missing values (no onset found, a band without valid frequencies) are NaN; the gradient-boosting
+models handle NaN natively.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+
+from .metrics.timedomain import TimeDomainMetrics, time_domain_metrics
+from .metrics.transfer import TransferComparison, TransferFunction, compare_transfer, transfer_function
+from .metrics.wavelet import WaveletDifference, wavelet_difference
+from .preprocess import AlignedPair, align_pair
+from ._validation import ShotcheckError
+from .record import Record
+from .waveshape import WaveShape, evaluate_waveshape
+
+__all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract",
+           "features_only"]
+
+#: Version of the feature schema: bump it whenever a name, its order or its definition changes.
+SCHEMA_VERSION = "1"
+
+#: Detail levels of the wavelet difference kept as features (D1 finest .. D8), plus the approximation.
+WAVELET_LEVELS = 8
+
+#: Log-spaced bands for the signed mean dB difference of the transfer functions [Hz].
+LOG_BANDS_HZ: tuple[tuple[float, float], ...] = tuple(
+    (float(a), float(b)) for a, b in zip(np.geomspace(10e3, 10e6, 10)[:-1], np.geomspace(10e3, 10e6, 10)[1:],
+                                         strict=True)
+)
+
+_WINDOWS = ("front", "crest", "tail")
+_WV_LABELS = tuple(f"D{k}" for k in range(1, WAVELET_LEVELS + 1)) + ("A",)
+
+
+def _names() -> tuple[str, ...]:
+    n: list[str] = []
+    for q in ("i", "v"):
+        n += [f"td_{q}_{w}_sigma" for w in _WINDOWS]
+        n += [f"td_{q}_max_sigma", f"td_{q}_max_percent"]
+    n += ["td_onset_after_front_us", "td_v_minus_i_onset_us", "td_test_collapse", "td_ref_collapse",
+          "td_collapse_shift_us", "td_compared_span_us", "test_declared_chopped"]
+    n += ["tf_rho", "tf_R", "tf_rms_dB", "tf_max_dB", "tf_mean_dB"]
+    for b in ("low", "medium", "high"):
+        n += [f"tf_{b}_R", f"tf_{b}_rms_dB"]
+    n += ["tf_max_peak_shift", "tf_n_unmatched"]
+    n += [f"tf_band{k}_mean_dB" for k in range(len(LOG_BANDS_HZ))]
+    n += [f"wv_{lab}_log_energy" for lab in _WV_LABELS]
+    n += [f"wv_{lab}_peak_sigma" for lab in _WV_LABELS]
+    n += ["wv_fine_peak_sigma", "wv_coarse_peak_sigma", "wv_fault_after_front_us"]
+    n += ["ws_front_time_change", "ws_time_to_half_change", "ws_test_voltage_ratio_change",
+          "noise_i_ref_ppm", "noise_i_test_ppm", "sample_rate_MHz"]
+    return tuple(n)
+
+
+#: Names of the features, in the column order of the feature matrix.
+FEATURE_NAMES: tuple[str, ...] = _names()
+
+
+@dataclasses.dataclass(frozen=True)
+class PairAnalysis:
+    """Everything measured on one pair.
+
+    Attributes
+    ----------
+    features : numpy.ndarray
+        Feature vector in :data:`FEATURE_NAMES` order.
+    reference_shape, test_shape : WaveShape or None
+        IEC 60060-1 evaluation of each record; None when the record could not be evaluated (a warning
+        says why).
+    pair : AlignedPair
+        The aligned, per-unit records.
+    time_domain : TimeDomainMetrics
+    transfer_ref, transfer_test : TransferFunction
+    transfer : TransferComparison
+    wavelet : WaveletDifference or None
+        None if the span before a collapse is too short for a decomposition.
+    front_time_s : float
+        Time of the reference voltage front (30 % point) on the pair's time axis [s].
+    warnings : tuple of str
+    """
+
+    features: np.ndarray
+    reference_shape: WaveShape | None
+    test_shape: WaveShape | None
+    pair: AlignedPair
+    time_domain: TimeDomainMetrics
+    transfer_ref: TransferFunction
+    transfer_test: TransferFunction
+    transfer: TransferComparison
+    wavelet: WaveletDifference | None
+    front_time_s: float
+    warnings: tuple[str, ...]
+
+    def as_dict(self) -> dict[str, float]:
+        """Feature name -> value (NaN kept)."""
+        return dict(zip(FEATURE_NAMES, (float(x) for x in self.features), strict=True))
+
+    def to_test_time_s(self, t_pair_s: float | None) -> float | None:
+        """Convert a time on the pair's axis to the test record's own time axis [s]."""
+        if t_pair_s is None or not math.isfinite(t_pair_s):
+            return None
+        p = self.pair
+        return float(t_pair_s + (p.test_times_s[0] - p.times_s[0]))
+
+
+def _front_time_s(pair: AlignedPair) -> float:
+    """Time of the first 30 % crossing of the reference voltage [s, pair axis]."""
+    v = pair.ref_voltage_pu
+    i = int(np.argmax(v >= 0.3))
+    if i == 0:
+        return float(pair.times_s[0])
+    v0, v1 = v[i - 1], v[i]
+    frac = (0.3 - v0) / (v1 - v0) if v1 != v0 else 0.0
+    return float(pair.times_s[i - 1] + frac * pair.sample_interval_s)
+
+
+def _ratio_change(a: float | None, b: float | None) -> float:
+    if a is None or b is None or not a:
+        return math.nan
+    return float(b / a - 1.0)
+
+
+def _band_mean_dB(f: np.ndarray, ref_dB: np.ndarray, test_dB: np.ndarray) -> list[float]:
+    d = test_dB - ref_dB
+    out = []
+    for lo, hi in LOG_BANDS_HZ:
+        sel = (f >= lo) & (f < hi) & np.isfinite(d)
+        out.append(float(np.mean(d[sel])) if sel.sum() >= 2 else math.nan)
+    return out
+
+
+def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[float]:
+    nan = math.nan
+    if wd is None:
+        return [nan] * (2 * len(_WV_LABELS) + 3)
+    L = wd.level
+    energy = np.full(len(_WV_LABELS), nan)
+    peak = np.full(len(_WV_LABELS), nan)
+    k = min(L, WAVELET_LEVELS)
+    with np.errstate(divide="ignore"):
+        energy[:k] = np.log10(np.maximum(wd.energy_ratio[:k], 1e-12))
+        energy[-1] = math.log10(max(float(wd.energy_ratio[-1]), 1e-12))
+    peak[:k] = wd.peak_sigma[:k]
+    peak[-1] = wd.peak_sigma[-1]
+    fine = float(np.nanmax(peak[:2]))
+    coarse = float(np.nanmax(peak[3:k])) if k > 3 else nan
+    ft = nan if wd.fault_time_s is None else 1e6 * (wd.fault_time_s - front_s)
+    return [*energy.tolist(), *peak.tolist(), fine, coarse, ft]
+
+
+def _shape_or_none(record: Record, label: str, notes: list[str]) -> WaveShape | None:
+    """IEC 60060-1 evaluation, or None with a note when the record defeats it (e.g. a breakdown on the front)."""
+    try:
+        return evaluate_waveshape(record)
+    except ShotcheckError as exc:
+        notes.append(f"{label} record: wave shape not evaluated ({exc}); normalised by its robust peak instead")
+        return None
+
+
+def _get(ws: WaveShape | None, name: str) -> float | None:
+    return None if ws is None else getattr(ws, name)
+
+
+def _overshoot_ratio(ws: WaveShape | None) -> float | None:
+    if ws is None or not ws.test_voltage_V:
+        return None
+    return abs(ws.peak_V / ws.test_voltage_V)
+
+
+def extract(
+    reference: Record,
+    test: Record,
+    *,
+    reference_shape: WaveShape | None = None,
+    test_shape: WaveShape | None = None,
+) -> PairAnalysis:
+    """Measure a pair and build its feature vector.
+
+    Parameters
+    ----------
+    reference : Record
+        Reduced-level full wave (voltage and neutral current).
+    test : Record
+        Full-level full or chopped wave (voltage and neutral current).
+    reference_shape, test_shape : WaveShape, optional
+        Wave-shape evaluations already made (they are computed otherwise).
+
+    Returns
+    -------
+    PairAnalysis
+
+    Raises
+    ------
+    RecordError
+        A record lacks its voltage or current channel, or the records do not overlap.
+    ShotcheckError
+        No impulse found in a record.
+    """
+    notes: list[str] = []
+    ws_r = reference_shape if reference_shape is not None else _shape_or_none(reference, "reference", notes)
+    ws_t = test_shape if test_shape is not None else _shape_or_none(test, "test", notes)
+    pair = align_pair(reference, test, ref_test_voltage_V=None if ws_r is None else ws_r.test_voltage_V,
+                      test_test_voltage_V=None if ws_t is None else ws_t.test_voltage_V)
+    dt = pair.sample_interval_s
+    td = time_domain_metrics(pair)
+    front_s = _front_time_s(pair)
+
+    # transfer functions over the whole records: valid across chopping (see metrics.transfer)
+    tf_r = transfer_function(pair.ref_voltage_pu, pair.ref_current_pu, dt, pretrigger_samples=pair.pretrigger_samples)
+    tf_t = transfer_function(pair.test_voltage_pu, pair.test_current_pu, dt,
+                             pretrigger_samples=pair.pretrigger_samples)
+    tc = compare_transfer(tf_r.H_S, tf_t.H_S, tf_r.frequency_Hz)
+
+    # wavelet difference of the currents up to the compared span's end (before any collapse)
+    stop = int(np.searchsorted(pair.times_s, td.compared_until_s, side="right"))
+    wd: WaveletDifference | None = None
+    if stop >= 64:
+        wd = wavelet_difference(pair.ref_current_pu[:stop], pair.test_current_pu[:stop], dt,
+                                t0_s=float(pair.times_s[0]))
+
+    f: list[float] = []
+    for dev in (td.current, td.voltage):
+        f += [float(dev[w].max_sigma) for w in _WINDOWS]
+        f += [float(dev["all"].max_sigma), float(dev["all"].max_percent)]
+    nan = math.nan
+    onset = nan if td.onset_s is None else 1e6 * (td.onset_s - front_s)
+    vi = (1e6 * (td.voltage_onset_s - td.current_onset_s)
+          if td.voltage_onset_s is not None and td.current_onset_s is not None else nan)
+    cshift = nan
+    if td.test_collapse is not None:
+        ref_c = td.ref_collapse.time_s if td.ref_collapse is not None else front_s
+        cshift = 1e6 * (td.test_collapse.time_s - ref_c)
+    f += [onset, vi, float(td.test_collapse is not None), float(td.ref_collapse is not None), cshift,
+          1e6 * (td.compared_until_s - front_s), float(test.meta.get("shot_kind") == "chopped")]
+    ov = tc.overall
+    f += [ov.rho, ov.R, ov.rms_dB, ov.max_dB, ov.mean_dB]
+    for b in ("low", "medium", "high"):
+        bi = tc.bands.get(b)
+        f += [nan, nan] if bi is None else [bi.R, bi.rms_dB]
+    f += [float(tc.max_peak_shift_rel), float(tc.n_unmatched)]
+    f += _band_mean_dB(tc.frequency_Hz, tc.ref_dB, tc.test_dB)
+    f += _wavelet_features(wd, front_s)
+    peak_i = float(np.max(np.abs(pair.ref_current_pu))) or 1.0
+    f += [
+        _ratio_change(_get(ws_r, "front_time_s"), _get(ws_t, "front_time_s")),
+        _ratio_change(_get(ws_r, "time_to_half_s"), _get(ws_t, "time_to_half_s")),
+        _ratio_change(_overshoot_ratio(ws_r), _overshoot_ratio(ws_t)),
+        1e6 * pair.ref_noise.current_mad_pu / peak_i,
+        1e6 * pair.test_noise.current_mad_pu / peak_i,
+        1e-6 / dt,
+    ]
+    vec = np.asarray(f, dtype=np.float64)
+    if vec.size != len(FEATURE_NAMES):  # a programming error, never a user's
+        raise AssertionError(f"feature vector has {vec.size} values for {len(FEATURE_NAMES)} names")
+    warnings = tuple(dict.fromkeys([*notes, *(ws_r.warnings if ws_r else ()), *(ws_t.warnings if ws_t else ()),
+                                    *pair.warnings]))
+    return PairAnalysis(vec, ws_r, ws_t, pair, td, tf_r, tf_t, tc, wd, front_s, warnings)
+
+
+def features_only(reference: Record, test: Record) -> np.ndarray:
+    """Feature vector of a pair (for parallel extraction over a training set)."""
+    return extract(reference, test).features
+
+
+def feature_table(rows: np.ndarray) -> Mapping[str, np.ndarray]:
+    """Columns of a feature matrix by name."""
+    return {n: rows[:, k] for k, n in enumerate(FEATURE_NAMES)}
+
+
+def describe(features: np.ndarray) -> dict[str, Any]:
+    """Feature name -> value for JSON output (NaN -> None)."""
+    return {n: (None if not math.isfinite(float(v)) else float(v)) for n, v in zip(FEATURE_NAMES, features,
+                                                                                  strict=True)}

@@ -1,0 +1,358 @@
+"""Training and evaluation of the model on synthetic data sets.
+
+A data set is a folder written by ``shotcheck synth`` (:mod:`synthetic.dataset`). Feature extraction
+runs in parallel over pairs (joblib processes) and is cached in the folder as
+``features_v<schema>.npz``, so training and evaluation on the same set extract once.
+
+Training splits by winding design: each synthetic case has its own randomly drawn winding, and the
+cross-validation groups by that design (the case's ``unit_id``), so no design is in both the training
+and the validation folds.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import time
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ._validation import ShotcheckError
+from .features import FEATURE_NAMES, SCHEMA_VERSION, extract
+from .model import EVENT_CLASSES, FaultClassifier, LocationRegressor, ShotModel
+from .scoring import calibrate_thresholds, false_alarm_rate
+
+__all__ = ["extract_dataset", "train", "evaluate", "LabelledFeatures"]
+
+
+class LabelledFeatures:
+    """Feature matrix of a data set with its labels.
+
+    Attributes
+    ----------
+    X : numpy.ndarray, shape (n, n_features)
+    event : numpy.ndarray of str
+    position : numpy.ndarray
+        Fault position 0..1 (NaN for none).
+    fault_time_us : numpy.ndarray
+        True fault instant on the test record's time axis [us] (NaN for none or no ignition).
+    onset_us : numpy.ndarray
+        Onset of the difference measured by the metrics, on the test record's axis [us] (NaN if none).
+    groups : numpy.ndarray of str
+        Winding design of each case (for grouped splits).
+    labels : list of dict
+        Full label rows.
+    failed : list of tuple
+        (case_id, message) of pairs whose extraction failed.
+    """
+
+    def __init__(self, X, event, position, fault_time_us, onset_us, groups, labels, failed):
+        self.X = X
+        self.event = event
+        self.position = position
+        self.fault_time_us = fault_time_us
+        self.onset_us = onset_us
+        self.groups = groups
+        self.labels = labels
+        self.failed = failed
+
+
+def _one(ref, test) -> tuple[np.ndarray, float, str | None]:
+    """Features and measured onset [us, test axis] of one pair, or NaNs and the error message."""
+    from .compare import _fault_time_pair_s
+    from ._validation import ShotcheckError as _E
+
+    try:
+        a = extract(ref, test)
+    except _E as exc:
+        return np.full(len(FEATURE_NAMES), np.nan), math.nan, str(exc)
+    t = a.to_test_time_s(_fault_time_pair_s(a))
+    return a.features, (math.nan if t is None else 1e6 * t), None
+
+
+def _chunk(directory: str, case_ids: list[int]) -> list[tuple[int, np.ndarray, float, str | None]]:
+    import warnings
+
+    from synthetic.dataset import load_dataset
+
+    wanted = set(case_ids)
+    out = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for ref, test, lab in load_dataset(directory):
+            cid = int(lab["case_id"])
+            if cid in wanted:
+                f, on, err = _one(ref, test)
+                out.append((cid, f, on, err))
+    return out
+
+
+def extract_dataset(directory: str | Path, *, workers: int | None = None, progress: bool = True,
+                    use_cache: bool = True) -> LabelledFeatures:
+    """Extract (or load cached) features of every pair of a synthetic data set.
+
+    Parameters
+    ----------
+    directory : str or Path
+        Folder written by ``shotcheck synth``.
+    workers : int, optional
+        Processes; default all cores.
+    progress : bool
+        Print a progress bar on stderr.
+    use_cache : bool
+        Reuse ``features_v<schema>.npz`` in the folder when it matches the label table.
+
+    Returns
+    -------
+    LabelledFeatures
+    """
+    from synthetic.dataset import read_labels
+
+    d = Path(directory)
+    if not (d / "labels.csv").is_file():
+        raise ShotcheckError(f"{d}: not a data set folder (no labels.csv); make one with `shotcheck synth`")
+    labels = read_labels(d)
+    ids = [int(r["case_id"]) for r in labels]
+    cache = d / f"features_v{SCHEMA_VERSION}.npz"
+    X = onset = None
+    failed: list[tuple[int, str]] = []
+    if use_cache and cache.is_file():
+        z = np.load(cache, allow_pickle=False)
+        if list(z["case_id"]) == ids and list(z["names"]) == list(FEATURE_NAMES):
+            X, onset = z["X"], z["onset_us"]
+            failed = [(int(i), str(m)) for i, m in zip(z["failed_id"], z["failed_msg"], strict=True)]
+    if X is None:
+        from joblib import Parallel, delayed
+
+        n_workers = workers or os.cpu_count() or 1
+        shards: dict[int, list[int]] = {}
+        for r in labels:
+            shards.setdefault(int(r["shard"]), []).append(int(r["case_id"]))
+        tasks = []
+        for cids in shards.values():  # a few tasks per shard keeps every worker busy
+            step = max(1, math.ceil(len(cids) / max(1, 2 * n_workers // max(1, len(shards)) or 1)))
+            tasks += [cids[i:i + step] for i in range(0, len(cids), step)]
+        t0 = time.perf_counter()
+        results = Parallel(n_jobs=n_workers, return_as="generator_unordered")(
+            delayed(_chunk)(str(d), t) for t in tasks
+        )
+        got: dict[int, tuple[np.ndarray, float, str | None]] = {}
+        bar = None
+        if progress:
+            from tqdm import tqdm
+
+            bar = tqdm(total=len(ids), desc="features", unit="pair", file=__import__("sys").stderr)
+        for chunk in results:
+            for cid, f, on, err in chunk:
+                got[cid] = (f, on, err)
+            if bar is not None:
+                bar.update(len(chunk))
+        if bar is not None:
+            bar.close()
+        X = np.vstack([got[i][0] for i in ids])
+        onset = np.array([got[i][1] for i in ids])
+        failed = [(i, got[i][2]) for i in ids if got[i][2] is not None]
+        np.savez_compressed(
+            cache, X=X, onset_us=onset, case_id=np.array(ids), names=np.array(FEATURE_NAMES),
+            failed_id=np.array([f[0] for f in failed], dtype=int), failed_msg=np.array([f[1] for f in failed], dtype=str),
+        )
+        if progress:
+            dt = time.perf_counter() - t0
+            print(f"features of {len(ids)} pairs in {dt:.1f} s ({len(ids) / dt:.1f} pairs/s)",
+                  file=__import__("sys").stderr)
+    event = np.array([str(r["event"]) for r in labels])
+    position = np.array([float(r["position"]) if r["position"] not in ("", None) else math.nan for r in labels])
+    ft = np.array([float(r["fault_time_us"]) if r["fault_time_us"] not in ("", None) else math.nan for r in labels])
+    groups = np.array([f"{r.get('family', '')}-{r.get('seed', '')}-{r['case_id']}" for r in labels])
+    return LabelledFeatures(X, event, position, ft, onset, groups, labels, failed)
+
+
+def _usable(data: LabelledFeatures) -> np.ndarray:
+    return np.isfinite(data.X).any(axis=1)
+
+
+def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed: int = 0,
+          cv_folds: int = 3, description: str = "") -> tuple[ShotModel, dict[str, Any]]:
+    """Fit thresholds, classifier and locator; report grouped cross-validated figures.
+
+    Parameters
+    ----------
+    data : LabelledFeatures
+        From :func:`extract_dataset`.
+    false_alarm_rate_target : float
+        Target false-alarm rate of the thresholds on benign pairs [1].
+    seed : int
+        Seed of the estimators.
+    cv_folds : int
+        Folds of the grouped cross-validation (0 to skip it).
+    description : str
+        Training-data description for the model card.
+
+    Returns
+    -------
+    model : ShotModel
+    report : dict
+        Cross-validated figures (same keys as :func:`evaluate`).
+    """
+    from sklearn.model_selection import GroupKFold
+
+    ok = _usable(data)
+    X, y, pos, groups = data.X[ok], data.event[ok], data.position[ok], data.groups[ok]
+    if len(set(y)) < 2:
+        raise ShotcheckError("the training set needs at least two event classes")
+    report: dict[str, Any] = {}
+    if cv_folds and cv_folds >= 2:
+        pred = np.empty(y.size, dtype=object)
+        proba = np.zeros((y.size, len(EVENT_CLASSES)))
+        loc = np.full(y.size, np.nan)
+        for tr, te in GroupKFold(n_splits=cv_folds).split(X, y, groups):
+            clf = FaultClassifier(random_state=seed).fit(X[tr], y[tr])
+            p = clf.predict_proba(X[te])
+            for k, c in enumerate(clf.classes_):
+                proba[te, EVENT_CLASSES.index(str(c))] = p[:, k]
+            fa = (y[tr] != "none") & np.isfinite(pos[tr])
+            if fa.sum() >= 10:
+                loc[te] = LocationRegressor(random_state=seed).fit(X[tr][fa], pos[tr][fa]).predict(X[te])
+        pred = _decide(proba)
+        sub = LabelledFeatures(X, y, pos, data.fault_time_us[ok], data.onset_us[ok], groups, [], [])
+        report = _figures(sub, proba, pred, loc)
+        report["cv_folds"] = cv_folds
+    benign = X[y == "none"]
+    thresholds = calibrate_thresholds(benign, false_alarm_rate=false_alarm_rate_target) if benign.shape[0] >= 10 else {}
+    clf = FaultClassifier(random_state=seed).fit(X, y)
+    fa = (y != "none") & np.isfinite(pos)
+    locator = LocationRegressor(random_state=seed).fit(X[fa], pos[fa]) if fa.sum() >= 10 else None
+    card = {
+        "name": "shotcheck synthetic model",
+        "training_data": description,
+        "n_pairs": int(y.size),
+        "class_counts": {c: int((y == c).sum()) for c in EVENT_CLASSES},
+        "n_failed_extractions": len(data.failed),
+        "false_alarm_rate_target": false_alarm_rate_target,
+        "threshold_false_alarm_rate_on_training": false_alarm_rate(benign, thresholds) if thresholds else None,
+        "cross_validation": {k: v for k, v in report.items() if k != "roc"},
+    }
+    model = ShotModel(clf, locator, FEATURE_NAMES, SCHEMA_VERSION, thresholds, card)
+    return model, report
+
+
+def _decide(proba: np.ndarray) -> np.ndarray:
+    from .compare import FAULT_PROBABILITY
+
+    out = np.empty(proba.shape[0], dtype=object)
+    fault = proba[:, 0] < FAULT_PROBABILITY
+    out[~fault] = "none"
+    out[fault] = np.array(EVENT_CLASSES[1:], dtype=object)[np.argmax(proba[fault, 1:], axis=1)]
+    return out
+
+
+def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: np.ndarray) -> dict[str, Any]:
+    from sklearn.metrics import confusion_matrix, roc_auc_score, roc_curve
+
+    y = data.event
+    rep: dict[str, Any] = {"n_pairs": int(y.size)}
+    det = {}
+    for c in EVENT_CLASSES[1:]:
+        sel = y == c
+        det[c] = float((pred[sel] != "none").mean()) if sel.any() else None
+    rep["detection_rate"] = det
+    none = y == "none"
+    rep["false_alarm_rate"] = float((pred[none] != "none").mean()) if none.any() else None
+    detected = (y != "none") & (pred != "none")
+    rep["class_accuracy_on_detected"] = float((pred[detected] == y[detected]).mean()) if detected.any() else None
+    rep["confusion_matrix"] = {
+        "labels": list(EVENT_CLASSES),
+        "counts": confusion_matrix(y, pred.astype(str), labels=list(EVENT_CLASSES)).tolist(),
+    }
+    fa = detected & np.isfinite(data.position) & np.isfinite(loc)
+    rep["location_error_median"] = float(np.median(np.abs(loc[fa] - data.position[fa]))) if fa.any() else None
+    rep["location_error_p90"] = float(np.quantile(np.abs(loc[fa] - data.position[fa]), 0.9)) if fa.any() else None
+    ft = detected & np.isfinite(data.fault_time_us) & np.isfinite(data.onset_us)
+    errs = np.abs(data.onset_us[ft] - data.fault_time_us[ft])
+    rep["fault_time_error_median_us"] = float(np.median(errs)) if errs.size else None
+    rep["fault_time_error_p90_us"] = float(np.quantile(errs, 0.9)) if errs.size else None
+    rep["fault_time_found_share"] = float(ft.sum() / max(1, detected.sum()))
+    score = 1.0 - proba[:, 0]
+    if none.any() and (~none).any():
+        fpr, tpr, _ = roc_curve(~none, score)
+        rep["roc_auc"] = float(roc_auc_score(~none, score))
+        rep["roc"] = {"fpr": fpr.tolist(), "tpr": tpr.tolist()}
+    return rep
+
+
+def evaluate(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
+    """Figures of a model on a labelled set (held out from its training).
+
+    Returns
+    -------
+    dict
+        ``detection_rate`` per class, ``false_alarm_rate``, ``class_accuracy_on_detected``,
+        ``confusion_matrix``, ``location_error_median`` (fraction of the winding), ``location_error_p90``,
+        ``fault_time_error_median_us``, ``fault_time_error_p90_us``, ``roc_auc``, ``roc``,
+        ``threshold_false_alarm_rate``.
+    """
+    ok = _usable(data)
+    X = data.X[ok]
+    sub = LabelledFeatures(X, data.event[ok], data.position[ok], data.fault_time_us[ok], data.onset_us[ok],
+                           data.groups[ok], [], [])
+    p = model.classifier.predict_proba(X)
+    proba = np.zeros((X.shape[0], len(EVENT_CLASSES)))
+    for k, c in enumerate(model.classifier.classes_):
+        proba[:, EVENT_CLASSES.index(str(c))] = p[:, k]
+    pred = _decide(proba)
+    loc = model.locator.predict(X) if model.locator is not None else np.full(X.shape[0], np.nan)
+    rep = _figures(sub, proba, pred, loc)
+    benign = X[sub.event == "none"]
+    if model.thresholds and benign.shape[0]:
+        rep["threshold_false_alarm_rate"] = false_alarm_rate(benign, model.thresholds)
+    rep["n_failed_extractions"] = int((~ok).sum())
+    return rep
+
+
+def sensitivity_by_turns(data: LabelledFeatures, pred: Sequence[str]) -> dict[str, Any]:
+    """Detection rate of turn-to-turn faults by shorted fraction of the winding (for the README)."""
+    rows = [r for r, ok in zip(data.labels, _usable(data), strict=True) if ok]
+    frac = np.array([float(r["shorted_turns"]) / float(r["total_turns"]) if r["event"] == "turn_to_turn"
+                     else np.nan for r in rows])
+    det = np.array([p != "none" for p in pred])
+    edges = [0, 0.002, 0.005, 0.01, 0.02, 0.05, 1.0]
+    out = {}
+    for lo, hi in zip(edges[:-1], edges[1:], strict=True):
+        sel = (frac > lo) & (frac <= hi)
+        if sel.any():
+            out[f"{lo:g}-{hi:g}"] = {"n": int(sel.sum()), "detected": float(det[sel].mean())}
+    return out
+
+
+def report_text(rep: dict[str, Any]) -> str:
+    """Readable summary of an evaluation report."""
+    lines = []
+    dr = rep.get("detection_rate", {})
+    lines.append(f"pairs evaluated: {rep.get('n_pairs')}")
+    for c, v in dr.items():
+        lines.append(f"detection rate {c:<15} {'-' if v is None else f'{v:.3f}'}")
+    far = rep.get("false_alarm_rate")
+    lines.append(f"false alarms on benign pairs   {'-' if far is None else f'{far:.3f}'}")
+    acc = rep.get("class_accuracy_on_detected")
+    lines.append(f"class accuracy on detected     {'-' if acc is None else f'{acc:.3f}'}")
+    for k, lab in (("location_error_median", "median location error"),
+                   ("fault_time_error_median_us", "median fault-instant error [us]"),
+                   ("roc_auc", "ROC AUC (fault vs none)")):
+        v = rep.get(k)
+        lines.append(f"{lab:<31}{'-' if v is None else f'{v:.3f}'}")
+    cm = rep.get("confusion_matrix")
+    if cm:
+        labs = cm["labels"]
+        lines.append("confusion matrix (rows true, columns predicted): " + ", ".join(labs))
+        for lab, row in zip(labs, cm["counts"], strict=True):
+            lines.append(f"  {lab:<15}" + "".join(f"{n:>8d}" for n in row))
+    return "\n".join(lines)
+
+
+def save_report(rep: dict[str, Any], path: str | Path) -> None:
+    """Write a report as JSON."""
+    Path(path).write_text(json.dumps(rep, indent=2), encoding="utf-8")

@@ -140,10 +140,13 @@ def _prepare(times_s: Any, voltage_V: Any, source: str | None) -> _Prepared:
     if abs(b0) > 0.25 * span:
         b0 = 0.0
     dev = v - b0
-    iext = int(np.argmax(np.abs(dev)))
-    sign = 1.0 if dev[iext] > 0 else -1.0
+    mag = np.abs(dev)
+    # the impulse comes first: the first excursion beyond half the largest one sets the polarity, so that
+    # the swing after a chop (which may exceed the crest) does not
+    ifirst = int(np.argmax(mag >= 0.5 * float(mag.max())))
+    sign = 1.0 if dev[ifirst] > 0 else -1.0
     u0 = sign * dev
-    amp0 = float(u0[iext])
+    amp0 = float(u0.max())
     if amp0 <= 10.0 * sigma:
         raise _error(source, f"no impulse found: the largest excursion ({amp0:.3g} V) is only "
                      f"{amp0 / sigma:.1f} times the noise level ({sigma:.3g} V); expected an impulse well above "

@@ -457,3 +457,19 @@ def test_tail_oscillation_is_not_a_chop_and_low_level_chop_is():
     assert ws.kind == "lightning_chopped"
     assert ws.chopping_instant_s == pytest.approx(14e-6, abs=50e-9)
     assert any(w.startswith("the record departs from a double-exponential") for w in ws.warnings)
+
+
+@pytest.mark.parametrize("sign", [1.0, -1.0])
+def test_polarity_from_the_impulse_not_from_the_swing_after_a_chop(sign):
+    """The swing after a chop can exceed the crest (lead inductance of the gap; common practice): the
+    polarity is that of the impulse, which comes first."""
+    t, v = lightning_wave(amplitude=sign * 1e5, dur_s=20e-6)
+    t_chop = 4e-6
+    s = np.clip(t - t_chop - 1e-7, 0.0, None)
+    v = v * np.clip(1.0 - (t - t_chop) / 1e-7, 0.0, 1.0)
+    v = v - sign * 1.1e5 * np.sin(2 * np.pi * 1.5e6 * s) * np.exp(-s / 2e-6) * (t > t_chop + 1e-7)
+    ws = evaluate_lightning(t, v)
+    assert ws.polarity == ("positive" if sign > 0 else "negative")
+    assert ws.kind == "lightning_chopped"
+    assert ws.chopping_instant_s == pytest.approx(t_chop, abs=50e-9)
+    assert abs(ws.test_voltage_V) == pytest.approx(1e5 * analytic_lightning(68.22e-6, 0.405e-6)[3], rel=5e-3)

@@ -236,3 +236,22 @@ def test_input_errors():
         compare_transfer(f, f, f, bands={"x": (5e5, 1e5)})
     with pytest.raises(ShotcheckError, match="one length"):
         compare_transfer(f, f[:5], f)
+
+
+def test_optional_current_noise_criterion():
+    """Where the current is within its noise, H is noise: ``snr_current`` drops those bins."""
+    rng = np.random.default_rng(21)
+    v = double_exponential(T, 1.0, 2e-6)
+    i = current_exact(T, 1.0, 2e-6)
+    i_noisy = i + 0.02 * np.abs(i).max() * rng.standard_normal(N)
+    loose = transfer_function(v, i_noisy, DT, pretrigger_samples=200)
+    strict = transfer_function(v, i_noisy, DT, pretrigger_samples=200, snr_current=3.0)
+    kept_l, kept_s = np.isfinite(loose.H_S), np.isfinite(strict.H_S)
+    assert kept_s.sum() < kept_l.sum() and not (kept_s & ~kept_l).any()
+    f = loose.frequency_Hz
+    y = admittance_S(1.0 / default_window_tau_s(N, DT) + 2j * np.pi * f)
+    err_l = np.abs(_db(loose.H_S[kept_l] / y[kept_l]))
+    err_s = np.abs(_db(strict.H_S[kept_s] / y[kept_s]))
+    assert np.median(err_s) < 0.5 * np.median(err_l)  # what is kept is the better part
+    # at SNR 3 the error of |H| is typically 20 log10(1 + 1/3) = 2.5 dB (computed)
+    assert np.percentile(err_s, 90) < 3.5

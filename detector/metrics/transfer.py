@@ -104,6 +104,8 @@ def transfer_function(
     pretrigger_samples: int = 0,
     voltage_noise: float | None = None,
     snr: float = 10.0,
+    current_noise: float | None = None,
+    snr_current: float | None = None,
     noise_floor_rel: float = 1e-6,
     n_fft: int | None = None,
 ) -> TransferFunction:
@@ -128,6 +130,14 @@ def transfer_function(
         ``AlignedPair.ref_noise.voltage_mad_pu``; overrides the estimate from ``pretrigger_samples``.
     snr : float
         The estimate is kept where ``|V(f)| >= snr * noise`` [1].
+    current_noise : float, optional
+        Standard deviation of the current noise [unit of ``current``]; estimated like the voltage
+        noise if not given. Used only with ``snr_current``.
+    snr_current : float, optional
+        If given, the estimate is also dropped where ``|I(f)| < snr_current * current noise`` [1]: where
+        the current is within its noise, H is noise whatever the voltage. Off by default (the band is
+        limited by the voltage only); 3 is a reasonable value when the neutral current is weak at high
+        frequencies.
     noise_floor_rel : float
         Lower bound of the voltage noise standard deviation relative to the voltage peak [1] (1e-6, about a
         20-bit recorder), so that noise-free records do not keep rounding errors.
@@ -181,6 +191,16 @@ def transfer_function(
     noise = sigma * math.sqrt(float(np.einsum('i,i->', w, w)))
     vf = spec[0]
     valid = np.abs(vf) >= snr * noise
+    if snr_current is not None:
+        snr_current = check_range("snr_current", snr_current, 0.0, None)
+        if current_noise is not None:
+            sig_i = check_range("current_noise", current_noise, 0.0, None)
+        elif pretrigger_samples >= MIN_NOISE_SAMPLES:
+            sig_i = noise_estimate(i[:pretrigger_samples]).mad
+        else:
+            sig_i = _second_difference_noise(i[-max(n // 5, 16):]).mad
+        sig_i = max(sig_i if np.isfinite(sig_i) else 0.0, noise_floor_rel * float(np.max(np.abs(i))))
+        valid &= np.abs(spec[1]) >= snr_current * sig_i * math.sqrt(float(np.einsum("i,i->", w, w)))
     valid[0] = False
     with np.errstate(divide="ignore", invalid="ignore"):
         h = np.where(valid, spec[1] / np.where(valid, vf, 1.0), np.nan + 0j)

@@ -40,6 +40,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import LogNorm
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
+from matplotlib.ticker import LogLocator
 
 from ._validation import ShotcheckError
 from .metrics.timedomain import time_domain_metrics
@@ -487,6 +488,7 @@ def transfer_figure(verdict: Verdict) -> Figure:
         ax_m.plot([pk.f_test_Hz for pk in matched], [pk.test_dB for pk in matched], linestyle="none",
                   marker="v", color=TEST_STYLE["color"], markersize=5)
     ax_m.set_xscale("log")
+    ax_m.xaxis.set_minor_locator(LogLocator(subs=(2.0, 5.0)))  # fewer minor ticks: faster, still readable
     ax_m.set_xlim(lo, hi)
     _ylim_of(ax_m, f, (r, t), lo, hi)
     ymin, ymax = ax_m.get_ylim()

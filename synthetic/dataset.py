@@ -129,13 +129,13 @@ def _encode(rec: Record) -> dict[str, Any]:
     return {"U": codes[0], "I": codes[1], "lsb": lsbs, "dt": rec.sample_interval_s, "meta": meta}
 
 
-def _decode(U: np.ndarray, I: np.ndarray, lsb: np.ndarray, dt: float, meta_json: str, source: str) -> Record:
+def _decode(U_codes: np.ndarray, I_codes: np.ndarray, lsb: np.ndarray, dt: float, meta_json: str, source: str) -> Record:
     info = json.loads(meta_json)
     return Record(
         start_time_s=info["start_time_s"],
         sample_interval_s=float(dt),
-        channels=(Channel("U", "voltage", U.astype(np.float64) * lsb[0], source_unit="kV"),
-                  Channel("I_N", "current", I.astype(np.float64) * lsb[1], source_unit="A")),
+        channels=(Channel("U", "voltage", U_codes.astype(np.float64) * lsb[0], source_unit="kV"),
+                  Channel("I_N", "current", I_codes.astype(np.float64) * lsb[1], source_unit="A")),
         meta=info["meta"],
         processing=tuple(info["processing"]),
         source=source,

@@ -104,9 +104,8 @@ def run(args: argparse.Namespace) -> int:
         scheduler=args.scheduler, write_comtrade=args.comtrade, progress=not args.no_progress,
     )
     counts = ", ".join(f"{k} {v}" for k, v in sorted(man["event_counts"].items()))
-    print(
+    sys.stderr.write(
         f"wrote {man['n_cases']} pairs in {man['n_shards']} shard(s) to {args.out} "
-        f"({man['elapsed_s']:.1f} s, {man['pairs_per_s']:.2f} pairs/s, {man['runner']}); {counts}",
-        file=sys.stderr,
+        f"({man['elapsed_s']:.1f} s, {man['pairs_per_s']:.2f} pairs/s, {man['runner']}); {counts}\n"
     )
     return 0

@@ -127,3 +127,40 @@ def test_bad_arguments(tmp_path, small_set):
         generate(2, tmp_path / "x", seed=1, design_file=tmp_path / "missing.toml")
     with pytest.raises(ShotcheckError, match="not a data set"):
         list(load_dataset(tmp_path))
+
+
+def test_fault_instant_label_is_on_the_test_record_time_axis():
+    """With every benign difference switched off, the test and the scaled reference agree to within
+    quantisation until the labelled fault instant, and differ clearly right after it."""
+    import dataclasses
+
+    from synthetic.scenario import make_pair, sample_scenario
+
+    sc = sample_scenario(np.random.default_rng(8), "distribution", event="to_ground", seed=8)
+    quiet = {"noise_lsb": 0.0, "interference_amplitude_lsb": 0.0, "baseline_offset_lsb": 0.0, "bits": 14}
+    sc = dataclasses.replace(
+        sc, front_resistor_drift=0.0, tail_resistor_drift=0.0, magnetising_test_H=sc.magnetising_reference_H,
+        test_kind="full", reference_chopped=False, chop_time_test_s=None, chop_time_reference_s=None,
+        recorder_test={**sc.recorder_test, **quiet},
+        recorder_reference={**sc.recorder_test, **quiet, "current_range_scale": 1.0},
+        fault={**sc.fault, "node": 3, "target_phase": "crest", "arc_resistance_ohm": 1.0},
+    )
+    ref, test, lab = make_pair(sc)
+    assert lab["fault_occurred"]
+    k = test.meta["level_percent"] / ref.meta["level_percent"]
+    # put the reference on the test's time axis with the known trigger instants (cubic-free, linear)
+    t_sim = test.times() - test.meta["trigger_time_s"]
+    v_ref = np.interp(t_sim, ref.times() - ref.meta["trigger_time_s"], ref.voltage.samples * k)
+    lsb = 2 * test.meta["voltage_range_V"] / 2**14
+    d = np.abs(test.voltage.samples - v_ref) / lsb
+    tf = lab["fault_time_us"] * 1e-6
+    # skip the first 0.5 us of the front: linear interpolation of a 20-ns-sampled foot errs by ~10 LSB
+    settled = t_sim > 0.5e-6
+    before = settled & (test.times() < tf - 0.05e-6)
+    after = (test.times() > tf + 0.2e-6) & (test.times() < tf + 2e-6)
+    # before the fault: quantisation of both shots (the reference's scaled by the level ratio)
+    assert before.sum() > 20
+    assert d[before].max() < 4.0
+    onset = test.times()[np.argmax(settled & (d > 8.0))]
+    assert tf - 0.05e-6 <= onset <= tf + 0.3e-6
+    assert d[after].max() > 50.0

@@ -40,7 +40,7 @@ from detector.record import Channel, Record
 
 from .scenario import Family, _resolve_family, bundled_families, make_pair, sample_scenario
 
-__all__ = ["generate", "load_dataset", "read_labels", "LABEL_COLUMNS", "SHARD_SIZE", "FORMAT_VERSION"]
+__all__ = ["generate", "load_dataset", "read_labels", "make_case", "LABEL_COLUMNS", "SHARD_SIZE", "FORMAT_VERSION"]
 
 FORMAT_VERSION = 1
 SHARD_SIZE = 200
@@ -431,16 +431,29 @@ def generate(
         "seed": seed,
         "shard_size": SHARD_SIZE,
         "n_shards": shard + (1 if pending else 0),
-        "families": [{"name": f.name, "source": f.source, "values": dict(f.values)} for f in families],
+        "families": [{"name": f.name, "source": f.source, "values": _finite_json(dict(f.values))}
+                     for f in families],
         "event_counts": counts,
         "columns": list(LABEL_COLUMNS),
         "runner": where,
         "elapsed_s": elapsed,
-        "pairs_per_s": n_cases / elapsed if elapsed > 0 else math.inf,
+        "pairs_per_s": n_cases / max(elapsed, 1e-9),
         "comtrade": bool(write_comtrade),
     }
-    (out / "manifest.json").write_text(json.dumps(manifest, indent=2, default=_json_value), encoding="utf-8")
+    (out / "manifest.json").write_text(json.dumps(manifest, indent=2, default=_json_value, allow_nan=False),
+                                       encoding="utf-8")
     return manifest
+
+
+def _finite_json(obj: Any) -> Any:
+    """Non-finite floats as text ('inf'), so manifest.json stays strict JSON."""
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return str(obj)
+    if isinstance(obj, dict):
+        return {k: _finite_json(v) for k, v in obj.items()}
+    if isinstance(obj, list):
+        return [_finite_json(v) for v in obj]
+    return obj
 
 
 def _json_value(v: Any) -> Any:

@@ -584,7 +584,8 @@ def make_pair(scenario: Scenario) -> tuple[Any, Any, dict[str, Any]]:
     test : detector.record.Record
         Full-level shot, with the scenario's fault if any (``'full'`` or ``'chopped'``).
     label : dict
-        ``event``, ``fault_node_a``, ``fault_node_b`` (-1 = ground, -2 = none), ``shorted_turns``,
+        ``event``, ``fault_node_a``, ``fault_node_b`` (-1 = ground, -2 = none; node indices of the test
+        design, in which a turn-to-turn fault's section is split in two), ``shorted_turns``,
         ``position`` (0 line end .. 1 neutral end, NaN for none), ``fault_time_us`` (on the test
         record's own time axis, NaN for none), ``fault_phase`` (front/crest/tail), ``fault_occurred``,
         ``arc_resistance_ohm``, ``discharge_charge_C``, ``breakdown_voltage_V``, and the scenario's

@@ -30,6 +30,7 @@ import datetime as _dt
 import hashlib
 import json
 import os
+import re
 import secrets
 import sqlite3
 import tempfile
@@ -43,7 +44,10 @@ from ._validation import ShotcheckError
 __all__ = ["Store", "StoredFile", "StoredRecord", "SCHEMA_VERSION", "MIGRATIONS", "ALLOWED_SUFFIXES"]
 
 #: Suffixes a stored record file may have (the format is chosen by suffix when it is read back).
-ALLOWED_SUFFIXES = (".cfg", ".dat", ".cff", ".csv", ".json")
+ALLOWED_SUFFIXES = (".cfg", ".dat", ".inf", ".hdr", ".cff", ".csv", ".json")
+
+#: COMTRADE companion files: stored with their .cfg, never a record on their own.
+_COMPANIONS = (".dat", ".inf", ".hdr")
 
 #: Ordered schema migrations; migration k brings the database from version k to k + 1.
 MIGRATIONS: tuple[str, ...] = (
@@ -167,7 +171,7 @@ class StoredRecord:
     @property
     def name(self) -> str:
         """Display name: the client's name of the main file."""
-        main = next((f for f in self.files if f.suffix != ".dat"), self.files[0])
+        main = next((f for f in self.files if f.suffix not in _COMPANIONS), self.files[0])
         return main.name
 
 
@@ -354,10 +358,10 @@ class Store:
                     os.link(src, dest)
                 except OSError:
                     dest.write_bytes(src.read_bytes())
-                if f.suffix != ".dat":
+                if f.suffix not in _COMPANIONS:
                     main = dest
             if main is None:
-                raise ShotcheckError("a .dat file alone is not a record; send its .cfg with it")
+                raise ShotcheckError("a .dat/.inf/.hdr file alone is not a record; send its .cfg with it")
             yield main
 
     # ---- comparisons ----------------------------------------------------------------------------
@@ -469,6 +473,14 @@ class Store:
         r = rows[0]
         return {"id": r["id"], "unit_id": r["unit_id"], "terminal": r["terminal"],
                 "plan": json.loads(r["plan_json"]), "meta": json.loads(r["meta_json"]), "created_at": r["created_at"]}
+
+    def find_sequence(self, meta_key: str, value: str) -> str | None:
+        """Id of the oldest sequence whose metadata has ``meta_key`` equal to ``value``, or None."""
+        if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*", meta_key):
+            raise ShotcheckError(f"metadata key {meta_key!r} must be an identifier")
+        rows = self._query(f"SELECT id FROM sequences WHERE json_extract(meta_json, '$.{meta_key}') = ? "
+                           "ORDER BY created_at LIMIT 1", (value,))
+        return rows[0][0] if rows else None
 
     def find_shot(self, sid: str, record_digest: str) -> dict[str, Any] | None:
         """The shot of a sequence holding this record, or None."""

@@ -27,6 +27,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 from .. import __version__
 from .._validation import ShotcheckError
 from ..store import Store
+from .deps import BodyTooLarge
 from .engine import Engine, InputError
 from .settings import ENV_SETTINGS, Settings
 
@@ -45,10 +46,6 @@ _CODES = {400: "bad_request", 401: "unauthorized", 403: "forbidden", 404: "not_f
 def _error(status: int, code: str, detail: str, field: str | None = None,
            headers: dict[str, str] | None = None) -> JSONResponse:
     return JSONResponse({"error": code, "detail": detail, "field": field}, status_code=status, headers=headers)
-
-
-class _BodyTooLarge(Exception):
-    pass
 
 
 class GuardMiddleware:
@@ -101,7 +98,7 @@ class GuardMiddleware:
             if msg["type"] == "http.request":
                 seen += len(msg.get("body", b""))
                 if seen > self.max_upload_bytes:
-                    raise _BodyTooLarge()
+                    raise BodyTooLarge()
             return msg
 
         async def tracked_send(msg: Any) -> None:
@@ -112,7 +109,7 @@ class GuardMiddleware:
 
         try:
             await self.app(scope, counted_receive, tracked_send)
-        except _BodyTooLarge:
+        except BodyTooLarge:
             if not started:
                 await self._too_large(scope, receive, send)
         finally:

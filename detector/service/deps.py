@@ -12,7 +12,11 @@ from starlette.datastructures import UploadFile
 from .engine import Engine, InputError, files_of_field
 from .settings import Settings
 
-__all__ = ["EngineDep", "SettingsDep", "Writer", "run_in_worker", "read_multipart", "form_text"]
+__all__ = ["BodyTooLarge", "EngineDep", "SettingsDep", "Writer", "run_in_worker", "read_multipart", "form_text"]
+
+
+class BodyTooLarge(Exception):
+    """Raised while reading a request body that passes the upload limit (answered 413)."""
 
 
 def get_settings(request: Request) -> Settings:
@@ -70,23 +74,30 @@ async def read_multipart(request: Request, fields: tuple[str, ...]) -> tuple[dic
                          field="content-type", code="unsupported_media_type", status=415)
     try:
         form = await request.form(max_files=8, max_fields=16)
-    except InputError:
+    except (InputError, BodyTooLarge):
         raise
     except Exception as exc:  # malformed multipart body
         raise InputError(f"malformed multipart body ({type(exc).__name__})", field="body") from None
     out: dict[str, list[tuple[str, bytes]]] = {}
-    for f in fields:
-        items = form.getlist(f)
-        if not items:
-            raise InputError(f"missing file field {f!r}", field=f)
-        files = []
-        for it in items:
-            if not isinstance(it, UploadFile):
-                raise InputError(f"field {f!r} must be a file upload, got text", field=f)
-            data = await it.read()
-            files.append((str(it.filename or f"{f}.bin")[:200], data))
-        out[f] = files_of_field(f, files)
+    try:
+        for f in fields:
+            out[f] = await _field_files(form, f)
+    finally:
+        await form.close()
     return out, form
+
+
+async def _field_files(form: Any, f: str) -> list[tuple[str, bytes]]:
+    items = form.getlist(f)
+    if not items:
+        raise InputError(f"missing file field {f!r}", field=f)
+    files = []
+    for it in items:
+        if not isinstance(it, UploadFile):
+            raise InputError(f"field {f!r} must be a file upload, got text", field=f)
+        data = await it.read()
+        files.append((str(it.filename or f"{f}.bin")[:200], data))
+    return files_of_field(f, files)
 
 
 def form_text(form: Any, name: str, *, required: bool = False, max_len: int = 200) -> str | None:

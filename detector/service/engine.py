@@ -131,7 +131,8 @@ def record_from_json(doc: Any, *, name: str = "record") -> Record:
 def files_of_field(field: str, files: Sequence[tuple[str, bytes]]) -> list[tuple[str, bytes]]:
     """Check that the files sent under one field make one record.
 
-    Accepted: one ``.csv``, one ``.cff``, one ``.json``, or a ``.cfg`` with its ``.dat``.
+    Accepted: one ``.csv``, one ``.cff``, one ``.json``, or a ``.cfg`` with its ``.dat`` (and, if the
+    recorder wrote them, its ``.inf`` and ``.hdr``).
 
     Raises
     ------
@@ -142,9 +143,12 @@ def files_of_field(field: str, files: Sequence[tuple[str, bytes]]) -> list[tuple
         raise InputError("no file sent; send a CSV, a .cff, or a .cfg and its .dat", field=field)
     suffixes = sorted(Path(n).suffix.lower() for n, _ in files)
     for n, data in files:
-        if len(data) == 0:
+        if len(data) == 0 and Path(n).suffix.lower() not in (".inf", ".hdr"):
             raise InputError(f"file {n!r} is empty", field=field)
-    if suffixes in ([".csv"], [".cff"], [".json"], [".cfg", ".dat"]):
+    if len(set(suffixes)) != len(suffixes):
+        raise InputError(f"two files of the same type ({', '.join(suffixes)}) under one field", field=field)
+    main = [s for s in suffixes if s not in (".inf", ".hdr")]
+    if suffixes in ([".csv"], [".cff"], [".json"]) or (main == [".cfg", ".dat"]):
         return list(files)
     if suffixes == [".cfg"]:
         raise InputError("a .cfg file needs its .dat file under the same field", field=field)
@@ -226,7 +230,9 @@ class Engine:
                 except InputError:
                     raise
                 except ShotcheckError as exc:
-                    msg = str(exc).replace(str(path.with_suffix(".dat")), display.rsplit(".", 1)[0] + ".dat")
+                    msg = str(exc)
+                    for comp in (".dat", ".inf", ".hdr"):
+                        msg = msg.replace(str(path.with_suffix(comp)), display.rsplit(".", 1)[0] + comp)
                     msg = msg.replace(str(path), display).replace(str(path.parent), "(upload)")
                     fld = getattr(exc, "field", None)
                     raise InputError(msg, field=f"{field}.{fld}" if fld else field, code="invalid_record") from None

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from detector._validation import ShotcheckError
 from synthetic.digitiser import Digitiser, band_limit, digitise_waveforms, quantise
@@ -169,3 +171,20 @@ def test_bad_settings_and_inputs_raise():
     with pytest.raises(ShotcheckError, match="n_samples"):
         digitise_waveforms(t, np.zeros_like(t), np.zeros_like(t), Digitiser(), rng=np.random.default_rng(0),
                            n_samples=10_000)
+
+
+@given(
+    bits=st.integers(8, 14),
+    full_scale=st.floats(1.0, 1e6),
+    scale=st.floats(0.01, 3.0),
+    seed=st.integers(0, 2**32 - 1),
+)
+def test_quantiser_properties(bits, full_scale, scale, seed):
+    """Every output is a whole code inside the range; unclipped samples err by at most LSB/2
+    (definition of a mid-tread quantiser, IEEE Std 1241-2010 ideal ADC, from memory)."""
+    x = np.random.default_rng(seed).uniform(-1, 1, 500) * full_scale * scale
+    codes, lsb, n_clip = quantise(x, bits, full_scale)
+    assert codes.min() >= -(2 ** (bits - 1)) and codes.max() <= 2 ** (bits - 1) - 1
+    inside = (x / lsb > -(2 ** (bits - 1)) - 0.5) & (x / lsb < 2 ** (bits - 1) - 0.5)
+    assert np.all(np.abs(codes[inside] * lsb - x[inside]) <= lsb / 2 * (1 + 1e-12))
+    assert n_clip == np.count_nonzero(~inside)

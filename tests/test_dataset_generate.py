@@ -91,6 +91,11 @@ def test_other_seed_other_data_and_subset_is_prefix(small_set, tmp_path):
         np.testing.assert_array_equal(r1.voltage.samples, r2.voltage.samples)
         assert {k: v for k, v in l1.items() if k not in ("shard",)} == pytest.approx(
             {k: v for k, v in l2.items() if k not in ("shard",)}, nan_ok=True)
+    other = tmp_path / "seed43"
+    generate(1, other, seed=43, workers=1, progress=False)
+    (_, t_other, _), = list(load_dataset(other))
+    assert t_other.n_samples != a[0][1].n_samples or not np.array_equal(t_other.current.samples,
+                                                                         a[0][1].current.samples)
 
 
 @pytest.mark.slow

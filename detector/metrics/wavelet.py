@@ -53,6 +53,15 @@ class BoundaryEffectWarning(UserWarning):
 def resolve_wavelet(wavelet: str | pywt.Wavelet) -> pywt.Wavelet:
     """Return a discrete :class:`pywt.Wavelet` from a name or a wavelet object.
 
+    Parameters
+    ----------
+    wavelet : str or pywt.Wavelet
+        A name from ``pywt.wavelist(kind="discrete")`` or a wavelet object (returned as it is).
+
+    Returns
+    -------
+    pywt.Wavelet
+
     Raises
     ------
     ShotcheckError

@@ -588,6 +588,8 @@ def make_pair(scenario: Scenario) -> tuple[Any, Any, dict[str, Any]]:
         design, in which a turn-to-turn fault's section is split in two), ``shorted_turns``,
         ``position`` (0 line end .. 1 neutral end, NaN for none), ``fault_time_us`` (on the test
         record's own time axis, NaN for none), ``fault_phase`` (front/crest/tail), ``fault_occurred``,
+        ``chop_time_reference_us``/``chop_time_test_us`` (instant the gap closes, on each record's own
+        time axis; NaN for full waves),
         ``arc_resistance_ohm``, ``discharge_charge_C``, ``breakdown_voltage_V``, and the scenario's
         test and recorder parameters (see ``synthetic.dataset.LABEL_COLUMNS``).
     """
@@ -694,8 +696,10 @@ def make_pair(scenario: Scenario) -> tuple[Any, Any, dict[str, Any]]:
         "test_level_percent": 100.0,
         "reference_kind": ref.meta["shot_kind"],
         "test_kind": sc.test_kind,
-        "chop_time_reference_us": math.nan if chop_r is None else 1e6 * sc.chop_time_reference_s,
-        "chop_time_test_us": math.nan if chop_t is None else 1e6 * sc.chop_time_test_s,
+        # gap closing instants on each record's own time axis (not the IEC 60060-1 Tc, which runs from O1)
+        "chop_time_reference_us": math.nan if chop_r is None else
+        1e6 * (sc.chop_time_reference_s + ref.meta["trigger_time_s"]),
+        "chop_time_test_us": math.nan if chop_t is None else 1e6 * (sc.chop_time_test_s + test.meta["trigger_time_s"]),
         "sample_rate_Hz": fs,
         "bits": sc.recorder_test["bits"],
         "family": sc.family,

@@ -48,7 +48,7 @@ def test_layout_labels_and_balance(small_set):
 
 def test_records_round_trip_and_match_labels(small_set):
     out, _ = small_set
-    n = 0
+    n = n_chopped = 0
     for ref, test, lab in load_dataset(out):
         n += 1
         assert [c.name for c in ref.channels] == ["U", "I_N"] and [c.name for c in test.channels] == ["U", "I_N"]
@@ -66,7 +66,15 @@ def test_records_round_trip_and_match_labels(small_set):
             assert peak == pytest.approx(lab["bil_kV"] * 1e3, rel=0.05)
         if not math.isnan(lab["fault_time_us"]):
             assert 0 < lab["fault_time_us"] < test.duration_s * 1e6
+        for rec, key in ((ref, "chop_time_reference_us"), (test, "chop_time_test_us")):
+            if not math.isnan(lab[key]):
+                # the labelled gap closing instant is where the recorded voltage collapses
+                a = np.abs(rec.voltage.samples)
+                t_half = rec.times()[np.argmax((a < 0.5 * a.max()) & (np.arange(a.size) > np.argmax(a)))]
+                assert lab[key] * 1e-6 < t_half < lab[key] * 1e-6 + 1e-6
+                n_chopped += 1
     assert n == N_SMALL
+    assert n_chopped >= 1
 
 
 @pytest.mark.slow

@@ -1,9 +1,9 @@
 """Speed of pre-processing and of each comparison metric on one 20 000-sample pair.
 
 DESIGN.md section 7: the whole compare of a 20 000-sample pair must take under 30 ms (median), so each
-metric should take a few milliseconds. The assertion allows a 3x margin over the per-step targets so that
-a busy shared machine does not fail it; the measured medians are printed (run with ``-s``).
-``SHOTCHECK_BENCH_FULL=1`` repeats more often.
+metric should take a few milliseconds. Wall-clock and CPU-time medians are printed (run with ``-s``);
+the assertion is on CPU time with a 3x margin over the per-step targets, because on the shared 2-core
+machine the wall clock mostly measures the other jobs. ``SHOTCHECK_BENCH_FULL=1`` repeats more often.
 """
 
 from __future__ import annotations
@@ -39,14 +39,16 @@ TARGET_MS = {
 }
 
 
-def _median_ms(fn) -> float:
+def _median_ms(fn) -> tuple[float, float]:
+    """Median wall-clock and CPU time of one call [ms]."""
     fn()  # warm caches (wavelet offsets, FFT plans)
-    times = []
+    wall, cpu = [], []
     for _ in range(REPEATS):
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         fn()
-        times.append(time.perf_counter() - t0)
-    return 1e3 * statistics.median(times)
+        wall.append(time.perf_counter() - t0)
+        cpu.append(time.process_time() - c0)
+    return 1e3 * statistics.median(wall), 1e3 * statistics.median(cpu)
 
 
 def test_bench_metrics_20000_samples():
@@ -81,7 +83,7 @@ def test_bench_metrics_20000_samples():
     }
     measured = {name: _median_ms(fn) for name, fn in steps.items()}
     print(f"\n[bench] metrics on a {pair.n_samples}-sample pair, median of {REPEATS}:")
-    for name, ms in measured.items():
-        print(f"[bench]   {name:26s} {ms:7.2f} ms   (target {TARGET_MS[name]:.1f} ms)")
-    for name, ms in measured.items():
-        assert ms < 3 * TARGET_MS[name], f"{name}: {ms:.2f} ms > 3 x {TARGET_MS[name]} ms"
+    for name, (wall, cpu) in measured.items():
+        print(f"[bench]   {name:26s} wall {wall:7.2f} ms  cpu {cpu:7.2f} ms   (target {TARGET_MS[name]:.1f} ms)")
+    for name, (_, cpu) in measured.items():
+        assert cpu < 3 * TARGET_MS[name], f"{name}: {cpu:.2f} ms CPU > 3 x {TARGET_MS[name]} ms"

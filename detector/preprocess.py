@@ -258,9 +258,7 @@ def clipping_warning(samples: np.ndarray, label: str, *, unit: str = "") -> str 
     the codes just below, from counting.
     """
     x = np.asarray(samples, dtype=np.float64)
-    d = np.abs(np.diff(x))
-    nz = d[d > 0.0]
-    lsb = float(nz.min()) if nz.size else 0.0  # the quantisation step of a digitised record
+    lsb = None
     for value, name, sign in ((x.max(), "maximum", 1.0), (x.min(), "minimum", -1.0)):
         if value == 0.0:
             continue
@@ -272,6 +270,10 @@ def clipping_warning(samples: np.ndarray, label: str, *, unit: str = "") -> str 
             continue
         # a smooth crest spends about as long within the two codes below its top as at the top; a
         # clipped signal sits at the limit far longer than it takes to pass the codes below it
+        if lsb is None:
+            d = np.abs(np.diff(x))
+            nz = d[d > 0.0]
+            lsb = float(nz.min()) if nz.size else 0.0  # the quantisation step of a digitised record
         gap = sign * (value - x)
         n_near = int(np.count_nonzero((gap > 0.0) & (gap <= 2.0 * lsb)))
         if int(on.sum()) > CLIP_NEAR_RATIO * n_near:

@@ -221,9 +221,15 @@ class Engine:
                             doc = json.loads(path.read_bytes())
                         except (ValueError, UnicodeDecodeError) as exc:
                             raise InputError(f"{display}: not valid JSON ({exc})", field=field) from None
-                        r = record_from_json(doc, name=field)
-                        if voltage_channel is not None or current_channel is not None:
-                            r = r.select(voltage_channel, current_channel)
+                        try:
+                            r = record_from_json(doc, name=field)
+                            if voltage_channel is not None or current_channel is not None:
+                                r = r.select(voltage_channel, current_channel)
+                        except InputError:
+                            raise
+                        except ShotcheckError as exc:
+                            raise InputError(str(exc), field=getattr(exc, "field", None) or field,
+                                             code="invalid_record") from None
                         return r
                     r = read(path, voltage_channel=voltage_channel, current_channel=current_channel)
                     return r.replace(source=display)

@@ -1,0 +1,117 @@
+"""Test sequences over HTTP: reference choice, comparisons of every full-level shot, closing shot, summary."""
+
+from __future__ import annotations
+
+import pytest
+
+import svc_records
+from conftest import AUTH
+
+
+def _new(client, **body):
+    r = client.post("/v1/sequences", json={"unit_id": "TX-0000-SVC", "terminal": "2V", **body}, headers=AUTH)
+    assert r.status_code == 201, r.text
+    return r.json()["id"]
+
+
+def _shot(client, sid, paths, kind, level):
+    return client.post(f"/v1/sequences/{sid}/shots", files=svc_records.upload("record", paths),
+                       data={"kind": kind, "level_percent": str(level)}, headers=AUTH)
+
+
+@pytest.fixture(scope="module")
+def iec_files(tmp_path_factory):
+    """The six shots of the default order, as files (levels as the plan says)."""
+    d = tmp_path_factory.mktemp("iec")
+    w, mk = svc_records.write_record, svc_records.impulse_record
+    return [
+        (w(mk(8000, level_percent=75.0, seed=21), d / "01_reduced_75.csv"), "reduced", 75),
+        (w(mk(8000, level_percent=100.0, seed=22), d / "02_full_100.cfg", data_format="BINARY"), "full", 100),
+        (w(mk(8000, level_percent=115.0, kind="chopped", seed=23), d / "03_chopped_115.cff"), "chopped", 115),
+        (w(mk(8000, level_percent=115.0, kind="chopped", seed=24), d / "04_chopped_115.cff"), "chopped", 115),
+        (w(mk(8000, level_percent=100.0, seed=25), d / "05_full_100.cff"), "full", 100),
+        (w(mk(8000, level_percent=75.0, seed=26), d / "06_reduced_75.csv"), "reduced", 75),
+    ]
+
+
+def test_iec_sequence_roles_comparisons_and_summary(client, iec_files):
+    sid = _new(client)
+    shots = []
+    for paths, kind, level in iec_files:
+        r = _shot(client, sid, paths, kind, level)
+        assert r.status_code == 201, r.text
+        shots.append(r.json())
+    assert [s["role"] for s in shots] == ["reference", "test", "test", "test", "test", "closing"]
+    assert shots[0]["comparison"] is None
+    ref_digest_names = set()
+    for s in shots[1:]:
+        c = client.get(f"/v1/comparisons/{s['comparison']['id']}").json()
+        ref_digest_names.add(c["reference_name"])  # every comparison is against the opening shot
+        assert c["test_name"] == s["name"]
+    assert ref_digest_names == {"01_reduced_75.csv"}
+    assert [s["waveshape"]["kind"] for s in shots] == ["lightning_full", "lightning_full", "lightning_chopped",
+                                                       "lightning_chopped", "lightning_full", "lightning_full"]
+    assert all(not s["warnings"] for s in shots), [s["warnings"] for s in shots]
+    view = client.get(f"/v1/sequences/{sid}").json()
+    summ = view["summary"]
+    assert summ["status"] == "complete" and summ["shots_received"] == 6 and summ["deviations"] == []
+    faulted = {s["id"] for s in shots[1:] if s["comparison"]["verdict"]["fault_indicated"]}
+    assert set(summ["faulted_shots"]) == faulted
+    assert summ["fault_indicated"] == bool(faulted)
+    assert summ["lasting_change"] == shots[5]["comparison"]["verdict"]["fault_indicated"]
+
+
+def test_full_level_shot_before_the_reference_is_409(client, iec_files):
+    sid = _new(client)
+    r = _shot(client, sid, iec_files[1][0], "full", 100)
+    assert r.status_code == 409 and r.json()["error"] == "no_reference"
+
+
+def test_declared_kind_contradicted_by_the_record_is_422(client, iec_files):
+    sid = _new(client)
+    assert _shot(client, sid, iec_files[0][0], "reduced", 75).status_code == 201
+    r = _shot(client, sid, iec_files[1][0], "chopped", 115)  # a full wave declared as chopped
+    assert r.status_code == 422 and r.json()["field"] == "kind"
+    assert "chopped" in r.json()["detail"] and "full" in r.json()["detail"]
+    r = _shot(client, sid, iec_files[2][0], "full", 100)  # a chopped wave declared as full
+    assert r.status_code == 422 and r.json()["field"] == "kind"
+    assert len(client.get(f"/v1/sequences/{sid}").json()["shots"]) == 1  # nothing half-added
+
+
+def test_reposting_a_shot_is_idempotent(client, iec_files):
+    sid = _new(client)
+    a = _shot(client, sid, iec_files[0][0], "reduced", 75)
+    b = _shot(client, sid, iec_files[0][0], "reduced", 75)
+    assert (a.status_code, b.status_code) == (201, 200) and a.json()["id"] == b.json()["id"]
+    assert len(client.get(f"/v1/sequences/{sid}").json()["shots"]) == 1
+
+
+def test_declared_level_that_the_voltage_contradicts_gives_a_warning(client, iec_files):
+    sid = _new(client)
+    _shot(client, sid, iec_files[0][0], "reduced", 75)
+    # the 100 % record declared at 115 %: the measured ratio 100/75 departs from 115/75 by 13 %
+    r = _shot(client, sid, iec_files[4][0], "full", 115)
+    assert r.status_code == 201
+    assert any("level ratio" in w for w in r.json()["warnings"])
+
+
+def test_custom_plan_and_deviations(client, iec_files):
+    sid = _new(client, plan=[{"kind": "reduced", "level_percent": 75}, {"kind": "chopped", "level_percent": 115}])
+    _shot(client, sid, iec_files[0][0], "reduced", 75)
+    _shot(client, sid, iec_files[1][0], "full", 100)
+    summ = client.get(f"/v1/sequences/{sid}").json()["summary"]
+    assert summ["status"] == "complete"
+    assert summ["deviations"] == ["shot 2: full at 100 %, the plan has chopped at 115 %"]
+
+
+@pytest.mark.parametrize("body, field", [
+    ({"unit_id": "", "terminal": "1U"}, "unit_id"),
+    ({"unit_id": "A", "terminal": "1U", "plan": "cigre"}, "plan"),
+    ({"unit_id": "A", "terminal": "1U", "plan": [{"kind": "full", "level_percent": 100}]}, "plan"),
+    ({"unit_id": "A", "terminal": "1U", "plan": [{"kind": "reduced", "level_percent": 120}]}, "plan"),
+    ({"unit_id": "A", "terminal": "1U", "extra": 1}, "extra"),
+])
+def test_bad_sequence_bodies_are_422(client, body, field):
+    r = client.post("/v1/sequences", json=body, headers=AUTH)
+    assert r.status_code == 422, r.text
+    assert r.json()["field"].startswith(field)

@@ -160,3 +160,15 @@ def test_chopped_test_against_full_reference():
 def test_noise_floor_adds_in_power():
     nf = noise_floor((3.0, 4.0), (4.0, 3.0))
     assert nf == (5.0, 5.0)
+
+
+def test_noise_free_records_use_the_sigma_floor():
+    """Synthetic records without noise: sigma falls back to 1e-5 of the reference peak, numbers stay
+    finite, a healthy pair shows no onset and a changed winding does."""
+    ref = make_record(amplitude_V=300e3)
+    healthy = time_domain_metrics(align_pair(ref, make_record(amplitude_V=600e3)))
+    assert healthy.voltage_noise.mad == 0.0
+    assert healthy.voltage_sigma_pu == pytest.approx(1e-5 * np.abs(align_pair(ref, ref).ref_voltage_pu).max())
+    assert np.isfinite(healthy.current["all"].max_sigma) and healthy.onset_s is None
+    faulty = time_domain_metrics(align_pair(ref, make_record(amplitude_V=600e3, branches=FAULTY)))
+    assert faulty.current_onset_s is not None and faulty.current["all"].max_sigma > 1e3

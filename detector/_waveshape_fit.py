@@ -143,16 +143,28 @@ def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, orig
     # unbounded: the log time constants keep them positive, and trf without bounds is much quicker
     if not np.all(np.isfinite(x0)):
         raise failed
+    def sane(par: np.ndarray) -> bool:
+        return bool(np.all(np.isfinite(par)) and 1e-3 < abs(par[0]) < 1e3 and -300 < par[1] < 300
+                    and -300 < par[2] < 300)
+
+    def robust(start: np.ndarray) -> np.ndarray:
+        return optimize.least_squares(fun, start, jac=jac, loss="soft_l1", f_scale=f_scale, x_scale="jac",
+                                      xtol=1e-9, ftol=1e-9, gtol=1e-9, max_nfev=200).x
+
     try:
         with np.errstate(all="ignore"):  # overflow to inf / 0 * inf = nan on wild trial steps is rejected
-            res = optimize.least_squares(fun, x0, jac=jac, loss="soft_l1", f_scale=f_scale, x_scale="jac",
-                                         xtol=1e-9, ftol=1e-9, gtol=1e-9, max_nfev=200)
+            # a plain least-squares start (MINPACK, quick), then the robust loss from there; if that
+            # wanders off (little data, e.g. chopped on the front), the robust fit from the start values
+            first = optimize.least_squares(fun, x0, jac=jac, method="lm", x_scale="jac", xtol=1e-6,
+                                           ftol=1e-6, max_nfev=100).x
+            best = robust(first) if sane(first) else None
+            if best is None or not sane(best):
+                best = robust(x0)
     except (ValueError, OverflowError, FloatingPointError, np.linalg.LinAlgError):
         raise failed from None
-    if not np.all(np.isfinite(res.x)) or not 1e-3 < abs(res.x[0]) < 1e3 or not -300 < res.x[1] < 300 \
-            or not -300 < res.x[2] < 300:
+    if not sane(best):
         raise failed
-    a, l1, l2, o = res.x
+    a, l1, l2, o = best
     t1, t2 = math.exp(l1) * scale * p.dt, math.exp(l2) * scale * p.dt
     if t2 > t1:  # the same curve with the constants swapped
         t1, t2, a = t2, t1, -a

@@ -188,3 +188,23 @@ def test_quantiser_properties(bits, full_scale, scale, seed):
     inside = (x / lsb > -(2 ** (bits - 1)) - 0.5) & (x / lsb < 2 ** (bits - 1) - 0.5)
     assert np.all(np.abs(codes[inside] * lsb - x[inside]) <= lsb / 2 * (1 + 1e-12))
     assert n_clip == np.count_nonzero(~inside)
+
+
+def test_cubic_interpolation_is_exact_for_cubics_and_fourth_order_accurate():
+    # a 4-point Lagrange interpolant reproduces polynomials up to degree 3 exactly and errs by
+    # O(h^4) for smooth signals (Lagrange four-point formula, Abramowitz & Stegun ch. 25; from memory)
+    from synthetic.digitiser import interpolate_uniform
+
+    tg = np.arange(50) * 0.1
+    tq = np.random.default_rng(0).uniform(0, 4.9, 300)
+    poly = 0.3 * tg**3 - tg**2 + 2 * tg - 1
+    np.testing.assert_allclose(interpolate_uniform(poly, 0.0, 0.1, tq), 0.3 * tq**3 - tq**2 + 2 * tq - 1,
+                               rtol=1e-10, atol=1e-10)
+    errs = []
+    for h in (0.1, 0.05):
+        tg = np.arange(0, 10 + h / 2, h)
+        errs.append(np.abs(interpolate_uniform(np.sin(tg), 0.0, h, tq) - np.sin(tq)).max())
+    assert errs[0] / errs[1] == pytest.approx(16, rel=0.25)
+    # two channels at once
+    both = interpolate_uniform(np.stack([np.sin(tg), np.cos(tg)], axis=1), 0.0, 0.05, tq)
+    assert both.shape == (300, 2)

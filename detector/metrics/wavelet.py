@@ -222,15 +222,28 @@ class WaveletDifference:
     level: int
 
 
-def _mirror_pad(x: np.ndarray, n_end: int, n_start: int) -> np.ndarray:
-    """Append mirror images of the record's end and start, so its periodic extension is continuous.
+def _extend(x: np.ndarray, n_ext: int, m: int) -> np.ndarray:
+    """``n_ext`` samples continuing ``x`` past its last sample: the straight line fitted to the last ``m``
+    samples plus the mirror image of their residuals about the last sample."""
+    m = max(2, min(m, x.size))
+    t = np.arange(m, dtype=np.float64)
+    slope, icpt = np.polyfit(t, x[-m:], 1)
+    resid = x[-m:] - (slope * t + icpt)
+    mirrored = np.pad(resid, (0, n_ext), mode="reflect")[m:] if m > 1 else np.zeros(n_ext)
+    return slope * (m - 1 + np.arange(1, n_ext + 1)) + icpt + mirrored
 
-    The result is ``[x, x reflected at its end (n_end), x reflected at its start (n_start)]``: both
-    record ends meet their own reflections (no jump, same noise statistics, a slow offset continues), and
-    the one jump, between the two reflections, lies ``n_end`` samples away from the record.
+
+def _mirror_pad(x: np.ndarray, n_end: int, n_start: int, m: int) -> np.ndarray:
+    """Pad for a periodic transform: ``[x, continuation past the end, continuation before the start]``.
+
+    Each continuation is the local straight-line trend (fitted to ``m`` samples, so its slope carries
+    little noise) plus the mirrored residuals: value and trend run on through both record ends, white
+    noise keeps its statistics, and the one jump, between the two continuations, lies ``n_end`` samples
+    away from the record.
     """
-    xp = np.pad(x, (n_start, n_end), mode="symmetric")
-    return np.roll(xp, -n_start)
+    end = _extend(x, n_end, m)
+    start = _extend(x[::-1], n_start, m)[::-1]
+    return np.concatenate((x, end, start))
 
 
 def _swt_rows(x: np.ndarray, w: pywt.Wavelet, level: int) -> np.ndarray:
@@ -241,7 +254,8 @@ def _swt_rows(x: np.ndarray, w: pywt.Wavelet, level: int) -> np.ndarray:
     half_support = (w.dec_len - 1) * 2 ** (level - 1)
     n_pad = int(math.ceil((n + 2 * half_support + max(abs(o) for o in offs) + 32) / block) * block)
     n_end = (n_pad - n) // 2
-    coeffs = pywt.swt(_mirror_pad(x, n_end, n_pad - n - n_end), w, level=level, trim_approx=True)
+    xp = _mirror_pad(x, n_end, n_pad - n - n_end, m=half_support)
+    coeffs = pywt.swt(xp, w, level=level, trim_approx=True)
     rows = [coeffs[k] for k in range(level, 0, -1)] + [coeffs[0]]
     out = np.empty((level + 1, n))
     for j, (c, off) in enumerate(zip(rows, offs, strict=True)):  # loop over levels: index k holds
@@ -327,8 +341,9 @@ def wavelet_difference(
     mode : str
         Signal extension mode of the discrete transform (``pywt.Modes.modes``), which gives the per-level
         energies and noise for both methods; the stationary transform is periodic and pads the record
-        with mirror images of its two ends instead (at least the wavelet's half support at the deepest
-        level on each side), so neither end sees a jump. With ``method="dwt"`` prefer
+        with continuations of its two ends instead (local straight-line trend plus mirrored residuals, at
+        least the wavelet's half support at the deepest level on each side), so neither end sees a jump
+        or a kink. With ``method="dwt"`` prefer
         ``mode="symmetric"``: periodization joins the two record ends, and a slow benign offset in the
         difference then appears as a step at the end of the deep levels.
     level : int, optional

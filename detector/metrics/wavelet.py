@@ -343,8 +343,7 @@ def wavelet_difference(
         energies and noise for both methods; the stationary transform is periodic and pads the record
         with continuations of its two ends instead (local straight-line trend plus mirrored residuals, at
         least the wavelet's half support at the deepest level on each side), so neither end sees a jump
-        or a kink. With ``method="dwt"`` prefer
-        ``mode="symmetric"``: periodization joins the two record ends, and a slow benign offset in the
+        or a kink. With ``method="dwt"`` prefer ``mode="symmetric"``: periodization joins the two record ends, and a slow benign offset in the
         difference then appears as a step at the end of the deep levels.
     level : int, optional
         Number of levels; default ``min(8, pywt.dwt_max_level(n, filter length))``.
@@ -375,16 +374,20 @@ def wavelet_difference(
 
     Notes
     -----
-    Noise per row: ``sigma_j = median(|d_j - median(d_j)|) / 0.6745`` of the coefficient differences
-    ``d_j`` over the record (Donoho & Johnstone 1994). The median ignores the few coefficients a fault
+    Noise per row: ``sigma_j = median(|d_j|) / 0.6745`` of the discrete-transform coefficient
+    differences ``d_j`` of detail level j (their median is zero for noise), and the MAD about the median
+    for the approximation (Donoho & Johnstone 1994). The median ignores the few coefficients a fault
     changes, so sparse events (discharges, a breakdown) stand out; a change that spreads over the whole
-    record (a shifted resonance) raises the MAD too, so judge it by ``energy_ratio``. The same holds
-    for the approximation row, whose difference is dominated by small level-normalisation errors (a
+    record (a shifted resonance) raises the MAD too, so judge it by ``energy_ratio``. The same holds for
+    the approximation row, whose difference is dominated by small level-normalisation errors (a
     test-voltage value off by 0.05 % leaves 0.05 % of the current there): its ``peak_sigma`` is not a
-    noise-referenced quantity. Stationary
-    coefficients are shifted so that each is centred on the sample it describes; the fault time
-    of a coarse level can precede the event by half the wavelet support at that level, which is why
-    ``fault_time_s`` is read from the finest significant levels only.
+    noise-referenced quantity.
+
+    Stationary coefficients are shifted so that each is centred on the sample it describes (offsets
+    from the response to a unit impulse); discrete coefficients are mapped the same way. The time of a
+    row is the largest coefficient within one wavelet support after the first threshold crossing; a
+    coarse row blurs the instant over its support, which is why ``fault_time_s`` is read from the
+    finest significant rows only.
 
     References
     ----------

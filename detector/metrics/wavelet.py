@@ -223,8 +223,11 @@ class WaveletDifference:
 
 
 def _extend(x: np.ndarray, n_ext: int, m: int) -> np.ndarray:
-    """``n_ext`` samples continuing ``x`` past its last sample: the straight line fitted to the last ``m``
-    samples plus the mirror image of their residuals about the last sample."""
+    """Continue ``x`` past its last sample by ``n_ext`` samples.
+
+    The continuation is the straight line fitted to the last ``m`` samples plus the mirror image of their
+    residuals about the last sample.
+    """
     m = max(2, min(m, x.size))
     t = np.arange(m, dtype=np.float64)
     slope, icpt = np.polyfit(t, x[-m:], 1)

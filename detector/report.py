@@ -146,7 +146,7 @@ def _esc(x: Any) -> str:
 
 
 def _num(x: Any, fmt: str = ".4g", unit: str = "") -> str:
-    """Number as text, '—' when missing or not finite."""
+    """Format a number as text, '—' when missing or not finite."""
     if x is None or isinstance(x, bool):
         return "—" if x is None else str(x)
     try:
@@ -407,7 +407,7 @@ def render_html(
     figs: Mapping[str, Figure] | None = None,
     dpi: float = 100.0,
 ) -> str:
-    """The report of one comparison as a self-contained HTML document.
+    """Render the report of one comparison as a self-contained HTML document.
 
     Parameters
     ----------

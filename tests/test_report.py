@@ -16,7 +16,6 @@ import re
 import shutil
 import subprocess
 import warnings
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -27,7 +26,7 @@ from matplotlib.patches import Rectangle
 from detector._validation import ShotcheckError
 from detector.compare import DEFAULT_MODEL_PATH, compare, default_model
 from detector.data import example_record
-from detector.features import SCHEMA_VERSION, FEATURE_NAMES, extract
+from detector.features import FEATURE_NAMES, SCHEMA_VERSION, extract
 from detector.figures import FIGURE_NAMES, K_SIGMA, figures, format_frequency
 from detector.metrics.timedomain import time_domain_metrics
 from detector.model import FaultClassifier, LocationRegressor, ShotModel
@@ -439,3 +438,20 @@ def test_write_artifacts_for_review(fault_case, chopped_verdict, artifacts_dir):
                        check=True, timeout=120, capture_output=True)
     assert shot.is_file() and shot.stat().st_size > 10_000
     assert math.isfinite(v.fault_time_s)
+
+
+def test_plot_envelope_keeps_every_extreme_in_time_order():
+    from detector.figures import _envelope
+
+    rng = np.random.default_rng(5)
+    t = np.arange(20_003) * 1e-2
+    y = rng.normal(size=t.size)
+    te, ye = _envelope(t, y, n_bins=1000)
+    assert te.size < 2 * 1000 + 10
+    assert np.all(np.diff(te) > 0)
+    np.testing.assert_array_equal(ye, np.interp(te, t, y))  # only real samples, none invented
+    m = t.size // 1000
+    blocks = y[: 1000 * m].reshape(1000, m)
+    assert set(blocks.max(axis=1)) <= set(ye) and set(blocks.min(axis=1)) <= set(ye)
+    t_short = t[:100]
+    assert _envelope(t_short, y[:100], n_bins=1000)[0] is t_short

@@ -69,6 +69,12 @@ def _fmt(value: Any, digits: int = 3) -> str:
     return str(value)
 
 
+def _tc_us(d: dict[str, Any]) -> float | None:
+    """IEC time to chopping Tc [us] from the tolerance entry (``chopping_time_us`` is the instant)."""
+    entry = (d.get("tolerance") or {}).get("time_to_chopping_us")
+    return entry.get("value") if isinstance(entry, dict) else None
+
+
 def waveshape_table(d: dict[str, Any], source: str) -> str:
     """Readable table of a wave-shape result dictionary (the JSON of ``shotcheck waveshape --json``)."""
     rows = [
@@ -81,7 +87,8 @@ def waveshape_table(d: dict[str, Any], source: str) -> str:
         ("time to peak Tp", d.get("time_to_peak_us"), "us"),
         ("virtual origin O1", d.get("virtual_origin_us"), "us"),
         ("time to half-value T2", d.get("time_to_half_us"), "us"),
-        ("time to chopping Tc", d.get("chopping_time_us"), "us"),
+        ("time to chopping Tc", _tc_us(d), "us"),
+        ("instant of chopping", d.get("chopping_time_us"), "us"),
         ("within tolerance", d.get("within_tolerance"), ""),
     ]
     lines = [f"Wave shape of {source} (IEC 60060-1)"]
@@ -90,7 +97,7 @@ def waveshape_table(d: dict[str, Any], source: str) -> str:
             continue
         lines.append(f"  {name:<24}{_fmt(value):>12} {unit}".rstrip())
     tol = d.get("tolerance") or {}
-    failed = [k for k, v in tol.items() if isinstance(v, dict) and v.get("ok") is False]
+    failed = [k for k, v in tol.items() if isinstance(v, dict) and v.get("pass") is False]
     if failed:
         lines.append("  outside tolerance: " + ", ".join(failed))
     for w in d.get("warnings") or []:
@@ -112,16 +119,130 @@ def _cmd_waveshape(args: argparse.Namespace) -> int:
     else:
         raise ShotcheckError("waveshape needs a RECORD file (or --example full|chopped)")
     kwargs: dict[str, Any] = {}
-    if args.test_voltage_kV is not None:
-        kwargs["specified_test_voltage_V"] = args.test_voltage_kV * 1e3
     if args.kind is not None:
         kwargs["kind"] = args.kind
-    result = evaluate_waveshape(record, **kwargs).to_dict()
+    shape = evaluate_waveshape(record, **kwargs)
+    if args.test_voltage_kV is not None:
+        # the option is a magnitude; a negative value insists on that polarity
+        spec = args.test_voltage_kV * 1e3
+        if spec > 0 and shape.test_voltage_V < 0:
+            spec = -spec
+        shape = evaluate_waveshape(record, specified_test_voltage_V=spec, **kwargs)
+    result = shape.to_dict()
     if args.json:
         print(dumps(result))
     else:
         print(waveshape_table(result, source))
     return 0
+
+
+# ---------------------------------------------------------------------------------------- compare
+def verdict_text(d: dict[str, Any], reference: str, test: str) -> str:
+    """Readable summary of a verdict dictionary (the JSON of ``shotcheck compare --json``)."""
+    lines = [f"Reference: {reference}", f"Test:      {test}"]
+    if d["fault_indicated"]:
+        lines.append(f"VERDICT: FAULT INDICATED - {d['event'].replace('_', '-')}")
+    else:
+        lines.append("VERDICT: no fault indicated")
+    probs = ", ".join(f"{k} {v:.2f}" for k, v in d["probabilities"].items())
+    lines.append(f"  probabilities: {probs}")
+    if d.get("fault_time_us") is not None:
+        lines.append(f"  fault instant: {d['fault_time_us']:.2f} us on the test record's time axis")
+    if d.get("location") is not None:
+        lines.append(f"  location: {d['location']:.2f} of the winding length from the line end")
+    if d.get("exceeded"):
+        lines.append("  metrics above their thresholds:")
+        for e in d["exceeded"]:
+            lines.append(f"    {e['metric']:<24} {e['value']:.4g} > {e['threshold']:.4g} ({e['ratio']:.1f} x)  "
+                         f"{e['description']}")
+    for w in d.get("warnings") or []:
+        lines.append(f"  warning: {w}")
+    lines.append("  Advisory second opinion only: the responsible engineer decides.")
+    return "\n".join(lines)
+
+
+def _cmd_compare(args: argparse.Namespace) -> int:
+    from .compare import compare
+
+    ref = _load_record(args, args.reference)
+    test = _load_record(args, args.test)
+    verdict = compare(ref, test, model=args.model)
+    d = verdict.to_dict()
+    if args.report:
+        from .report import write_report
+
+        write_report(verdict, args.report, reference_name=args.reference, test_name=args.test)
+    if args.json:
+        print(dumps(d))
+    else:
+        print(verdict_text(d, args.reference, args.test))
+        if args.report:
+            print(f"report written to {args.report}")
+    return 1 if d["fault_indicated"] else 0
+
+
+def _cmd_train(args: argparse.Namespace) -> int:
+    from .model import save_model
+    from .training import extract_dataset, report_text, save_report, train
+
+    data = extract_dataset(args.data, workers=args.workers, progress=not args.no_progress)
+    model, rep = train(data, false_alarm_rate_target=args.false_alarm_rate, seed=args.seed,
+                       cv_folds=args.cv_folds, description=args.description or f"data set {args.data}")
+    save_model(model, args.out)
+    print(f"cross-validated figures (grouped by winding design, {args.cv_folds} folds):")
+    print(report_text(rep))
+    print(f"model written to {args.out}")
+    if args.report_json:
+        save_report(rep, args.report_json)
+    return 0
+
+
+def _cmd_evaluate(args: argparse.Namespace) -> int:
+    from .compare import default_model
+    from .training import evaluate, extract_dataset, report_text, save_report
+
+    model = default_model(args.model)
+    data = extract_dataset(args.data, workers=args.workers, progress=not args.no_progress)
+    rep = evaluate(model, data)
+    print(report_text(rep))
+    if args.json_out:
+        save_report(rep, args.json_out)
+    if args.roc:
+        from .training import plot_roc
+
+        plot_roc(rep, args.roc)
+        print(f"ROC figure written to {args.roc}")
+    return 0
+
+
+def _cmd_calibrate(args: argparse.Namespace) -> int:
+    from .compare import default_model
+    from .model import save_model
+    from .scoring import calibrate_thresholds, false_alarm_rate
+    from .training import extract_dataset
+
+    model = default_model(args.model)
+    data = extract_dataset(args.data, workers=args.workers, progress=not args.no_progress)
+    benign = data.X[data.event == "none"]
+    thr = calibrate_thresholds(benign, false_alarm_rate=args.false_alarm_rate)
+    model.thresholds = thr
+    card = dict(model.card)
+    card["thresholds_calibrated_on"] = f"{args.data} ({benign.shape[0]} benign pairs)"
+    card["false_alarm_rate_target"] = args.false_alarm_rate
+    model.card = card
+    save_model(model, args.out)
+    print(f"thresholds calibrated on {benign.shape[0]} benign pairs to a false-alarm rate of "
+          f"{args.false_alarm_rate:g} (achieved {false_alarm_rate(benign, thr):.4f}):")
+    for k, v in thr.items():
+        print(f"  {k:<24} {v:.4g}")
+    print(f"model written to {args.out}")
+    return 0
+
+
+def _cmd_demo(args: argparse.Namespace) -> int:
+    from .demo import run_demo
+
+    return run_demo(out_dir=args.out, json_output=args.json)
 
 
 # ---------------------------------------------------------------------------------------- parser
@@ -151,29 +272,85 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--kind", choices=("lightning_full", "lightning_chopped", "switching"), default=None,
                    help="wave kind (default: detected from the record)")
     p.add_argument("--test-voltage-kV", type=float, default=None, dest="test_voltage_kV",
-                   help="specified test voltage in kV, for the +/-3 %% tolerance check")
+                   help="specified test voltage in kV (magnitude; the record's polarity is taken), for the "
+                   "+/-3 %% tolerance check")
     _add_channel_options(p)
     p.set_defaults(func=_cmd_waveshape)
 
-    for name, module in _OPTIONAL_VERBS:
-        _add_optional_verb(sub, name, module)
-    return parser
+    p = sub.add_parser("compare", help="compare a test shot with its reference shot: fault or not, which, "
+                       "when, where", description="Compare a full-level (full or chopped) test record with the "
+                       "reduced-level reference record of the same terminal. Exit status 0: no fault indicated, "
+                       "1: fault indicated, 2: input error.")
+    p.add_argument("reference", metavar="REFERENCE", help="reduced-level full wave (COMTRADE or CSV)")
+    p.add_argument("test", metavar="TEST", help="full-level full or chopped wave (COMTRADE or CSV)")
+    p.add_argument("--json", action="store_true", help="print the verdict as JSON")
+    p.add_argument("--report", metavar="PATH", default=None, help="write a self-contained HTML report")
+    p.add_argument("--model", metavar="PATH", default=None, help="model file (default: the bundled model)")
+    _add_channel_options(p)
+    p.set_defaults(func=_cmd_compare)
 
+    p = sub.add_parser("demo", help="simulate an invented unit with a turn-to-turn fault, compare, write a report",
+                       description="Run the whole job on a simulated example: reduced-level and full-level shots "
+                       "of an invented transformer whose winding suffers a turn-to-turn breakdown.")
+    p.add_argument("--out", metavar="DIR", default="shotcheck-demo", help="folder for records and report")
+    p.add_argument("--json", action="store_true", help="print the verdict as JSON")
+    p.set_defaults(func=_cmd_demo)
 
-#: verbs whose implementation lives in a module that registers its own sub-parser
-_OPTIONAL_VERBS: list[tuple[str, str]] = [
-    ("synth", "synthetic.synth_cli"),
-]
+    from synthetic.synth_cli import add_subparser as _add_synth
 
+    _add_synth(sub)
 
-def _add_optional_verb(sub: Any, name: str, module: str) -> None:
-    import importlib
+    def _data_options(q: argparse.ArgumentParser) -> None:
+        q.add_argument("--workers", type=int, default=None, metavar="K", help="processes for feature extraction")
+        q.add_argument("--no-progress", action="store_true", help="no progress bar")
+
+    p = sub.add_parser("train", help="train the classifier and locator on a synthetic data set",
+                       description="Extract features of a data set written by `shotcheck synth`, report "
+                       "cross-validated figures grouped by winding design, fit thresholds, classifier and "
+                       "locator, and write a model file (skops).")
+    p.add_argument("data", metavar="DATA", help="data set folder")
+    p.add_argument("--out", metavar="MODEL", required=True, help="model file to write (.skops)")
+    p.add_argument("--false-alarm-rate", type=float, default=0.01, help="threshold false-alarm target (0.01)")
+    p.add_argument("--seed", type=int, default=0, help="seed of the estimators")
+    p.add_argument("--cv-folds", type=int, default=3, help="folds of the grouped cross-validation (0: none)")
+    p.add_argument("--description", default=None, help="training-data description for the model card")
+    p.add_argument("--report-json", default=None, metavar="PATH", help="write the figures as JSON")
+    _data_options(p)
+    p.set_defaults(func=_cmd_train)
+
+    p = sub.add_parser("evaluate", help="detection rates, false alarms, confusion matrix of a model on a data set",
+                       description="Evaluate a model on a held-out data set written by `shotcheck synth`.")
+    p.add_argument("model", metavar="MODEL", help="model file (.skops)")
+    p.add_argument("data", metavar="DATA", help="data set folder")
+    p.add_argument("--json-out", default=None, metavar="PATH", help="write the figures as JSON")
+    p.add_argument("--roc", default=None, metavar="PNG", help="write a ROC figure")
+    _data_options(p)
+    p.set_defaults(func=_cmd_evaluate)
+
+    p = sub.add_parser("calibrate", help="calibrate the thresholds of a model on benign pairs",
+                       description="Set a model's thresholds so that benign pairs of a data set exceed any of "
+                       "them at most at the stated false-alarm rate.")
+    p.add_argument("data", metavar="DATA", help="data set folder with benign (none) pairs")
+    p.add_argument("--model", default=None, metavar="PATH", help="model to start from (default: bundled)")
+    p.add_argument("--out", required=True, metavar="MODEL", help="model file to write")
+    p.add_argument("--false-alarm-rate", type=float, default=0.01, help="target rate (0.01)")
+    _data_options(p)
+    p.set_defaults(func=_cmd_calibrate)
 
     try:
-        mod = importlib.import_module(module)
-    except ImportError:
-        return
-    mod.add_subparser(sub)
+        from .service_cli import add_subparsers as _add_service
+    except ImportError as exc:  # the service extra (fastapi, uvicorn) is not installed
+        _missing = str(exc)
+
+        def _no_service(args: argparse.Namespace) -> int:
+            raise ShotcheckError(f"the service needs its extra: pip install 'shotcheck[service]' ({_missing})")
+
+        for verb in ("serve", "watch"):
+            q = sub.add_parser(verb, help=f"{verb} (needs the service extra)")
+            q.set_defaults(func=_no_service)
+    else:
+        _add_service(sub)
+    return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -215,6 +392,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print(f"{PROG}: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # output piped into a pager or head that closed early
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -125,6 +125,8 @@ class Verdict:
 def _fault_time_pair_s(a: PairAnalysis) -> float | None:
     """Earliest credible onset of the difference on the pair's time axis [s]."""
     cands = []
+    if a.compensated_onset_s is not None:
+        cands.append(float(a.compensated_onset_s))
     if a.wavelet is not None and a.wavelet.fault_time_s is not None:
         cands.append(float(a.wavelet.fault_time_s))
     if a.time_domain.onset_s is not None:

@@ -21,6 +21,7 @@ from typing import Any
 
 import numpy as np
 
+from .metrics.compensated import SCALES, CompensatedDifference, compensated_difference, multiscale_z
 from .metrics.timedomain import TimeDomainMetrics, time_domain_metrics
 from .metrics.transfer import TransferComparison, TransferFunction, compare_transfer, transfer_function
 from .metrics.wavelet import WaveletDifference, wavelet_difference
@@ -33,7 +34,7 @@ __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", 
            "features_only"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "1"
+SCHEMA_VERSION = "3"
 
 #: Detail levels of the wavelet difference kept as features (D1 finest .. D8), plus the approximation.
 WAVELET_LEVELS = 8
@@ -60,6 +61,9 @@ def _names() -> tuple[str, ...]:
         n += [f"tf_{b}_R", f"tf_{b}_rms_dB"]
     n += ["tf_max_peak_shift", "tf_n_unmatched"]
     n += [f"tf_band{k}_mean_dB" for k in range(len(LOG_BANDS_HZ))]
+    n += ["cd_front_z", "cd_max_z", "cd_max_percent", "cd_log_energy", "cd_onset_after_front_us",
+          "cd_compared_span_us"]
+    n += [f"cd_scale{m}_z" for m in SCALES]
     n += [f"wv_{lab}_log_energy" for lab in _WV_LABELS]
     n += [f"wv_{lab}_peak_sigma" for lab in _WV_LABELS]
     n += ["wv_fine_peak_sigma", "wv_coarse_peak_sigma", "wv_fault_after_front_us"]
@@ -93,6 +97,10 @@ class PairAnalysis:
     front_time_s : float
         Time of the reference voltage front (30 % point) on the pair's time axis [s].
     warnings : tuple of str
+    compensated : CompensatedDifference
+        Test current against the current predicted from the reference under the test voltage.
+    compensated_onset_s : float or None
+        First significant compensated difference after the front window [s, pair axis].
     """
 
     features: np.ndarray
@@ -106,6 +114,8 @@ class PairAnalysis:
     wavelet: WaveletDifference | None
     front_time_s: float
     warnings: tuple[str, ...]
+    compensated: CompensatedDifference | None = None
+    compensated_onset_s: float | None = None
 
     def as_dict(self) -> dict[str, float]:
         """Feature name -> value (NaN kept)."""
@@ -143,6 +153,37 @@ def _band_mean_dB(f: np.ndarray, ref_dB: np.ndarray, test_dB: np.ndarray) -> lis
         sel = (f >= lo) & (f < hi) & np.isfinite(d)
         out.append(float(np.mean(d[sel])) if sel.sum() >= 2 else math.nan)
     return out
+
+
+#: The front window of the compensated difference: from 0.3 us before the 30 % point to 1 us after it.
+#: The capacitive current spike of the front is the least predictable part (its spectrum reaches
+#: beyond what the reduced-level voltage resolves), so it is scored separately.
+FRONT_WINDOW_S = (-0.3e-6, 1.0e-6)
+
+
+def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s: float) -> list[Any]:
+    t = pair.times_s
+    dt = pair.sample_interval_s
+    z = np.abs(cd.z)
+    fin = np.isfinite(cd.sigma)
+    in_front = (t >= front_s + FRONT_WINDOW_S[0]) & (t <= front_s + FRONT_WINDOW_S[1])
+    after = fin & (t > front_s + FRONT_WINDOW_S[1])
+    nan = math.nan
+    front_z = float(z[in_front & fin].max()) if (in_front & fin).any() else nan
+    max_z = float(z[after].max()) if after.any() else nan
+    peak_i = float(np.max(np.abs(pair.ref_current_pu))) or 1.0
+    d = cd.difference
+    max_pct = float(100.0 * np.max(np.abs(d[after])) / peak_i) if after.any() else nan
+    pe = float(np.sum(np.nan_to_num(cd.predicted[after]) ** 2))
+    energy = math.log10(max(float(np.sum(d[after] ** 2)) / pe, 1e-12)) if after.any() and pe > 0 else nan
+    # onset: the earliest 6-sigma crossing of the compensated difference averaged over any of SCALES
+    start = int(np.searchsorted(t, front_s + FRONT_WINDOW_S[1], side="right"))
+    ms_z, ms_i = multiscale_z(cd, start=start, pretrigger_samples=pair.pretrigger_samples)
+    hits = ms_i[ms_i >= 0]
+    onset_s = float(t[hits.min()]) if hits.size else None
+    onset_us = nan if onset_s is None else 1e6 * (onset_s - front_s)
+    span_us = 1e6 * (float(t[np.flatnonzero(fin)[-1]]) - front_s) if fin.any() else nan
+    return [front_z, max_z, max_pct, energy, onset_us, span_us, onset_s, ms_z]
 
 
 def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[float]:
@@ -227,11 +268,18 @@ def extract(
                              pretrigger_samples=pair.pretrigger_samples)
     tc = compare_transfer(tf_r.H_S, tf_t.H_S, tf_r.frequency_Hz)
 
-    # wavelet difference of the currents up to the compared span's end (before any collapse)
-    stop = int(np.searchsorted(pair.times_s, td.compared_until_s, side="right"))
+    # wave-shape-compensated current difference: valid across chopping and generator drift
+    cd = compensated_difference(pair.ref_voltage_pu, pair.ref_current_pu, pair.test_voltage_pu,
+                                pair.test_current_pu, dt, pretrigger_samples=pair.pretrigger_samples)
+    cd_f = _compensated_features(cd, pair, front_s)
+
+    # wavelet difference of the test current against its compensated prediction, over the span where
+    # the prediction is valid
+    valid = np.flatnonzero(np.isfinite(cd.sigma))
+    stop = int(valid[-1]) + 1 if valid.size else 0
     wd: WaveletDifference | None = None
     if stop >= 64:
-        wd = wavelet_difference(pair.ref_current_pu[:stop], pair.test_current_pu[:stop], dt,
+        wd = wavelet_difference(cd.predicted[:stop], pair.test_current_pu[:stop], dt,
                                 t0_s=float(pair.times_s[0]))
 
     f: list[float] = []
@@ -255,6 +303,8 @@ def extract(
         f += [nan, nan] if bi is None else [bi.R, bi.rms_dB]
     f += [float(tc.max_peak_shift_rel), float(tc.n_unmatched)]
     f += _band_mean_dB(tc.frequency_Hz, tc.ref_dB, tc.test_dB)
+    f += cd_f[:6]
+    f += list(cd_f[7])
     f += _wavelet_features(wd, front_s)
     peak_i = float(np.max(np.abs(pair.ref_current_pu))) or 1.0
     f += [
@@ -270,7 +320,7 @@ def extract(
         raise AssertionError(f"feature vector has {vec.size} values for {len(FEATURE_NAMES)} names")
     warnings = tuple(dict.fromkeys([*notes, *(ws_r.warnings if ws_r else ()), *(ws_t.warnings if ws_t else ()),
                                     *pair.warnings]))
-    return PairAnalysis(vec, ws_r, ws_t, pair, td, tf_r, tf_t, tc, wd, front_s, warnings)
+    return PairAnalysis(vec, ws_r, ws_t, pair, td, tf_r, tf_t, tc, wd, front_s, warnings, cd, cd_f[6])
 
 
 def features_only(reference: Record, test: Record) -> np.ndarray:

@@ -356,3 +356,35 @@ def report_text(rep: dict[str, Any]) -> str:
 def save_report(rep: dict[str, Any], path: str | Path) -> None:
     """Write a report as JSON."""
     Path(path).write_text(json.dumps(rep, indent=2), encoding="utf-8")
+
+
+def plot_roc(rep: dict[str, Any], path: str | Path) -> None:
+    """Write the ROC curve (fault vs none) of an evaluation report as a PNG figure.
+
+    Parameters
+    ----------
+    rep : dict
+        From :func:`evaluate` (needs ``roc``).
+    path : str or Path
+        PNG file.
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    roc = rep.get("roc")
+    if not roc:
+        raise ShotcheckError("the evaluation has no ROC curve (it needs both benign and faulted pairs)")
+    fig, ax = plt.subplots(figsize=(5, 4.5))
+    ax.plot(roc["fpr"], roc["tpr"], color="#0072B2", lw=2, label=f"AUC {rep.get('roc_auc', float('nan')):.3f}")
+    ax.plot([0, 1], [0, 1], color="#999999", ls=":", lw=1)
+    ax.set_xscale("symlog", linthresh=0.01)
+    ax.set_xlabel("false-alarm rate on benign pairs [1]")
+    ax.set_ylabel("detection rate of faults [1]")
+    ax.set_title("fault vs none")
+    ax.grid(True, alpha=0.3)
+    ax.legend(loc="lower right")
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)

@@ -43,6 +43,7 @@ from matplotlib.patches import Rectangle
 from matplotlib.ticker import LogLocator
 
 from ._validation import ShotcheckError
+from .metrics.compensated import compensated_difference
 from .metrics.timedomain import time_domain_metrics
 from .metrics.wavelet import wavelet_difference
 from .model import EVENT_CLASSES
@@ -57,6 +58,7 @@ __all__ = [
     "REFERENCE_STYLE",
     "TEST_STYLE",
     "K_SIGMA",
+    "COMPENSATED_K_SIGMA",
     "WAVELET_K_SIGMA",
     "figures",
     "format_frequency",
@@ -89,6 +91,11 @@ K_SIGMA: float = float(inspect.signature(time_domain_metrics).parameters["k_sigm
 #: :func:`detector.metrics.wavelet.wavelet_difference`, as :func:`detector.features.extract` calls it),
 #: marked on the colour bar of the wavelet map.
 WAVELET_K_SIGMA: float = float(inspect.signature(wavelet_difference).parameters["k_sigma"].default)
+
+#: Onset threshold of the wave-shape-compensated current difference (default of
+#: :func:`detector.metrics.compensated.compensated_difference`, as :func:`detector.features.extract`
+#: calls it).
+COMPENSATED_K_SIGMA: float = float(inspect.signature(compensated_difference).parameters["k_sigma"].default)
 
 #: Names of the figures in the order the report shows them (``wavelet`` is absent when the analysis has
 #: no wavelet difference).
@@ -184,7 +191,8 @@ def _mark_fault(ax: Any, t_us: float | None, *, label: bool) -> None:
 def _front_zoom_us(a: PairAnalysis) -> tuple[float, float]:
     """Window of the zoomed front panel on the test record's time axis [µs]."""
     t30 = (a.front_time_s + _pair_to_test_s(a)) * 1e6
-    t1 = a.test_shape.front_time_s or a.reference_shape.front_time_s or 1.2e-6
+    t1 = next((ws.front_time_s for ws in (a.test_shape, a.reference_shape)
+               if ws is not None and ws.front_time_s), 1.2e-6)
     t1_us = min(max(t1 * 1e6, 0.2), 20.0)
     return t30 - max(1.0, 0.8 * t1_us), t30 + max(5.0, 4.0 * t1_us)
 
@@ -397,14 +405,18 @@ def difference_figure(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> Figure:
     verdict : Verdict
         Result of :func:`detector.compare.compare`.
     k_sigma : float
-        Half-width of the noise band in noise standard deviations of the difference [1].
+        Half-width of the noise band of the plain differences in noise standard deviations [1].
 
     Returns
     -------
     matplotlib.figure.Figure
-        Top: voltage difference [kV]; bottom: neutral-current difference [A]; against time on the test
-        record [µs], at the test level and with the test record's polarity. The span after the earlier
-        voltage collapse, which is not compared, is shaded and the view ends shortly after it.
+        Voltage difference [kV] and neutral-current difference [A] against time on the test record [µs],
+        at the test level and with the test record's polarity; the span after the earlier voltage
+        collapse, which is not compared, is shaded and the view ends shortly after it. When the analysis
+        holds a wave-shape-compensated current difference, a third panel shows the test current minus
+        the current predicted from the reference under the test voltage [A], with its own
+        time-dependent +/- :data:`COMPENSATED_K_SIGMA` sigma band, over the span where it is valid
+        (after a chop too).
 
     Raises
     ------
@@ -416,11 +428,14 @@ def difference_figure(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> Figure:
     a = verdict.analysis
     td = a.time_domain
     p = a.pair
+    cd = getattr(a, "compensated", None)
     scale = _test_scale_V(a)
     off = _pair_to_test_s(a)
     t_us = p.test_times_s * 1e6
-    fig = _new_figure(4.8, top_in=0.6, hspace=0.5)
-    ax_v, ax_i = fig.subplots(2, 1, sharex=True)
+    n_ax = 3 if cd is not None else 2
+    fig = _new_figure(2.15 * n_ax + 0.5, top_in=0.6, hspace=0.5)
+    axes = fig.subplots(n_ax, 1)
+    ax_v, ax_i = axes[0], axes[1]
     t0, t_end = float(t_us[0]), float(t_us[-1])
     stop_us = (td.compared_until_s + off) * 1e6
     view_end = t_end if stop_us >= t_end else min(t_end, stop_us + max(2.0, 0.2 * (stop_us - t0)))
@@ -431,7 +446,6 @@ def difference_figure(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> Figure:
          "A"),
     )
     t_f = None if verdict.fault_time_s is None else verdict.fault_time_s * 1e6
-    extra = []
     for ax, d, sig, ylabel, what, unit in traces:
         band = k_sigma * sig
         ax.axhspan(-band, band, color=OKABE_ITO["sky_blue"], alpha=0.35, linewidth=0,
@@ -442,17 +456,16 @@ def difference_figure(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> Figure:
         ax.set_ylabel(ylabel, fontsize=_FONT_PT)
         ax.set_xlim(t0, view_end)
         if stop_us < t_end - 0.5e6 * p.sample_interval_s:
-            span = ax.axvspan(stop_us, t_end, facecolor="#bbbbbb", alpha=0.35, hatch="xx", edgecolor="#888888",
-                              linewidth=0, label="not compared (after a voltage collapse)")
-            if ax is ax_v:
-                extra.append(span)
+            ax.axvspan(stop_us, t_end, facecolor="#bbbbbb", alpha=0.35, hatch="xx", edgecolor="#888888",
+                       linewidth=0, label="not compared (after a voltage collapse)")
         inside = t_us <= stop_us
         seg = d[inside] if inside.any() else d
         m = float(np.nanmax(np.abs(seg))) if seg.size else band
         lim = 1.15 * max(m, 2.0 * band, 1e-12)
         ax.set_ylim(-lim, lim)
         _style_axes(ax)
-        ax.set_title(f"{what}: difference (noise σ = {sig:.3g} {unit})", fontsize=_FONT_PT + 1, loc="left")
+        ax.set_title(f"{what}: test − scaled reference (noise σ = {sig:.3g} {unit})", fontsize=_FONT_PT + 1,
+                     loc="left")
         _mark_fault(ax, t_f, label=ax is ax_v)
     # window boundaries of the time-domain metrics, labelled inside the upper axes
     for k, name in enumerate(("front", "crest", "tail")):
@@ -464,9 +477,41 @@ def difference_figure(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> Figure:
             ax.axvline(x, color="#777777", linewidth=0.6, linestyle="--")
         ax_v.annotate(f"{name} →", (x, 1.0), xycoords=("data", "axes fraction"), xytext=(2, -9 - 9 * k),
                       textcoords="offset points", fontsize=_FONT_PT - 1, color="#444444")
-    ax_i.set_xlabel("time on the test record [µs]", fontsize=_FONT_PT)
-    _top_legend(fig, ax_v, extra=None)
+    if cd is not None:
+        _compensated_panel(axes[2], cd, t_us, scale, t_f)
+    axes[-1].set_xlabel("time on the test record [µs]", fontsize=_FONT_PT)
+    for ax in axes[:-1]:
+        ax.set_xlabel("time on the test record [µs]", fontsize=_FONT_PT - 1, labelpad=1)
+    _top_legend(fig, ax_v)
     return fig
+
+
+def _compensated_panel(ax: Any, cd: Any, t_us: np.ndarray, scale: float, t_f: float | None) -> None:
+    """Test current minus its prediction from the reference, with the time-dependent noise band."""
+    sig = np.asarray(cd.sigma, dtype=np.float64) * abs(scale)
+    d = np.asarray(cd.difference, dtype=np.float64) * scale
+    ok = np.flatnonzero(np.isfinite(sig) & np.isfinite(d))
+    if ok.size < 2:
+        ax.text(0.5, 0.5, "compensated difference not available", ha="center", va="center",
+                transform=ax.transAxes, fontsize=_FONT_PT)
+        ax.set_ylabel("current difference [A]", fontsize=_FONT_PT)
+        _style_axes(ax)
+        return
+    sl = slice(int(ok[0]), int(ok[-1]) + 1)
+    t, dd, ss = t_us[sl], d[sl], sig[sl]
+    band = COMPENSATED_K_SIGMA * ss
+    ax.fill_between(t, -band, band, color=OKABE_ITO["sky_blue"], alpha=0.35, linewidth=0, step="mid")
+    ax.plot(*_envelope(t, dd), color=OKABE_ITO["black"], linewidth=0.9)
+    ax.set_xlim(float(t_us[0]), float(t[-1]))
+    fin = dd[np.isfinite(dd)]
+    m = float(np.max(np.abs(fin))) if fin.size else 1.0
+    lim = 1.15 * max(m, 2.0 * float(np.nanmedian(band)), 1e-12)
+    ax.set_ylim(-lim, lim)
+    ax.set_ylabel("current difference [A]", fontsize=_FONT_PT)
+    ax.set_title(f"Neutral current: test − prediction from the reference under the test voltage "
+                 f"(band ±{COMPENSATED_K_SIGMA:g} σ(t))", fontsize=_FONT_PT + 1, loc="left")
+    _style_axes(ax)
+    _mark_fault(ax, t_f, label=False)
 
 
 _BAND_SHADES = ("#E69F00", "#56B4E9", "#009E73", "#CC79A7", "#F0E442")

@@ -69,14 +69,18 @@ FIGURE_CAPTIONS: Mapping[str, str] = {
     "difference": "Test minus scaled reference. The band is ±{k:g} noise standard deviations of the "
                   "difference (from the two pre-triggers), the onset threshold of the time-domain "
                   "metrics; dashed lines mark the front, crest and tail windows. After a voltage "
-                  "collapse (chopping or breakdown) the records are not compared.",
+                  "collapse (chopping or breakdown) the plain records are not compared. The last panel, "
+                  "when present, compares the test current with the current the reference winding "
+                  "response predicts under the test voltage; it stays valid after a chop, and its "
+                  "noise band widens where the prediction grows uncertain.",
     "transfer": "Transfer function |I(f)/V(f)| of each record (same exponential window on both signals; "
                 "frequencies where the voltage spectrum is not above its noise are left out) and the "
                 "difference test minus reference. Shaded: the comparison bands. It does not depend on "
                 "the applied wave shape, so a chopped test shot can be compared with a full reference.",
-    "wavelet": "Stationary wavelet difference of the neutral currents up to the end of the compared "
-               "span, each level in units of its own noise (median absolute deviation). Short "
-               "discharges change only the finest levels; a breakdown changes many.",
+    "wavelet": "Stationary wavelet difference of the neutral currents (as the analysis forms it), each "
+               "level in units of its own noise (median absolute deviation); the line on the colour bar "
+               "is the significance threshold. Short discharges change only the finest levels; a "
+               "breakdown changes many.",
 }
 
 _SECTION_TITLES = {
@@ -296,24 +300,36 @@ def _shape_cell(ws: Mapping[str, Any], key: str, fmt: str, unit: str) -> str:
 
 def _waveshape_section(verdict: Verdict, reference_name: str, test_name: str) -> str:
     a = verdict.analysis
-    ref, test = a.reference_shape.to_dict(), a.test_shape.to_dict()
+    shapes = [None if ws is None else ws.to_dict() for ws in (a.reference_shape, a.test_shape)]
+    na = '<span class="na">not evaluated</span>'
+
+    def kind(ws: Mapping[str, Any] | None) -> str:
+        return na if ws is None else _esc(_KIND_TEXT.get(ws["kind"], ws["kind"]))
+
     rows = [
-        ("Wave kind", _esc(_KIND_TEXT.get(ref["kind"], ref["kind"])), _esc(_KIND_TEXT.get(test["kind"], test["kind"]))),
-        ("Polarity", _esc(ref["polarity"]), _esc(test["polarity"])),
+        ("Wave kind", *(kind(ws) for ws in shapes)),
+        ("Polarity", *(na if ws is None else _esc(ws["polarity"]) for ws in shapes)),
     ]
     for key, label, fmt, unit in _SHAPE_ROWS:
-        in_ref = ref.get(key) is not None or key in (ref.get("tolerance") or {})
-        in_test = test.get(key) is not None or key in (test.get("tolerance") or {})
-        if not (in_ref or in_test):
+        present = [ws is not None and (ws.get(key) is not None or key in (ws.get("tolerance") or {}))
+                   for ws in shapes]
+        if not any(present):
             continue
-        rows.append((_esc(label), _shape_cell(ref, key, fmt, unit), _shape_cell(test, key, fmt, unit)))
+        rows.append((_esc(label), *("—" if ws is None else _shape_cell(ws, key, fmt, unit) for ws in shapes)))
 
-    def overall(ws: Mapping[str, Any]) -> str:
+    def overall(ws: Mapping[str, Any] | None) -> str:
+        if ws is None:
+            return '<span class="fail">NOT EVALUATED</span>'
         return '<span class="pass">within tolerance</span>' if ws["within_tolerance"] else \
             '<span class="fail">OUTSIDE TOLERANCE</span>'
 
-    rows.append(("All tolerance checks", overall(ref), overall(test)))
-    notes = [f"reference: {w}" for w in ref.get("warnings", [])] + [f"test: {w}" for w in test.get("warnings", [])]
+    rows.append(("All tolerance checks", *(overall(ws) for ws in shapes)))
+    notes = []
+    for who, ws in zip(("reference", "test"), shapes, strict=True):
+        if ws is None:
+            notes.append(f"{who}: the IEC 60060-1 evaluation failed; see the warnings above")
+        else:
+            notes += [f"{who}: {w}" for w in ws.get("warnings", [])]
     note_html = ""
     if notes:
         note_html = '<ul class="warnings">' + "".join(f"<li>{_esc(n)}</li>" for n in notes) + "</ul>"
@@ -326,6 +342,11 @@ def _waveshape_section(verdict: Verdict, reference_name: str, test_name: str) ->
           "</p>"
         + note_html + "</section>"
     )
+
+
+def _volts(x_V: float) -> str:
+    """A voltage in V below 1 kV, else in kV."""
+    return _num(x_V, ".3g", "V") if abs(x_V) < 1e3 else _num(x_V * 1e-3, ".4g", "kV")
 
 
 def _basis_section(verdict: Verdict) -> str:
@@ -344,8 +365,8 @@ def _basis_section(verdict: Verdict) -> str:
                                                    f"(reference at {_num(ratio, '.1f')} % of the test level)"),
         ("Common sample interval", f"{_num(p.sample_interval_s * 1e9, '.4g', 'ns')} "
                                    f"({_num(1e-6 / p.sample_interval_s, '.4g', 'MS/s')}), {p.n_samples} samples"),
-        ("Test front delay removed", _num(p.delay_s * 1e9, ".3g", "ns")),
-        ("Noise σ of the differences", f"voltage {_num(td.voltage_sigma_pu * ut_t * 1e-3, '.3g', 'kV')}, "
+        ("Test front delay removed", _num(p.delay_s * 1e9 + 0.0, ".3f", "ns").replace("-0.000", "0.000")),
+        ("Noise σ of the differences", f"voltage {_volts(td.voltage_sigma_pu * ut_t)}, "
                                        f"current {_num(td.current_sigma_pu * ut_t, '.3g', 'A')} (at the test level)"),
         ("Compared until", t_test_us(td.compared_until_s) + " (test record time)"),
         ("Onset of a difference (voltage / current)",

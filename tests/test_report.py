@@ -224,6 +224,15 @@ def test_report_without_fault_or_wavelet(fault_case, tmp_path):
     assert 'id="fig-wavelet"' not in text
 
 
+def test_report_when_a_wave_shape_could_not_be_evaluated(fault_case, tmp_path):
+    _, _, _, v = fault_case
+    blind = dataclasses.replace(v, analysis=dataclasses.replace(v.analysis, reference_shape=None, test_shape=None))
+    assert set(figures(blind)) >= {"voltage", "current", "difference"}
+    text = write_report(blind, tmp_path / "blind.html", reference_name="a", test_name="b").read_text("utf-8")
+    assert text.count("not evaluated") >= 4 and "NOT EVALUATED" in text
+    assert "the IEC 60060-1 evaluation failed" in text
+
+
 def test_report_escapes_names_and_title(fault_case, tmp_path):
     _, _, _, v = fault_case
     text = render_html(v, reference_name="<script>alert(1)</script>.cfg", test_name='a"b&c.csv',
@@ -362,6 +371,29 @@ def test_difference_band_is_k_sigma_of_the_noise(fault_figures, fault_case):
         assert len(spans) == 1
         ext = spans[0].get_path().get_extents(spans[0].get_patch_transform())  # y in data units
         assert (ext.y0, ext.y1) == pytest.approx((-band, band), rel=1e-9)
+
+
+def test_compensated_panel_band_follows_its_sigma(fault_figures, fault_case):
+    from detector.figures import COMPENSATED_K_SIGMA
+    from detector.metrics.compensated import compensated_difference
+
+    _, _, _, v = fault_case
+    cd = v.analysis.compensated
+    if cd is None:
+        pytest.skip("this analysis carries no compensated difference")
+    # the band drawn is the detector's own threshold as extract() runs it (the default)
+    assert compensated_difference.__kwdefaults__["k_sigma"] == COMPENSATED_K_SIGMA
+    axes = [ax for ax in fault_figures["difference"].axes if ax.get_label() != "<colorbar>"]
+    assert len(axes) == 3
+    ax = axes[2]
+    assert _UNIT.search(ax.get_ylabel())
+    sig = np.asarray(cd.sigma) * abs(v.analysis.pair.test_test_voltage_V)
+    ok = np.isfinite(sig)
+    band = [c for c in ax.collections if c.get_paths()]
+    assert band
+    ext = band[0].get_paths()[0].get_extents()
+    assert ext.y1 == pytest.approx(COMPENSATED_K_SIGMA * float(sig[ok].max()), rel=1e-9)
+    assert ext.y0 == pytest.approx(-COMPENSATED_K_SIGMA * float(sig[ok].max()), rel=1e-9)
 
 
 def test_transfer_bands_are_the_comparison_bands(fault_figures, fault_case):

@@ -664,9 +664,10 @@ class AlignedPair:
 
 def _prepare(rec: Record, label: str, test_voltage_V: float | None, warnings: list[str]):
     """Baseline, polarity, per unit and noise of one record already on the common grid."""
-    n_pre = detect_pretrigger_samples(rec.voltage.samples)
-    rec = remove_baseline(rec, pretrigger_s=n_pre * rec.sample_interval_s)
-    v = rec.voltage.samples
+    v, i = rec.voltage.samples, rec.current.samples
+    n_pre = detect_pretrigger_samples(v)
+    if n_pre:  # as remove_baseline, on the two arrays only
+        v, i = v - v[:n_pre].mean(), i - i[:n_pre].mean()
     peak = robust_peak_V(v)
     polarity = 1 if peak > 0 else -1
     if test_voltage_V is None:
@@ -674,8 +675,7 @@ def _prepare(rec: Record, label: str, test_voltage_V: float | None, warnings: li
     else:
         name = "ref_test_voltage_V" if label == "reference" else "test_test_voltage_V"
         ut = check_range(name, abs(float(test_voltage_V)), 0.0, None, low_inclusive=False, unit="V")
-    pu = normalise(rec, polarity * ut)
-    v_pu, i_pu = pu.voltage_pu, pu.current_pu
+    v_pu, i_pu = v / (polarity * ut), i / (polarity * ut)
     if n_pre >= MIN_NOISE_SAMPLES:
         nv, ni = noise_estimate(v_pu[:n_pre]), noise_estimate(i_pu[:n_pre])
         source = "pretrigger"

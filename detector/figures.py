@@ -55,6 +55,7 @@ if TYPE_CHECKING:  # pragma: no cover - import for annotations only
 __all__ = [
     "FIGURE_NAMES",
     "OKABE_ITO",
+    "EVENT_COLOURS",
     "REFERENCE_STYLE",
     "TEST_STYLE",
     "K_SIGMA",
@@ -107,7 +108,8 @@ _EVENT_TEXT = {
     "to_ground": "to ground",
     "discharge_only": "discharge only",
 }
-_EVENT_COLOURS = {
+#: Colour of each event class in the figures and the report.
+EVENT_COLOURS: Mapping[str, str] = {
     "none": OKABE_ITO["green"],
     "turn_to_turn": OKABE_ITO["vermillion"],
     "to_ground": OKABE_ITO["purple"],
@@ -259,7 +261,7 @@ def verdict_figure(verdict: Verdict) -> Figure:
     probs = np.array([float(verdict.probabilities.get(c, 0.0)) for c in classes])
     y = np.arange(len(classes))[::-1]
     chosen = verdict.event
-    bars = ax_p.barh(y, probs, color=[_EVENT_COLOURS.get(c, OKABE_ITO["sky_blue"]) for c in classes],
+    bars = ax_p.barh(y, probs, color=[EVENT_COLOURS.get(c, OKABE_ITO["sky_blue"]) for c in classes],
                      edgecolor="black", linewidth=[1.8 if c == chosen else 0.4 for c in classes],
                      hatch=None)
     for b, c in zip(bars, classes, strict=True):

@@ -37,14 +37,15 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from ._validation import ShotcheckError
-from .figures import FIGURE_NAMES, K_SIGMA, figures
+from .figures import EVENT_COLOURS, FIGURE_NAMES, K_SIGMA, figures
 
 if TYPE_CHECKING:  # pragma: no cover - import for annotations only
     from matplotlib.figure import Figure
 
     from .compare import Verdict
 
-__all__ = ["SAFETY_CAUTION", "FIGURE_CAPTIONS", "figure_data_uri", "render_html", "write_report", "figures"]
+__all__ = ["SAFETY_CAUTION", "FIGURE_CAPTIONS", "figure_png", "figure_data_uri", "render_html", "write_report",
+           "figures"]
 
 #: The caution every report ends with (plain text; the HTML adds emphasis).
 SAFETY_CAUTION = (
@@ -121,9 +122,8 @@ th, td { padding: 3px 10px 3px 6px; text-align: left; vertical-align: top; borde
 th { background: #f3f3f3; font-weight: 600; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 table.kv th { background: none; font-weight: 600; white-space: nowrap; }
-.bar { display: inline-block; height: 11px; background: #56B4E9; border: 1px solid #3a7ea5;
-       vertical-align: middle; }
-.bar.chosen { background: #D55E00; border-color: #8c3e00; }
+.bar { display: inline-block; height: 11px; border: 1px solid #555555; vertical-align: middle; }
+.bar.chosen { border: 2px solid #000000; }
 .pass { color: #005f96; font-weight: 600; }
 .fail { color: #b34700; font-weight: 700; }
 .na { color: var(--muted); }
@@ -181,8 +181,8 @@ def _kv(rows: Iterable[tuple[str, str]]) -> str:
         "</tbody></table>"
 
 
-def figure_data_uri(fig: Figure, *, dpi: float = 100.0) -> str:
-    """Render a figure to a PNG ``data:`` URI.
+def figure_png(fig: Figure, *, dpi: float = 100.0) -> bytes:
+    """Render a figure to PNG bytes (for a web response or a file).
 
     Parameters
     ----------
@@ -193,12 +193,37 @@ def figure_data_uri(fig: Figure, *, dpi: float = 100.0) -> str:
 
     Returns
     -------
-    str
-        ``data:image/png;base64,...``. The PNG carries no software metadata.
+    bytes
+        The PNG file; it carries no software metadata.
+
+    Raises
+    ------
+    ShotcheckError
+        If ``dpi`` is not a finite number between 10 and 600.
     """
+    if not (isinstance(dpi, int | float) and math.isfinite(dpi) and 10 <= dpi <= 600):
+        raise ShotcheckError(f"dpi must be a number of dots per inch between 10 and 600, got {dpi!r}")
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
-    return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
+    return buf.getvalue()
+
+
+def figure_data_uri(fig: Figure, *, dpi: float = 100.0) -> str:
+    """Render a figure to a PNG ``data:`` URI for embedding in HTML.
+
+    Parameters
+    ----------
+    fig : matplotlib.figure.Figure
+        Figure with an Agg canvas (as :func:`detector.figures.figures` makes them).
+    dpi : float
+        Resolution [dots per inch].
+
+    Returns
+    -------
+    str
+        ``data:image/png;base64,...``.
+    """
+    return "data:image/png;base64," + base64.b64encode(figure_png(fig, dpi=dpi)).decode("ascii")
 
 
 # --------------------------------------------------------------------------------------------------
@@ -235,8 +260,9 @@ def _verdict_section(verdict: Verdict, fig_uri: str | None) -> str:
         p = float(probs[c])
         width = max(0.0, min(1.0, p)) * 160.0
         chosen = " chosen" if c == event else ""
+        colour = EVENT_COLOURS.get(c, "#56B4E9")
         prob_rows.append((_esc(_EVENT_TEXT.get(c, c)) + (" ◀" if c == event else ""), _num(p, ".3f"),
-                          f'<span class="bar{chosen}" style="width:{width:.0f}px"></span>'))
+                          f'<span class="bar{chosen}" style="width:{width:.0f}px;background:{colour}"></span>'))
     warn = d["warnings"]
     warn_html = ('<ul class="warnings">' + "".join(f"<li>{_esc(w)}</li>" for w in warn) + "</ul>") if warn else \
         '<p class="na">No warnings.</p>'

@@ -152,6 +152,17 @@ class Watcher:
         return (not n.startswith(".") and p.is_file() and n.lower().endswith(_INPUT_SUFFIXES)
                 and not n.lower().endswith(RESULT_SUFFIXES))
 
+    @staticmethod
+    def _parts(path: Path) -> list[Path]:
+        """The files of one record: a .cfg with its .dat (+ .inf, .hdr), or the file alone; [] if incomplete."""
+        if path.suffix.lower() != ".cfg":
+            return [path]
+        dat = next((q for q in (path.with_suffix(".dat"), path.with_suffix(".DAT")) if q.is_file()), None)
+        if dat is None:
+            return []
+        extra = [q for s in (".inf", ".hdr", ".INF", ".HDR") if (q := path.with_suffix(s)).is_file()]
+        return [path, dat, *extra]
+
     def _candidates(self, folder: Path) -> list[Path]:
         return sorted(p for p in folder.iterdir() if self._is_input(p))
 
@@ -167,18 +178,14 @@ class Watcher:
         out: list[dict[str, Any]] = []
         now = time.monotonic()
         for folder in sorted(p for p in self.root.iterdir() if p.is_dir() and not p.name.startswith(".")):
-            for path in self._candidates(folder):
+            groups = [self._parts(path) for path in self._candidates(folder)]
+            stable = [bool(parts) and all([self._stable(p, now) for p in parts]) for parts in groups]
+            for parts, ready in zip(groups, stable, strict=True):
                 if self._stop.is_set():
                     return out
-                parts = [path]
-                if path.suffix.lower() == ".cfg":
-                    dat = next((q for q in (path.with_suffix(".dat"), path.with_suffix(".DAT")) if q.is_file()), None)
-                    if dat is None:
-                        break  # the .dat is still to come: later files wait too
-                    parts.append(dat)
-                    parts += [q for q in (path.with_suffix(".inf"), path.with_suffix(".hdr")) if q.is_file()]
-                if not all(self._stable(p, now) for p in parts):
-                    break  # still being written: keep the order, look again next pass
+                if not ready:
+                    break  # still being written (or its .dat still to come): keep the order, look again later
+                path = parts[0]
                 rel = f"{folder.name}/{path.name}"
                 sig = tuple(self._seen[p].signature for p in parts)
                 if self._finished.get(path) == sig:

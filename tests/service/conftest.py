@@ -28,14 +28,22 @@ def _model_key() -> str:
 
 @pytest.fixture(scope="session")
 def model_path(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """The bundled model if present, else a small real model trained on synthetic pairs.
+    """The bundled model if present and current, else a small real model trained on synthetic pairs.
 
     The trained model (24 simulated pairs, all four event classes) is cached in pytest's cache folder
     keyed by the digest of the feature, metric and model code, so it is retrained whenever that code
     changes.
     """
     if DEFAULT_MODEL_PATH.is_file():
-        return DEFAULT_MODEL_PATH
+        from detector._validation import ShotcheckError
+        from detector.features import SCHEMA_VERSION
+        from detector.model import load_model
+
+        try:
+            load_model(DEFAULT_MODEL_PATH, expected_schema=SCHEMA_VERSION)
+            return DEFAULT_MODEL_PATH
+        except ShotcheckError:  # bundled model of an older feature schema: train a current one
+            pass
     cache = Path(request.config.cache.mkdir("shotcheck-service-model"))
     dest = cache / f"model-{_model_key()}.skops"
     if dest.is_file():

@@ -642,7 +642,7 @@ def wavelet_figure(verdict: Verdict) -> Figure:
     ax.set_xlabel("time on the test record [µs]", fontsize=_FONT_PT)
     ax.tick_params(axis="x", labelsize=_FONT_PT)
     cb = fig.colorbar(im, ax=ax, pad=0.01, fraction=0.05)
-    cb.set_label(f"|difference| / level noise σ [1]; line: threshold {WAVELET_K_SIGMA:g}", fontsize=_FONT_PT)
+    cb.set_label("|difference| / level σ [1]", fontsize=_FONT_PT)
     cb.ax.tick_params(labelsize=_FONT_PT - 1)
     cb.ax.axhline(WAVELET_K_SIGMA, color=OKABE_ITO["vermillion"], linewidth=1.5)
     ticks = [1.0, WAVELET_K_SIGMA] + [10.0**e for e in range(1, int(math.log10(vmax)) + 1)]
@@ -652,7 +652,8 @@ def wavelet_figure(verdict: Verdict) -> Figure:
     if t_f is not None and t_us[0] <= t_f <= t_us[-1]:
         ax.axvline(t_f, color=OKABE_ITO["vermillion"], linewidth=1.6, linestyle="--",
                    label=f"fault instant {t_f:.3f} µs")
-        ax.legend(fontsize=_FONT_PT - 1, loc="lower right", framealpha=0.9)
+        ax.legend(fontsize=_FONT_PT - 1, loc="lower right", bbox_to_anchor=(1.0, 1.0), frameon=False,
+                  borderaxespad=0.1)
     ax.set_title(f"Wavelet difference of the neutral currents ({wd.method.upper()}, {wd.wavelet})",
                  fontsize=_FONT_PT + 1, loc="left")
     return fig

@@ -263,9 +263,11 @@ def extract(
     front_s = _front_time_s(pair)
 
     # transfer functions over the whole records: valid across chopping (see metrics.transfer)
-    tf_r = transfer_function(pair.ref_voltage_pu, pair.ref_current_pu, dt, pretrigger_samples=pair.pretrigger_samples)
+    # frequencies where either current is within its noise (snr 3) carry no information on the winding
+    tf_r = transfer_function(pair.ref_voltage_pu, pair.ref_current_pu, dt, pretrigger_samples=pair.pretrigger_samples,
+                             snr_current=3.0)
     tf_t = transfer_function(pair.test_voltage_pu, pair.test_current_pu, dt,
-                             pretrigger_samples=pair.pretrigger_samples)
+                             pretrigger_samples=pair.pretrigger_samples, snr_current=3.0)
     tc = compare_transfer(tf_r.H_S, tf_t.H_S, tf_r.frequency_Hz)
 
     # wave-shape-compensated current difference: valid across chopping and generator drift

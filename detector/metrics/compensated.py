@@ -96,7 +96,7 @@ def compensated_difference(
     k_sigma: float = 6.0,
     min_duration_s: float = 50e-9,
     sigma_floor_rel: float = 1e-4,
-    max_gain: float = 30.0,
+    max_gain: float = 8.0,
     timing_tolerance_s: float = 2e-9,
     level_tolerance: float = 0.001,
 ) -> CompensatedDifference:
@@ -159,11 +159,17 @@ def compensated_difference(
     peak_v = float(np.max(np.abs(rv))) or 1.0
     sv = max(sv if math.isfinite(sv) else 0.0, 1e-6 * peak_v)
     lam = sv * sv * float(np.sum(w * w))
-    pred_w = sfft.irfft(Ir * np.conj(Vr) * Vt / (np.abs(Vr) ** 2 + lam), n_fft)[:n]
+    p_r = np.abs(Vr) ** 2
+    g = p_r / (p_r + lam)  # how well the reference resolves each frequency, 0..1
+    pred_w = sfft.irfft(Ir * np.conj(Vr) * Vt / (p_r + lam), n_fft)[:n]
+    # the test current is compared only within the band the reference resolves: components the
+    # reference never excited (the steep collapse of a chopped wave) cannot be predicted
+    It = sfft.rfft(ti * w, n_fft)
+    ti_w = sfft.irfft(It * g, n_fft)[:n]
     gain = 1.0 / w
     valid = gain <= max_gain
     pred = np.where(valid, pred_w * gain, np.nan)
-    diff = ti - pred
+    diff = ti_w * gain - pred
     peak_i = float(np.max(np.abs(ri))) or 1.0
     s0 = _robust_sigma(diff[:n0]) if n0 >= 8 else math.nan
     if not math.isfinite(s0):  # no pre-trigger: second differences of the test current
@@ -173,7 +179,11 @@ def compensated_difference(
     # model tolerance: a timing uncertainty of the alignment (times the slope of the prediction) and a
     # relative level uncertainty of the normalisation (times the prediction itself).
     slope = np.gradient(np.nan_to_num(pred), dt)
-    sig2 = s0 * s0 * (0.5 + 0.5 * gain * gain) + (timing_tolerance_s * slope) ** 2 \
+    # noise gain of the prediction filter K = V_t V_r* / (|V_r|^2 + lambda) (RMS over frequency, Parseval):
+    # about 1 when both waves have one shape, larger when the test wave excites frequencies the
+    # reference barely does (a chopped test shot)
+    kg2 = float(np.mean(np.abs(Vt * np.conj(Vr) / (p_r + lam)) ** 2) / max(np.mean(g * g), 1e-12))
+    sig2 = s0 * s0 * (1.0 + kg2 * gain * gain) / (1.0 + kg2) + (timing_tolerance_s * slope) ** 2 \
         + (level_tolerance * np.nan_to_num(pred)) ** 2
     valid &= k < n - max(8, n // 50)  # the last samples carry the shift and padding end effects
     sig = np.where(valid, np.sqrt(sig2), np.inf)

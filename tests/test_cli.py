@@ -1,0 +1,110 @@
+"""The ``shotcheck`` command line: exit statuses, JSON keys, messages, and the wave-shape acceptance checks."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from detector import __version__
+from detector.cli import main
+from detector.formats import write
+from detector.record import Channel, Record
+
+from test_formats_errors import CASES, MALFORMED
+
+# 1.2/50 us double exponential (Kuffel, Zaengl & Kuffel, High Voltage Engineering: Fundamentals, 2nd ed.,
+# table of impulse wave constants; recalled): tau1 = 68.22 us, tau2 = 0.405 us. With the standard's
+# reading T1 = 1.67 (t90 - t30) this wave has T1 = 1.2023 us and T2 = 50.00 us (computed in
+# tests/test_waveshape.py by brentq on the analytic curve); the nominal values are 1.2 and 50 us.
+TAU1, TAU2 = 68.22e-6, 0.405e-6
+T1_NOMINAL_US, T2_NOMINAL_US = 1.2, 50.0
+
+
+def _lightning_record(*, chop_s=None, seed=3, peak_V=-650e3, bits=12, fs=100e6):
+    """A 1.2/50 us wave at 100 MS/s, quantised to 12 bits over +/-1.3 peak, with half an LSB of noise."""
+    rng = np.random.default_rng(seed)
+    dt = 1.0 / fs
+    t = np.arange(int(120e-6 / dt)) * dt - 10e-6 + rng.uniform(0, dt)
+    s = np.clip(t, 0, None)
+    v = np.exp(-s / TAU1) - np.exp(-s / TAU2)
+    v = peak_V * v / v.max()
+    if chop_s is not None:  # a linear collapse of 150 ns starting at chop_s (rod gap: common practice)
+        v = v * np.clip(1 - (t - chop_s) / 150e-9, 0.0, 1.0)
+    lsb = 2 * 1.3 * abs(peak_V) / 2**bits
+    vq = np.round((v + rng.normal(0, 0.5 * lsb, t.size)) / lsb) * lsb
+    i = 1e-4 * np.gradient(v, dt) * 1e-6 + v / 5e3
+    return Record(float(t[0]), dt, (Channel("U", "voltage", vq, "kV"), Channel("I", "current", i, "A")),
+                  meta={"shot_kind": "chopped" if chop_s else "full"}), t, v
+
+
+def test_version_and_help(capsys):
+    assert main(["--version"]) == 0
+    assert __version__ in capsys.readouterr().out
+    assert main(["--help"]) == 0
+    out = capsys.readouterr().out
+    for verb in ("waveshape", "compare", "demo", "synth", "train", "evaluate", "calibrate", "serve", "watch"):
+        assert verb in out
+
+
+def test_waveshape_standard_lightning_impulse_json(tmp_path, capsys):
+    rec, _, _ = _lightning_record()
+    path = tmp_path / "shot.cfg"
+    write(rec, path, data_format="BINARY")
+    assert main(["waveshape", str(path), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert set(d) >= {"kind", "peak_kV", "test_voltage_kV", "front_time_us", "time_to_half_us",
+                      "overshoot_percent", "chopping_time_us", "within_tolerance", "warnings"}
+    assert d["kind"] == "lightning_full"
+    # T1 and T2 within 1 % of the nominal 1.2/50 us (IEC 60060-1:2010 standard lightning impulse)
+    assert d["front_time_us"] == pytest.approx(T1_NOMINAL_US, rel=0.01)
+    assert d["time_to_half_us"] == pytest.approx(T2_NOMINAL_US, rel=0.01)
+    # a smooth double exponential has no overshoot: the test voltage is its peak, within 0.5 %
+    assert d["test_voltage_kV"] == pytest.approx(-650.0, rel=0.005)
+    assert d["within_tolerance"] is True
+
+
+@pytest.mark.parametrize("chop_s", [3e-6, 6e-6])  # chopped at 3-6 us by a rod gap (common practice)
+def test_waveshape_chopped_wave_instant_within_50_ns(tmp_path, capsys, chop_s):
+    rec, t, v = _lightning_record(chop_s=chop_s)
+    path = tmp_path / "chopped.csv"
+    write(rec, path)
+    assert main(["waveshape", str(path), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["kind"] == "lightning_chopped"
+    # instant of chopping (IEC 60060-1:2010, recalled): where the line through the 70 % and 10 % points
+    # of the collapse meets the voltage at chopping. For a linear collapse that starts at chop_s that
+    # line is the collapse itself, so the instant is chop_s.
+    assert d["chopping_time_us"] == pytest.approx(chop_s * 1e6, abs=0.05)
+
+
+def test_waveshape_table_is_readable(capsys):
+    assert main(["waveshape", "--example", "chopped"]) == 0
+    out = capsys.readouterr().out
+    assert "front time T1" in out and "time to chopping Tc" in out and "us" in out
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_every_malformed_file_exits_2_with_its_message(name, capsys):
+    assert main(["waveshape", str(MALFORMED / name)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1, "one line, no traceback"
+    assert err.startswith("shotcheck: error: ")
+    for fragment in CASES[name][1]:
+        assert fragment in err
+
+
+def test_missing_file_and_unknown_suffix(tmp_path, capsys):
+    assert main(["waveshape", str(tmp_path / "nope.cfg")]) == 2
+    assert "nope.cfg" in capsys.readouterr().err
+    bad = tmp_path / "shot7.xyz"
+    bad.write_text("x")
+    assert main(["waveshape", str(bad)]) == 2
+    assert "Unsupported file type '.xyz' for 'shot7.xyz'" in capsys.readouterr().err
+
+
+def test_bad_option_exits_2(capsys):
+    assert main(["waveshape", "--kind", "square"]) == 2
+    assert "invalid choice" in capsys.readouterr().err
+    assert main(["nonsense"]) == 2

@@ -432,6 +432,26 @@ def test_wavelet_levels_are_labelled_with_dyadic_bands(fault_figures, fault_case
     assert labels[-1].startswith(f"A{wd.level}  < {format_frequency(fs / 2 ** (wd.level + 1))}")
 
 
+def test_lines_use_the_colour_blind_safe_palette(fault_figures):
+    from matplotlib.colors import to_hex
+
+    from detector.figures import OKABE_ITO
+
+    # Okabe & Ito, "Color Universal Design" (2008): the eight colours, plus neutral greys
+    allowed = {c.lower() for c in ("#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2",
+                                   "#D55E00", "#CC79A7")}
+    assert {c.lower() for c in OKABE_ITO.values()} == allowed
+    for name, fig in fault_figures.items():
+        for ax in fig.axes:
+            for ln in ax.get_lines():
+                c = to_hex(ln.get_color())
+                r, g, b = c[1:3], c[3:5], c[5:7]
+                assert c in allowed or r == g == b, (name, c)
+    ax_m = fault_figures["transfer"].axes[0]
+    ref_line, test_line = [ln for ln in ax_m.get_lines() if np.asarray(ln.get_xdata()).size > 10][:2]
+    assert ref_line.get_linestyle() != test_line.get_linestyle()
+
+
 def test_figure_png_size_and_bad_dpi(fault_figures):
     from detector.report import figure_png
 

@@ -2,65 +2,22 @@
 
 from __future__ import annotations
 
-import hashlib
-import shutil
 from pathlib import Path
 
 import pytest
 
-from detector.compare import DEFAULT_MODEL_PATH
-
+import svc_model
 import svc_records
 
 TOKEN = "test-token-0123456789abcdef"
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
-_DETECTOR = Path(__file__).resolve().parents[2] / "detector"
-
-
-def _model_key() -> str:
-    """Digest of the code a trained model depends on (a change retrains the cached model)."""
-    h = hashlib.sha256()
-    for p in sorted([_DETECTOR / "features.py", _DETECTOR / "model.py", _DETECTOR / "training.py",
-                     _DETECTOR / "scoring.py", *(_DETECTOR / "metrics").glob("*.py")]):
-        h.update(p.read_bytes())
-    return h.hexdigest()[:16]
 
 
 @pytest.fixture(scope="session")
 def model_path(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """The bundled model if present and current, else a small real model trained on synthetic pairs.
-
-    The trained model (24 simulated pairs, all four event classes) is cached in pytest's cache folder
-    keyed by the digest of the feature, metric and model code, so it is retrained whenever that code
-    changes.
-    """
-    if DEFAULT_MODEL_PATH.is_file():
-        from detector._validation import ShotcheckError
-        from detector.features import SCHEMA_VERSION
-        from detector.model import load_model
-
-        try:
-            load_model(DEFAULT_MODEL_PATH, expected_schema=SCHEMA_VERSION)
-            return DEFAULT_MODEL_PATH
-        except ShotcheckError:  # bundled model of an older feature schema: train a current one
-            pass
-    cache = Path(request.config.cache.mkdir("shotcheck-service-model"))
-    dest = cache / f"model-{_model_key()}.skops"
-    if dest.is_file():
-        return dest
-    from detector.model import save_model
-    from detector.training import extract_dataset, train
-    from synthetic.dataset import generate
-
-    ds = tmp_path_factory.mktemp("svc-dataset") / "set"
-    generate(24, ds, seed=11, workers=1, progress=False)
-    data = extract_dataset(ds, workers=1, progress=False)
-    model, _ = train(data, cv_folds=0, description="service tests: 24 synthetic pairs")
-    tmp = dest.with_suffix(".tmp")
-    save_model(model, tmp)
-    tmp.replace(dest)
-    shutil.rmtree(ds, ignore_errors=True)
-    return dest
+    """A real model (see :func:`svc_model.model_for_tests`)."""
+    return svc_model.model_for_tests(Path(request.config.cache.mkdir("shotcheck-service-model")),
+                                     tmp_path_factory.mktemp("model"))
 
 
 @pytest.fixture(scope="session")

@@ -344,7 +344,9 @@ def generate(
         Local worker processes (joblib/loky); default: the number of CPUs. 1 runs in this process.
     scheduler : str or distributed.Client, optional
         Address of a running Dask distributed scheduler (``tcp://host:8786``) or a client; the cases
-        then run on that cluster and ``workers`` is ignored.
+        then run on that cluster (whose workers must have shotcheck installed) and ``workers`` is
+        ignored. Results come back to this process, which writes every file, so the workers need
+        no shared file system.
     write_comtrade : bool
         Also write every record as COMTRADE (``comtrade/case_NNNNNN_reference.cfg``...).
     progress : bool

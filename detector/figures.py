@@ -502,7 +502,13 @@ def _compensated_panel(ax: Any, cd: Any, t_us: np.ndarray, scale: float, t_f: fl
     sl = slice(int(ok[0]), int(ok[-1]) + 1)
     t, dd, ss = t_us[sl], d[sl], sig[sl]
     band = COMPENSATED_K_SIGMA * ss
-    ax.fill_between(t, -band, band, color=OKABE_ITO["sky_blue"], alpha=0.35, linewidth=0, step="mid")
+    tb, bb = t, band
+    if t.size > 4000:  # the band is smooth: draw the largest value of each of 1000 steps (never narrower)
+        starts = np.linspace(0, t.size, 1001).astype(np.int64)[:-1]
+        tb = np.append(t[starts], t[-1])
+        bb = np.maximum.reduceat(band, starts)
+        bb = np.append(bb, bb[-1])
+    ax.fill_between(tb, -bb, bb, color=OKABE_ITO["sky_blue"], alpha=0.35, linewidth=0, step="post")
     ax.plot(*_envelope(t, dd), color=OKABE_ITO["black"], linewidth=0.9)
     ax.set_xlim(float(t_us[0]), float(t[-1]))
     fin = dd[np.isfinite(dd)]

@@ -63,7 +63,7 @@ LABEL_COLUMNS: dict[str, type] = {
     "damping": float, "series_resistance_ohm": float, "turns_per_section": int, "neutral": str, "shunt_ohm": float,
     "magnetising_reference_H": float, "magnetising_test_H": float, "bil_kV": float, "polarity": str,
     "front_time_us": float, "time_to_half_us": float, "front_resistor_drift": float,
-    "tail_resistor_drift": float,
+    "tail_resistor_drift": float, "effect_current_lsb": float, "effect_voltage_lsb": float,
 }
 
 

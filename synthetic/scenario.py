@@ -134,7 +134,7 @@ SCHEMA: dict[str, dict[str, _Key]] = {
         "breakdown_fraction": _Key("range", 0.0, 1.0, required=False, default=[0.05, 0.95]),
         "phases": _Key("choice", dtype=str, required=False, default=["front", "crest", "tail"]),
         "front_region": _Key("fraction", 0.0, 1.0, required=False, default=0.15),
-        "discharge_charge_C": _Key("range", 1e-14, 1e-6, "log", required=False, default=[1e-12, 3e-8]),
+        "discharge_charge_C": _Key("range", 1e-14, 1e-5, "log", required=False, default=[1e-12, 3e-8]),
         "discharge_width_s": _Key("range", 1e-9, 1e-6, required=False, default=[10e-9, 60e-9]),
         "discharge_pulses": _Key("range", 1, 1000, "int", int, required=False, default=[1, 20]),
         "discharge_repetition_s": _Key("range", 10e-9, 100e-6, "log", required=False, default=[0.2e-6, 5e-6]),
@@ -650,6 +650,13 @@ def make_pair(scenario: Scenario) -> tuple[Any, Any, dict[str, Any]]:
 
     sim_ref = simulate(base, gen_ref, t_end_s=t_end, dt_s=dt_sim, chop=chop_r, level=sc.reduced_level)
     sim_test = simulate(test_design, gen, t_end_s=t_end, dt_s=dt_sim, chop=chop_t, faults=faults)
+    # The fault's own effect, free of noise and of every benign difference: the faulted full-level shot
+    # minus the healthy one on the same network (the decomposition is cached, so this costs little).
+    effect_I = effect_U = 0.0
+    if sc.event != "none" and sim_test.fault_time_s is not None:
+        sim_ok = simulate(test_design, gen, t_end_s=t_end, dt_s=dt_sim, chop=chop_t)
+        effect_I = float(np.max(np.abs(sim_test.neutral_current_A - sim_ok.neutral_current_A)))
+        effect_U = float(np.max(np.abs(sim_test.terminal_voltage_V - sim_ok.terminal_voltage_V)))
 
     peak_I_full = float(np.abs(sim_ref.neutral_current_A).max()) / sc.reduced_level
     i_range = max(peak_I_full * sc.current_range_factor, 1e-6)
@@ -722,6 +729,10 @@ def make_pair(scenario: Scenario) -> tuple[Any, Any, dict[str, Any]]:
         "time_to_half_us": sc.time_to_half_s * 1e6,
         "front_resistor_drift": sc.front_resistor_drift,
         "tail_resistor_drift": sc.tail_resistor_drift,
+        # size of the fault's effect in codes of the test recorder (noise-free simulation difference):
+        # below about one code no comparison of records can see the fault
+        "effect_current_lsb": effect_I / (2.0 * dig_test.current_range_A / 2 ** dig_test.bits),
+        "effect_voltage_lsb": effect_U / (2.0 * dig_test.voltage_range_V / 2 ** dig_test.bits),
     }
     return ref, test, label
 

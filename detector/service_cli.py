@@ -88,12 +88,12 @@ def cmd_serve(args: argparse.Namespace) -> int:
     """Run the service until interrupted; returns the exit status."""
     import uvicorn
 
+    from .compare import default_model
     from .service.app import create_app
     from .service.settings import ENV_SETTINGS
 
     settings = settings_from_args(args)
-    if settings.model_path is not None and not settings.model_path.is_file():
-        raise ShotcheckError(f"{settings.model_path}: model file not found")
+    default_model(settings.model_path)  # refuse a missing, foreign or untrusted model before listening
     if settings.workers > 1:
         os.environ[ENV_SETTINGS] = settings.to_json()
         uvicorn.run("detector.service.app:app_from_environment", factory=True, host=settings.host,

@@ -51,11 +51,10 @@ def shot_kind_from_name(name: str) -> tuple[str, float] | None:
     True
     """
     stem = name.rsplit(".", 1)[0]
-    m = None
-    for m in _NAME_KIND.finditer(stem):
-        pass
-    if m is None:
+    matches = list(_NAME_KIND.finditer(stem))
+    if not matches:
         return None
+    m = matches[-1]
     return m.group(1).lower(), float(m.group(2))
 
 

@@ -5,7 +5,15 @@ from __future__ import annotations
 import pytest
 
 from detector._validation import ShotcheckError
-from detector.sequence import PLANS, Step, check_declared, level_warning, parse_plan, role_for, summarize
+from detector.sequence import (
+    PLANS,
+    Step,
+    check_declared,
+    level_warning,
+    parse_plan,
+    role_for,
+    summarize,
+)
 
 
 def test_default_plan_is_the_order_of_issue_5():

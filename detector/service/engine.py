@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 
-from .._validation import RecordError, ShotcheckError
+from .._validation import ShotcheckError
 from ..record import Channel, Record
 from ..sequence import check_declared, check_level, level_warning, parse_plan, role_for, summarize
 from ..store import Store, StoredRecord

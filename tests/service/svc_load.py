@@ -9,7 +9,6 @@ from pathlib import Path
 
 import httpx
 import numpy as np
-
 import svc_records
 
 

@@ -3,12 +3,11 @@
 from __future__ import annotations
 
 import pytest
+import svc_records
+from conftest import TOKEN
 
 from detector._validation import ShotcheckError
 from detector.service.settings import Settings, is_loopback, read_token_file
-
-import svc_records
-from conftest import TOKEN
 
 
 def _writes(files):

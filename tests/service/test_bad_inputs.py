@@ -12,13 +12,12 @@ import json
 from pathlib import Path
 
 import pytest
+import svc_records
+from conftest import AUTH, TOKEN
 from fastapi.testclient import TestClient
 
 from detector.service.app import create_app
 from detector.service.settings import Settings
-
-import svc_records
-from conftest import AUTH, TOKEN
 
 MALFORMED = Path(__file__).resolve().parents[1] / "data" / "malformed"
 LIMIT = 2 * 1024 * 1024

@@ -7,14 +7,13 @@ import json
 
 import numpy as np
 import pytest
+import svc_records
+from conftest import AUTH
 
 from detector.compare import compare
 from detector.formats import read
 from detector.model import load_model
 from detector.store import Store
-
-import svc_records
-from conftest import AUTH
 
 # DESIGN.md section 6: the keys of the verdict JSON
 VERDICT_KEYS = {"fault_indicated", "event", "probabilities", "fault_time_us", "location", "metrics", "exceeded",

@@ -7,12 +7,11 @@ import time
 
 import httpx
 import pytest
-
-from detector.store import Store
-
 from conftest import TOKEN
 from svc_load import comtrade_pair, run_load
 from svc_server import Server
+
+from detector.store import Store
 
 
 @pytest.mark.slow

@@ -4,14 +4,13 @@ from __future__ import annotations
 
 import pytest
 import schemathesis
+from conftest import AUTH, TOKEN
 from fastapi.testclient import TestClient
 from hypothesis import HealthCheck, settings
 from schemathesis.checks import not_a_server_error
 
 from detector.service.app import create_app
 from detector.service.settings import Settings
-
-from conftest import AUTH, TOKEN
 
 
 @pytest.fixture(scope="module")

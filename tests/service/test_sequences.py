@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import pytest
-
 import svc_records
 from conftest import AUTH
 

@@ -11,11 +11,10 @@ import time
 from pathlib import Path
 
 import pytest
+import svc_records
 
 from detector.store import Store
 from detector.watch import Watcher, shot_kind_from_name
-
-import svc_records
 
 REPO = Path(__file__).resolve().parents[2]
 

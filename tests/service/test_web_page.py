@@ -11,7 +11,6 @@ from pathlib import Path
 
 import httpx
 import pytest
-
 import svc_records
 from conftest import TOKEN
 from svc_server import Server

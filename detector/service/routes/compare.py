@@ -11,7 +11,13 @@ from fastapi.responses import FileResponse, JSONResponse, Response
 
 from ..deps import EngineDep, Writer, form_text, read_multipart, run_in_worker
 from ..engine import Engine, InputError
-from ..schemas import ComparisonJsonIn, ComparisonOut, ErrorOut, WaveshapeOut, MULTIPART_RECORD_SCHEMA
+from ..schemas import (
+    MULTIPART_RECORD_SCHEMA,
+    ComparisonJsonIn,
+    ComparisonOut,
+    ErrorOut,
+    WaveshapeOut,
+)
 
 router = APIRouter(prefix="/v1", tags=["comparisons"])
 

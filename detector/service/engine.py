@@ -113,7 +113,7 @@ def record_from_json(doc: Any, *, name: str = "record") -> Record:
                              status=413, code="too_large")
         try:
             arr = np.asarray(samples, dtype=np.float64)
-        except (TypeError, ValueError):
+        except (TypeError, ValueError, OverflowError):
             raise InputError("samples must all be numbers (no null, text or nested lists)",
                              field=f"{f}.samples") from None
         if arr.ndim != 1:
@@ -235,7 +235,7 @@ class Engine:
                     if path.suffix == ".json":
                         try:
                             doc = json.loads(path.read_bytes())
-                        except (ValueError, UnicodeDecodeError) as exc:
+                        except (ValueError, UnicodeDecodeError, RecursionError) as exc:
                             raise InputError(f"{display}: not valid JSON ({exc})", field=field) from None
                         try:
                             r = record_from_json(doc, name=field)

@@ -91,6 +91,10 @@ def _request_cases(good):
         "text_plain_body": dict(content=b"hello", headers={**AUTH, "content-type": "text/plain"}),
         "json_not_object": dict(content=b"[1, 2, 3]", headers=hj),
         "json_syntax": dict(content=b'{"reference": {', headers=hj),
+        "json_nested_too_deep": dict(content=b'{"reference": ' + b"[" * 100_000 + b"]" * 100_000 + b"}", headers=hj),
+        "json_integer_overflow": dict(content=json.dumps({"reference": rj, "test": _json(full, channels=[
+            {"name": "U", "unit": "kV", "samples": [10**400] * 20},
+            {"name": "I", "unit": "A", "samples": [1] * 20}])}).encode(), headers=hj),
         "json_missing_test": dict(json={"reference": rj}),
         "json_unknown_field": dict(json={"reference": rj, "test": rj, "colour": "red"}),
         "json_null_sample": dict(json={"reference": rj, "test": _json(full, channels=[
@@ -133,7 +137,8 @@ def _request_cases(good):
     }
 
 
-CASE_NAMES = ["no_files", "text_plain_body", "json_not_object", "json_syntax", "json_missing_test",
+CASE_NAMES = ["no_files", "text_plain_body", "json_not_object", "json_syntax", "json_nested_too_deep",
+              "json_integer_overflow", "json_missing_test",
               "json_unknown_field", "json_null_sample", "json_nan_samples", "json_wrong_unit",
               "json_quantity_contradicts_unit", "json_missing_current_channel", "json_unequal_channels",
               "json_negative_interval", "json_interval_text", "json_too_few_samples", "json_no_impulse",

@@ -40,12 +40,15 @@ def comparison_out(row: dict[str, Any]) -> dict[str, Any]:
 def _json_body(raw: bytes) -> Any:
     try:
         return json.loads(raw)
-    except (ValueError, UnicodeDecodeError) as exc:
-        raise InputError(f"the body is not valid JSON ({exc})", field="body") from None
+    except (ValueError, UnicodeDecodeError, RecursionError) as exc:
+        raise InputError(f"the body is not valid JSON ({type(exc).__name__}: {str(exc)[:200]})", field="body") from None
 
 
-def _canonical(doc: Any) -> bytes:
-    return json.dumps(doc, sort_keys=True, separators=(",", ":")).encode()
+def _canonical(doc: Any, field: str) -> bytes:
+    try:
+        return json.dumps(doc, sort_keys=True, separators=(",", ":")).encode()
+    except (ValueError, RecursionError):
+        raise InputError("record nested too deeply to store", field=field) from None
 
 
 @router.post(
@@ -76,7 +79,7 @@ async def create_comparison(request: Request, engine: EngineDep, actor: Writer) 
         for f in ("reference", "test"):
             if f not in doc:
                 raise InputError(f"missing field {f!r}", field=f)
-        files = {f: [(f"{f}.json", _canonical(doc[f]))] for f in ("reference", "test")}
+        files = {f: [(f"{f}.json", _canonical(doc[f], f))] for f in ("reference", "test")}
         opts = {k: doc.get(k) for k in ("voltage_channel", "current_channel")}
         for k, v in opts.items():
             if v is not None and not isinstance(v, str):

@@ -123,19 +123,27 @@ class Verdict:
 
 
 def _fault_time_pair_s(a: PairAnalysis) -> float | None:
-    """Earliest credible onset of the difference on the pair's time axis [s]."""
+    """Onset of the fault's effect on the pair's time axis [s], or None.
+
+    Preference: the first significant wave-shape-compensated difference (free of benign wave-shape
+    effects) and the first significant wavelet difference at the finest level that has one, whichever
+    is earlier; failing both, the raw time-domain onset; failing that, a voltage collapse of a test shot
+    that was not chopped on purpose.
+    """
+    front = a.front_time_s
     cands = []
     if a.compensated_onset_s is not None:
         cands.append(float(a.compensated_onset_s))
-    if a.wavelet is not None and a.wavelet.fault_time_s is not None:
+    if a.wavelet is not None and a.wavelet.fault_time_s is not None and a.wavelet.fault_time_s > front + 0.3e-6:
         cands.append(float(a.wavelet.fault_time_s))
-    if a.time_domain.onset_s is not None:
-        cands.append(float(a.time_domain.onset_s))
+    if cands:
+        return min(cands)
+    if a.time_domain.onset_s is not None and a.time_domain.onset_s >= front - 0.5e-6:
+        return float(a.time_domain.onset_s)
     tc = a.time_domain.test_collapse
     if tc is not None and (a.test_shape is None or a.test_shape.kind != "lightning_chopped"):
-        cands.append(float(tc.time_s))
-    cands = [c for c in cands if c >= a.front_time_s - 0.5e-6]
-    return min(cands) if cands else None
+        return float(tc.time_s)
+    return None
 
 
 def compare(
@@ -189,7 +197,10 @@ def compare(
     t_fault = None
     loc = None
     if fault:
-        t_fault = a.to_test_time_s(_fault_time_pair_s(a))
+        if m.timer is not None:
+            t_fault = a.front_test_time_s + 1e-6 * float(m.timer.predict(x)[0])
+        else:
+            t_fault = a.to_test_time_s(_fault_time_pair_s(a))
         if m.locator is not None:
             loc = float(m.locator.predict(x)[0])
     info = {

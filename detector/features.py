@@ -34,7 +34,7 @@ __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", 
            "features_only"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "3"
+SCHEMA_VERSION = "4"
 
 #: Detail levels of the wavelet difference kept as features (D1 finest .. D8), plus the approximation.
 WAVELET_LEVELS = 8
@@ -67,6 +67,11 @@ def _names() -> tuple[str, ...]:
     n += [f"wv_{lab}_log_energy" for lab in _WV_LABELS]
     n += [f"wv_{lab}_peak_sigma" for lab in _WV_LABELS]
     n += ["wv_fine_peak_sigma", "wv_coarse_peak_sigma", "wv_fault_after_front_us"]
+    # onset times of every detector relative to the front [us]: the instant regressor learns which to
+    # trust and how late the effect reaches the terminals (propagation through the winding)
+    n += [f"wv_{lab}_first_after_front_us" for lab in _WV_LABELS]
+    n += [f"cd_scale{m}_first_after_front_us" for m in SCALES]
+    n += ["td_i_onset_after_front_us", "td_v_onset_after_front_us", "td_collapse_after_front_us"]
     n += ["ws_front_time_change", "ws_time_to_half_change", "ws_test_voltage_ratio_change",
           "noise_i_ref_ppm", "noise_i_test_ppm", "sample_rate_MHz"]
     return tuple(n)
@@ -120,6 +125,11 @@ class PairAnalysis:
     def as_dict(self) -> dict[str, float]:
         """Feature name -> value (NaN kept)."""
         return dict(zip(FEATURE_NAMES, (float(x) for x in self.features), strict=True))
+
+    @property
+    def front_test_time_s(self) -> float:
+        """Time of the reference front (30 % point) on the test record's own time axis [s]."""
+        return float(self.to_test_time_s(self.front_time_s))
 
     def to_test_time_s(self, t_pair_s: float | None) -> float | None:
         """Convert a time on the pair's axis to the test record's own time axis [s]."""
@@ -183,13 +193,13 @@ def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s:
     onset_s = float(t[hits.min()]) if hits.size else None
     onset_us = nan if onset_s is None else 1e6 * (onset_s - front_s)
     span_us = 1e6 * (float(t[np.flatnonzero(fin)[-1]]) - front_s) if fin.any() else nan
-    return [front_z, max_z, max_pct, energy, onset_us, span_us, onset_s, ms_z]
+    return [front_z, max_z, max_pct, energy, onset_us, span_us, onset_s, ms_z, ms_i]
 
 
 def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[float]:
     nan = math.nan
     if wd is None:
-        return [nan] * (2 * len(_WV_LABELS) + 3)
+        return [nan] * (3 * len(_WV_LABELS) + 3)
     L = wd.level
     energy = np.full(len(_WV_LABELS), nan)
     peak = np.full(len(_WV_LABELS), nan)
@@ -202,7 +212,10 @@ def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[floa
     fine = float(np.nanmax(peak[:2]))
     coarse = float(np.nanmax(peak[3:k])) if k > 3 else nan
     ft = nan if wd.fault_time_s is None else 1e6 * (wd.fault_time_s - front_s)
-    return [*energy.tolist(), *peak.tolist(), fine, coarse, ft]
+    first = np.full(len(_WV_LABELS), nan)
+    first[:k] = 1e6 * (wd.first_time_s[:k] - front_s)
+    first[-1] = 1e6 * (wd.first_time_s[-1] - front_s)
+    return [*energy.tolist(), *peak.tolist(), fine, coarse, ft, *first.tolist()]
 
 
 def _shape_or_none(record: Record, label: str, notes: list[str]) -> WaveShape | None:
@@ -308,6 +321,14 @@ def extract(
     f += cd_f[:6]
     f += list(cd_f[7])
     f += _wavelet_features(wd, front_s)
+    t_pair = pair.times_s
+    f += [nan if i < 0 else 1e6 * (float(t_pair[i]) - front_s) for i in cd_f[8]]
+
+    def _rel(x: float | None) -> float:
+        return nan if x is None else 1e6 * (x - front_s)
+
+    f += [_rel(td.current_onset_s), _rel(td.voltage_onset_s),
+          _rel(None if td.test_collapse is None else td.test_collapse.time_s)]
     peak_i = float(np.max(np.abs(pair.ref_current_pu))) or 1.0
     f += [
         _ratio_change(_get(ws_r, "front_time_s"), _get(ws_t, "front_time_s")),

@@ -36,6 +36,7 @@ from ._validation import ShotcheckError, check_option
 __all__ = [
     "EVENT_CLASSES",
     "FaultClassifier",
+    "InstantRegressor",
     "LocationRegressor",
     "ShotModel",
     "save_model",
@@ -259,11 +260,27 @@ class LocationRegressor(RegressorMixin, BaseEstimator):
         tags.input_tags.allow_nan = True
         return tags
 
+    #: Range the predictions are clipped to (None: not clipped).
+    _clip: tuple[float, float] | None = (0.0, 1.0)
+
     def predict(self, X: Any) -> np.ndarray:
         """Position along the winding, clipped to [0, 1] (fraction of its length from the line end)."""
         check_is_fitted(self)
         X = validate_data(self, X, reset=False, ensure_all_finite="allow-nan")
-        return np.clip(self.model_.predict(X), 0.0, 1.0)
+        y = self.model_.predict(X)
+        return y if self._clip is None else np.clip(y, *self._clip)
+
+
+class InstantRegressor(LocationRegressor):
+    """Gradient-boosting regressor of the fault instant relative to the voltage front [us].
+
+    The onset a record shows lags the fault by the time its effect needs to travel through the winding
+    to the terminal or the neutral; the regressor learns from every detector's onset time (features
+    ``*_after_front_us``) when the fault most likely began. Same parameters as
+    :class:`LocationRegressor`; predictions are not clipped.
+    """
+
+    _clip = None
 
 
 @dataclasses.dataclass
@@ -284,6 +301,8 @@ class ShotModel:
         Calibrated threshold of each thresholded feature (a feature above it counts as exceeded).
     card : mapping
         Model card: training data description, figures, versions, creation time.
+    timer : InstantRegressor or None
+        Fitted regressor of the fault instant relative to the voltage front [us].
     """
 
     classifier: FaultClassifier
@@ -292,12 +311,14 @@ class ShotModel:
     schema_version: str
     thresholds: Mapping[str, float] = dataclasses.field(default_factory=dict)
     card: Mapping[str, Any] = dataclasses.field(default_factory=dict)
+    timer: InstantRegressor | None = None
 
 
 #: Types a model file may contain beyond skops' defaults. Anything else is refused on load.
 TRUSTED_TYPES: tuple[str, ...] = (
     "detector.model.FaultClassifier",
     "detector.model.LocationRegressor",
+    "detector.model.InstantRegressor",
     "sklearn.calibration._CalibratedClassifier",
     "sklearn.ensemble._hist_gradient_boosting.binning._BinMapper",
     "sklearn.ensemble._hist_gradient_boosting.predictor.TreePredictor",
@@ -349,6 +370,7 @@ def save_model(model: ShotModel, path: str | Path) -> None:
         "card": card,
         "classifier": model.classifier,
         "locator": model.locator,
+        "timer": model.timer,
     }
     sio.dump(payload, Path(path), compression=zipfile.ZIP_DEFLATED, compresslevel=9)
 
@@ -408,9 +430,13 @@ def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotM
     if not isinstance(clf, FaultClassifier):
         raise ShotcheckError(f"{p}: the model file holds no FaultClassifier")
     loc = payload.get("locator")
-    if loc is not None and not isinstance(loc, LocationRegressor):
+    if loc is not None and (not isinstance(loc, LocationRegressor) or isinstance(loc, InstantRegressor)):
         raise ShotcheckError(f"{p}: the 'locator' entry is not a LocationRegressor")
+    timer = payload.get("timer")
+    if timer is not None and not isinstance(timer, InstantRegressor):
+        raise ShotcheckError(f"{p}: the 'timer' entry is not an InstantRegressor")
     return ShotModel(
+        timer=timer,
         classifier=clf,
         locator=loc,
         feature_names=tuple(payload.get("feature_names", ())),

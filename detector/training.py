@@ -23,7 +23,7 @@ import numpy as np
 
 from ._validation import ShotcheckError
 from .features import FEATURE_NAMES, SCHEMA_VERSION, extract
-from .model import EVENT_CLASSES, FaultClassifier, LocationRegressor, ShotModel
+from .model import EVENT_CLASSES, FaultClassifier, InstantRegressor, LocationRegressor, ShotModel
 from .scoring import calibrate_thresholds, false_alarm_rate
 
 __all__ = ["extract_dataset", "train", "evaluate", "LabelledFeatures"]
@@ -42,15 +42,23 @@ class LabelledFeatures:
         True fault instant on the test record's time axis [us] (NaN for none or no ignition).
     onset_us : numpy.ndarray
         Onset of the difference measured by the metrics, on the test record's axis [us] (NaN if none).
+    front_us : numpy.ndarray
+        Time of the voltage front (30 % point of the reference) on the test record's axis [us].
     groups : numpy.ndarray of str
         Winding design of each case (for grouped splits).
     labels : list of dict
         Full label rows.
     failed : list of tuple
         (case_id, message) of pairs whose extraction failed.
+    effect_lsb : numpy.ndarray
+        Noise-free size of each fault's effect in recorder codes (inf for benign pairs and for data sets
+        without that label).
     """
 
-    def __init__(self, X, event, position, fault_time_us, onset_us, groups, labels, failed):
+    def __init__(self, X, event, position, fault_time_us, onset_us, groups, labels, failed, effect_lsb=None,
+                 front_us=None):
+        self.front_us = np.full(len(event), np.nan) if front_us is None else np.asarray(front_us, float)
+        self.effect_lsb = np.full(len(event), np.inf) if effect_lsb is None else np.asarray(effect_lsb, float)
         self.X = X
         self.event = event
         self.position = position
@@ -61,17 +69,17 @@ class LabelledFeatures:
         self.failed = failed
 
 
-def _one(ref, test) -> tuple[np.ndarray, float, str | None]:
-    """Features and measured onset [us, test axis] of one pair, or NaNs and the error message."""
-    from .compare import _fault_time_pair_s
+def _one(ref, test) -> tuple[np.ndarray, tuple[float, float], str | None]:
+    """Features, heuristic onset and front time [us, test axis] of one pair, or NaNs and the error."""
     from ._validation import ShotcheckError as _E
+    from .compare import _fault_time_pair_s
 
     try:
         a = extract(ref, test)
     except _E as exc:
-        return np.full(len(FEATURE_NAMES), np.nan), math.nan, str(exc)
+        return np.full(len(FEATURE_NAMES), np.nan), (math.nan, math.nan), str(exc)
     t = a.to_test_time_s(_fault_time_pair_s(a))
-    return a.features, (math.nan if t is None else 1e6 * t), None
+    return a.features, (math.nan if t is None else 1e6 * t, 1e6 * a.front_test_time_s), None
 
 
 def _chunk(directory: str, case_ids: list[int]) -> list[tuple[int, np.ndarray, float, str | None]]:
@@ -123,7 +131,7 @@ def extract_dataset(directory: str | Path, *, workers: int | None = None, progre
     if use_cache and cache.is_file():
         z = np.load(cache, allow_pickle=False)
         if list(z["case_id"]) == ids and list(z["names"]) == list(FEATURE_NAMES):
-            X, onset = z["X"], z["onset_us"]
+            X, onset, front = z["X"], z["onset_us"], z["front_us"]
             failed = [(int(i), str(m)) for i, m in zip(z["failed_id"], z["failed_msg"], strict=True)]
     if X is None:
         from joblib import Parallel, delayed
@@ -154,10 +162,11 @@ def extract_dataset(directory: str | Path, *, workers: int | None = None, progre
         if bar is not None:
             bar.close()
         X = np.vstack([got[i][0] for i in ids])
-        onset = np.array([got[i][1] for i in ids])
+        onset = np.array([got[i][1][0] for i in ids])
+        front = np.array([got[i][1][1] for i in ids])
         failed = [(i, got[i][2]) for i in ids if got[i][2] is not None]
         np.savez_compressed(
-            cache, X=X, onset_us=onset, case_id=np.array(ids), names=np.array(FEATURE_NAMES),
+            cache, X=X, onset_us=onset, front_us=front, case_id=np.array(ids), names=np.array(FEATURE_NAMES),
             failed_id=np.array([f[0] for f in failed], dtype=int), failed_msg=np.array([f[1] for f in failed], dtype=str),
         )
         if progress:
@@ -168,15 +177,40 @@ def extract_dataset(directory: str | Path, *, workers: int | None = None, progre
     position = np.array([float(r["position"]) if r["position"] not in ("", None) else math.nan for r in labels])
     ft = np.array([float(r["fault_time_us"]) if r["fault_time_us"] not in ("", None) else math.nan for r in labels])
     groups = np.array([f"{r.get('family', '')}-{r.get('seed', '')}-{r['case_id']}" for r in labels])
-    return LabelledFeatures(X, event, position, ft, onset, groups, labels, failed)
+    out = LabelledFeatures(X, event, position, ft, onset, groups, labels, failed,
+                           np.array([_effect(r) for r in labels]), front)
+    return out
+
+
+def _effect(row: dict[str, Any]) -> float:
+    """Noise-free size of a fault's effect in recorder codes (largest of current and voltage); inf for none."""
+    if row.get("event") == "none":
+        return math.inf
+    vals = [row.get("effect_current_lsb"), row.get("effect_voltage_lsb")]
+    vals = [float(v) for v in vals if v not in (None, "") and math.isfinite(float(v))]
+    return max(vals) if vals else math.inf
 
 
 def _usable(data: LabelledFeatures) -> np.ndarray:
     return np.isfinite(data.X).any(axis=1)
 
 
+def _subset(data: LabelledFeatures, keep: np.ndarray) -> LabelledFeatures:
+    labels = [r for r, k in zip(data.labels, keep, strict=True) if k] if data.labels else []
+    return LabelledFeatures(data.X[keep], data.event[keep], data.position[keep], data.fault_time_us[keep],
+                            data.onset_us[keep], data.groups[keep], labels, data.failed, data.effect_lsb[keep],
+                            data.front_us[keep])
+
+
+#: Faults whose noise-free effect stays below this many recorder codes are invisible to any comparison
+#: of records; they are left out of training (they would teach the model that "no difference" can be a
+#: fault) and reported apart in the evaluation.
+MIN_EFFECT_LSB = 1.0
+
+
 def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed: int = 0,
-          cv_folds: int = 3, description: str = "") -> tuple[ShotModel, dict[str, Any]]:
+          cv_folds: int = 3, description: str = "", min_effect_lsb: float = MIN_EFFECT_LSB
+          ) -> tuple[ShotModel, dict[str, Any]]:
     """Fit thresholds, classifier and locator; report grouped cross-validated figures.
 
     Parameters
@@ -200,8 +234,9 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     """
     from sklearn.model_selection import GroupKFold
 
-    ok = _usable(data)
-    X, y, pos, groups = data.X[ok], data.event[ok], data.position[ok], data.groups[ok]
+    n_invisible = int((data.effect_lsb < min_effect_lsb).sum())
+    data = _subset(data, _usable(data) & (data.effect_lsb >= min_effect_lsb))
+    X, y, pos, groups = data.X, data.event, data.position, data.groups
     if len(set(y)) < 2:
         raise ShotcheckError("the training set needs at least two event classes")
     report: dict[str, Any] = {}
@@ -209,7 +244,12 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
         pred = np.empty(y.size, dtype=object)
         proba = np.zeros((y.size, len(EVENT_CLASSES)))
         loc = np.full(y.size, np.nan)
+        inst = np.full(y.size, np.nan)
+        rel = data.fault_time_us - data.front_us  # target of the instant regressor [us after the front]
         for tr, te in GroupKFold(n_splits=cv_folds).split(X, y, groups):
+            ta = (y[tr] != "none") & np.isfinite(rel[tr])
+            if ta.sum() >= 10:
+                inst[te] = data.front_us[te] + InstantRegressor(random_state=seed).fit(X[tr][ta], rel[tr][ta]).predict(X[te])
             clf = FaultClassifier(random_state=seed).fit(X[tr], y[tr])
             p = clf.predict_proba(X[te])
             for k, c in enumerate(clf.classes_):
@@ -218,25 +258,29 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
             if fa.sum() >= 10:
                 loc[te] = LocationRegressor(random_state=seed).fit(X[tr][fa], pos[tr][fa]).predict(X[te])
         pred = _decide(proba)
-        sub = LabelledFeatures(X, y, pos, data.fault_time_us[ok], data.onset_us[ok], groups, [], [])
-        report = _figures(sub, proba, pred, loc)
+        report = _figures(data, proba, pred, loc, inst)
         report["cv_folds"] = cv_folds
     benign = X[y == "none"]
     thresholds = calibrate_thresholds(benign, false_alarm_rate=false_alarm_rate_target) if benign.shape[0] >= 10 else {}
     clf = FaultClassifier(random_state=seed).fit(X, y)
     fa = (y != "none") & np.isfinite(pos)
     locator = LocationRegressor(random_state=seed).fit(X[fa], pos[fa]) if fa.sum() >= 10 else None
+    rel = data.fault_time_us - data.front_us
+    ta = (y != "none") & np.isfinite(rel)
+    timer = InstantRegressor(random_state=seed).fit(X[ta], rel[ta]) if ta.sum() >= 10 else None
     card = {
         "name": "shotcheck synthetic model",
         "training_data": description,
         "n_pairs": int(y.size),
         "class_counts": {c: int((y == c).sum()) for c in EVENT_CLASSES},
         "n_failed_extractions": len(data.failed),
+        "n_invisible_faults_left_out": n_invisible,
+        "min_effect_lsb": min_effect_lsb,
         "false_alarm_rate_target": false_alarm_rate_target,
         "threshold_false_alarm_rate_on_training": false_alarm_rate(benign, thresholds) if thresholds else None,
         "cross_validation": {k: v for k, v in report.items() if k != "roc"},
     }
-    model = ShotModel(clf, locator, FEATURE_NAMES, SCHEMA_VERSION, thresholds, card)
+    model = ShotModel(clf, locator, FEATURE_NAMES, SCHEMA_VERSION, thresholds, card, timer)
     return model, report
 
 
@@ -250,7 +294,8 @@ def _decide(proba: np.ndarray) -> np.ndarray:
     return out
 
 
-def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: np.ndarray) -> dict[str, Any]:
+def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: np.ndarray,
+             instant_us: np.ndarray | None = None) -> dict[str, Any]:
     from sklearn.metrics import confusion_matrix, roc_auc_score, roc_curve
 
     y = data.event
@@ -271,8 +316,9 @@ def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: n
     fa = detected & np.isfinite(data.position) & np.isfinite(loc)
     rep["location_error_median"] = float(np.median(np.abs(loc[fa] - data.position[fa]))) if fa.any() else None
     rep["location_error_p90"] = float(np.quantile(np.abs(loc[fa] - data.position[fa]), 0.9)) if fa.any() else None
-    ft = detected & np.isfinite(data.fault_time_us) & np.isfinite(data.onset_us)
-    errs = np.abs(data.onset_us[ft] - data.fault_time_us[ft])
+    est = data.onset_us if instant_us is None else instant_us
+    ft = detected & np.isfinite(data.fault_time_us) & np.isfinite(est)
+    errs = np.abs(est[ft] - data.fault_time_us[ft])
     rep["fault_time_error_median_us"] = float(np.median(errs)) if errs.size else None
     rep["fault_time_error_p90_us"] = float(np.quantile(errs, 0.9)) if errs.size else None
     rep["fault_time_found_share"] = float(ft.sum() / max(1, detected.sum()))
@@ -284,7 +330,7 @@ def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: n
     return rep
 
 
-def evaluate(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
+def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float = MIN_EFFECT_LSB) -> dict[str, Any]:
     """Figures of a model on a labelled set (held out from its training).
 
     Returns
@@ -296,20 +342,57 @@ def evaluate(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
         ``threshold_false_alarm_rate``.
     """
     ok = _usable(data)
-    X = data.X[ok]
-    sub = LabelledFeatures(X, data.event[ok], data.position[ok], data.fault_time_us[ok], data.onset_us[ok],
-                           data.groups[ok], [], [])
+    n_failed = int((~ok).sum())
+    full = _subset(data, ok)
+    rep = _evaluate_subset(model, _subset(full, full.effect_lsb >= min_effect_lsb))
+    rep["min_effect_lsb"] = min_effect_lsb
+    rep["n_failed_extractions"] = n_failed
+    rep["all_faults_including_invisible"] = {
+        k: v for k, v in _evaluate_subset(model, full).items() if k in ("detection_rate", "n_pairs")
+    }
+    rep["detection_by_effect_lsb"] = _by_effect(model, full)
+    return rep
+
+
+def _predict(model: ShotModel, X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    p = model.classifier.predict_proba(X)
+    proba = np.zeros((X.shape[0], len(EVENT_CLASSES)))
+    for k, c in enumerate(model.classifier.classes_):
+        proba[:, EVENT_CLASSES.index(str(c))] = p[:, k]
+    return proba, _decide(proba)
+
+
+def _by_effect(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
+    """Detection rate of faults by the size of their effect in recorder codes."""
+    if data.X.shape[0] == 0:
+        return {}
+    _, pred = _predict(model, data.X)
+    out: dict[str, Any] = {}
+    edges = [0.0, 0.5, 1.0, 2.0, 5.0, 10.0, 100.0, math.inf]
+    fault = data.event != "none"
+    for lo, hi in zip(edges[:-1], edges[1:], strict=True):
+        sel = fault & (data.effect_lsb >= lo) & (data.effect_lsb < hi)
+        if sel.any():
+            out[f"{lo:g}-{hi:g}"] = {"n": int(sel.sum()), "detected": float((pred[sel] != "none").mean())}
+    return out
+
+
+def _evaluate_subset(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
+    X = data.X
+    sub = data
+    if X.shape[0] == 0:
+        return {"n_pairs": 0}
     p = model.classifier.predict_proba(X)
     proba = np.zeros((X.shape[0], len(EVENT_CLASSES)))
     for k, c in enumerate(model.classifier.classes_):
         proba[:, EVENT_CLASSES.index(str(c))] = p[:, k]
     pred = _decide(proba)
     loc = model.locator.predict(X) if model.locator is not None else np.full(X.shape[0], np.nan)
-    rep = _figures(sub, proba, pred, loc)
+    inst = (data.front_us + model.timer.predict(X)) if model.timer is not None else None
+    rep = _figures(sub, proba, pred, loc, inst)
     benign = X[sub.event == "none"]
     if model.thresholds and benign.shape[0]:
         rep["threshold_false_alarm_rate"] = false_alarm_rate(benign, model.thresholds)
-    rep["n_failed_extractions"] = int((~ok).sum())
     return rep
 
 

@@ -112,6 +112,8 @@ def _request_cases(good):
             {"name": "U", "unit": "kV", "samples": [1.0] * 5}, {"name": "I", "unit": "A", "samples": [1.0] * 5}])}),
         "json_no_impulse": dict(json={"reference": rj, "test": flat}),
         "json_channel_option_unknown": dict(json={"reference": rj, "test": rj, "voltage_channel": "U9"}),
+        "huge_chunked_body": dict(content=(b"x" * 65536 for _ in range(LIMIT // 65536 + 2)),
+                                  headers={**AUTH, "content-type": "multipart/form-data; boundary=xyz"}),
         "huge_body": dict(files=[("reference", ("big.csv", b"0" * (LIMIT + 10))), ("test", ("t.csv", b"1"))]),
         "binary_garbage_csv": dict(files=[("reference", ("r.csv", bytes(range(256)) * 40)),
                                           ("test", ("t.csv", csv_text.encode()))]),
@@ -142,7 +144,7 @@ CASE_NAMES = ["no_files", "text_plain_body", "json_not_object", "json_syntax", "
               "json_unknown_field", "json_null_sample", "json_nan_samples", "json_wrong_unit",
               "json_quantity_contradicts_unit", "json_missing_current_channel", "json_unequal_channels",
               "json_negative_interval", "json_interval_text", "json_too_few_samples", "json_no_impulse",
-              "json_channel_option_unknown", "huge_body", "binary_garbage_csv", "binary_garbage_cff",
+              "json_channel_option_unknown", "huge_body", "huge_chunked_body", "binary_garbage_csv", "binary_garbage_cff",
               "cfg_without_dat", "dat_alone", "truncated_dat", "truncated_csv", "unsupported_suffix",
               "two_csv_one_field", "empty_file", "field_as_text", "broken_multipart",
               "mismatched_rate_in_one_record"]
@@ -154,7 +156,7 @@ def test_bad_requests(bad_client, good, case):
     kw.setdefault("headers", AUTH)
     r = bad_client.post("/v1/comparisons", **kw)
     body = _check_4xx(r)
-    if case == "huge_body":
+    if case in ("huge_body", "huge_chunked_body"):
         assert r.status_code == 413 and body["error"] == "too_large"
     if case == "text_plain_body":
         assert r.status_code == 415

@@ -489,9 +489,13 @@ class Store:
 
     def add_shot(
         self, sid: str, record: StoredRecord, *, kind: str, level_percent: float, role: str,
-        waveshape: dict[str, Any], warnings: list[str], actor: str = "service",
+        waveshape: dict[str, Any], warnings: list[str], actor: str = "service", expect_position: int | None = None,
     ) -> tuple[dict[str, Any], bool]:
         """Append a shot to a sequence (idempotent on the record's content).
+
+        ``expect_position`` guards against another process having added a shot since the caller decided
+        the role: if the new shot would not land there, :class:`ShotcheckError` is raised and nothing is
+        written (the caller re-reads the sequence and decides again).
 
         Returns
         -------
@@ -506,6 +510,9 @@ class Store:
                 return self._shot(row), False
             pos = c.execute("SELECT COALESCE(MAX(position), 0) + 1 FROM shots WHERE sequence_id=?",
                             (sid,)).fetchone()[0]
+            if expect_position is not None and pos != expect_position:
+                raise ShotcheckError(f"sequence {sid} changed meanwhile: next position {pos}, expected "
+                                     f"{expect_position}")
             shot_id = f"{sid}-{pos:03d}"
             c.execute(
                 "INSERT INTO shots(id, sequence_id, position, record_digest, name, kind, level_percent, role, "
@@ -521,6 +528,11 @@ class Store:
         """Record which comparison judged a shot."""
         with self._tx() as c:
             c.execute("UPDATE shots SET comparison_id=? WHERE id=?", (comparison_id, shot_id))
+
+    def shots_without_comparison(self) -> list[dict[str, Any]]:
+        """Shots other than references that have no comparison linked (left so by a crash)."""
+        return [self._shot(r) for r in self._query(
+            "SELECT * FROM shots WHERE role != 'reference' AND comparison_id IS NULL ORDER BY sequence_id, position")]
 
     def list_shots(self, sid: str) -> list[dict[str, Any]]:
         """Shots of a sequence in the order they were posted."""

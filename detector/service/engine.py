@@ -29,6 +29,10 @@ __all__ = ["Engine", "InputError", "record_from_json", "files_of_field", "MAX_JS
 MAX_JSON_SAMPLES = 2_000_000
 
 
+class _SequenceMoved(Exception):
+    """A shot was added to the sequence by another process between reading it and writing."""
+
+
 class InputError(ShotcheckError):
     """A request the user can fix: carries an error code and the offending field.
 
@@ -330,7 +334,13 @@ class Engine:
         return _single_threaded_compare(ref, tst, self.model), row
 
     def recover(self) -> int:
-        """Finish every comparison left pending by a crash; returns how many were finished."""
+        """Finish what a crash left undone: pending comparisons, and shots stored without their comparison.
+
+        Returns
+        -------
+        int
+            Number of comparisons and shots finished.
+        """
         n = 0
         for cid in self.store.pending_comparisons():
             row = self.store.get_comparison(cid)
@@ -344,6 +354,12 @@ class Engine:
                 continue
             try:
                 self._run(cid, ref, tst, row["options"], "recovery")
+            except InputError:
+                pass
+            n += 1
+        for shot in self.store.shots_without_comparison():
+            try:
+                self._finish_shot(shot, {}, "recovery")
             except InputError:
                 pass
             n += 1
@@ -412,52 +428,77 @@ class Engine:
         opts = {"voltage_channel": voltage_channel, "current_channel": current_channel}
         opts = {k: v for k, v in opts.items() if v is not None}
         with self._lock_for(sid):
-            existing = self.store.find_shot(sid, rec.digest)
-            if existing is not None:
-                return self._shot_view(existing), False
-            previous = self.store.list_shots(sid)
-            try:
-                role, ref_id = role_for(kind, previous)
-            except ShotcheckError as exc:
-                raise InputError(str(exc), field="kind", code="no_reference", status=409) from None
-            record = self.read(rec, field="record", **opts)
-            if not record.has_current:
-                raise InputError(f"{rec.name}: no current channel; a shot needs the neutral current",
-                                 field="record.channels", code="invalid_record")
-            from ..waveshape import evaluate_waveshape
-
-            bare = record.replace(meta={k: v for k, v in record.meta.items() if k != "shot_kind"})
-            try:
-                ws = evaluate_waveshape(bare)
-                check_declared(kind, ws.kind, name=rec.name)
-            except ShotcheckError as exc:
-                raise InputError(str(exc), field="kind", code="invalid_record") from None
-            wsd = _finite_or_none(ws.to_dict())
-            warnings: list[str] = []
-            ref_shot = next((s for s in previous if s["id"] == ref_id), None)
-            if ref_shot is not None:
-                vt_ref = ref_shot["waveshape"].get("test_voltage_kV")
-                vt = wsd.get("test_voltage_kV")
-                if vt_ref and vt:
-                    w = level_warning(level / float(ref_shot["level_percent"]), abs(vt) / abs(vt_ref))
-                    if w:
-                        warnings.append(w)
-            shot, created = self.store.add_shot(sid, rec, kind=kind, level_percent=level, role=role,
-                                                waveshape=wsd, warnings=warnings, actor=actor)
-            if ref_shot is not None and created:
-                ref_rec = self.store.get_record(ref_shot["record_digest"])
-                assert ref_rec is not None
+            for attempt in range(5):  # another worker process may add a shot meanwhile: decide again
                 try:
-                    row, _ = self.compare(ref_rec, rec, options=opts, actor=actor)
-                    cid = row["id"]
-                except InputError as exc:
-                    cid = Store.comparison_id(ref_rec.digest, rec.digest, self.model_id, opts)
-                    self.store.link_shot(shot["id"], cid)
-                    raise InputError(f"stored as shot {shot['id']} but not comparable: {exc}", field=exc.field,
-                                     code=exc.code) from None
-                self.store.link_shot(shot["id"], cid)
-                shot["comparison_id"] = cid
+                    return self._add_shot_once(sid, rec, kind, level, opts, actor)
+                except _SequenceMoved:
+                    if attempt == 4:
+                        raise InputError("the sequence is being changed by another request; post again",
+                                         field="id", code="conflict", status=409) from None
+        raise AssertionError("unreachable")
+
+    def _add_shot_once(self, sid: str, rec: StoredRecord, kind: str, level: float, opts: Mapping[str, str],
+                       actor: str) -> tuple[dict[str, Any], bool]:
+        existing = self.store.find_shot(sid, rec.digest)
+        if existing is not None:
+            if existing["role"] != "reference" and existing["comparison_id"] is None:
+                existing = self._finish_shot(existing, opts, actor)  # a crash came between shot and verdict
+            return self._shot_view(existing), False
+        previous = self.store.list_shots(sid)
+        try:
+            role, ref_id = role_for(kind, previous)
+        except ShotcheckError as exc:
+            raise InputError(str(exc), field="kind", code="no_reference", status=409) from None
+        record = self.read(rec, field="record", **opts)
+        if not record.has_current:
+            raise InputError(f"{rec.name}: no current channel; a shot needs the neutral current",
+                             field="record.channels", code="invalid_record")
+        from ..waveshape import evaluate_waveshape
+
+        bare = record.replace(meta={k: v for k, v in record.meta.items() if k != "shot_kind"})
+        try:
+            ws = evaluate_waveshape(bare)
+            check_declared(kind, ws.kind, name=rec.name)
+        except ShotcheckError as exc:
+            raise InputError(str(exc), field="kind", code="invalid_record") from None
+        wsd = _finite_or_none(ws.to_dict())
+        warnings: list[str] = []
+        ref_shot = next((s for s in previous if s["id"] == ref_id), None)
+        if ref_shot is not None:
+            vt_ref = ref_shot["waveshape"].get("test_voltage_kV")
+            vt = wsd.get("test_voltage_kV")
+            if vt_ref and vt:
+                w = level_warning(level / float(ref_shot["level_percent"]), abs(vt) / abs(vt_ref))
+                if w:
+                    warnings.append(w)
+        try:
+            shot, created = self.store.add_shot(sid, rec, kind=kind, level_percent=level, role=role,
+                                                waveshape=wsd, warnings=warnings, actor=actor,
+                                                expect_position=len(previous) + 1)
+        except ShotcheckError:
+            raise _SequenceMoved() from None
+        if ref_shot is not None and created:
+            shot = self._finish_shot(shot, opts, actor)
         return self._shot_view(shot), created
+
+    def _finish_shot(self, shot: dict[str, Any], opts: Mapping[str, str], actor: str) -> dict[str, Any]:
+        """Compare a stored shot with its sequence's reference and link the comparison to it."""
+        ref_shot = next((s for s in self.store.list_shots(shot["sequence_id"]) if s["role"] == "reference"), None)
+        if ref_shot is None:
+            return shot
+        ref_rec = self.store.get_record(ref_shot["record_digest"])
+        rec = self.store.get_record(shot["record_digest"])
+        assert ref_rec is not None and rec is not None
+        try:
+            row, _ = self.compare(ref_rec, rec, options=opts, actor=actor)
+            cid = row["id"]
+        except InputError as exc:
+            cid = Store.comparison_id(ref_rec.digest, rec.digest, self.model_id, dict(opts))
+            self.store.link_shot(shot["id"], cid)
+            raise InputError(f"stored as shot {shot['id']} but not comparable: {exc}", field=exc.field,
+                             code=exc.code) from None
+        self.store.link_shot(shot["id"], cid)
+        return {**shot, "comparison_id": cid}
 
     def _shot_view(self, shot: Mapping[str, Any]) -> dict[str, Any]:
         out = {k: v for k, v in shot.items() if k != "record_digest"}

@@ -114,3 +114,30 @@ def test_bad_sequence_bodies_are_422(client, body, field):
     r = client.post("/v1/sequences", json=body, headers=AUTH)
     assert r.status_code == 422, r.text
     assert r.json()["field"].startswith(field)
+
+
+def test_a_shot_stored_without_its_comparison_is_finished_on_restart(settings, iec_files):
+    """A crash between committing a shot and comparing it: the next start compares it."""
+    from fastapi.testclient import TestClient
+
+    from detector.service.app import create_app
+    from detector.store import Store
+
+    with TestClient(create_app(settings)) as c:
+        sid = _new(c)
+        assert _shot(c, sid, iec_files[0][0], "reduced", 75).status_code == 201
+    st = Store(settings.data_dir)
+    try:
+        rec = st.put_record([(p.name, p.read_bytes()) for p in iec_files[1][0]])
+        with pytest.raises(Exception, match="changed meanwhile"):  # the position guard of concurrent writers
+            st.add_shot(sid, rec, kind="full", level_percent=100, role="test", waveshape={}, warnings=[],
+                        expect_position=5)
+        st.add_shot(sid, rec, kind="full", level_percent=100, role="test", waveshape={}, warnings=[],
+                    expect_position=2)
+        assert len(st.shots_without_comparison()) == 1
+    finally:
+        st.close()
+    with TestClient(create_app(settings)) as c:
+        shots = c.get(f"/v1/sequences/{sid}").json()["shots"]
+    assert shots[1]["comparison"]["status"] == "done"
+    assert "fault_indicated" in shots[1]["comparison"]["verdict"]

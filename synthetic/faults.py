@@ -117,14 +117,15 @@ class Breakdown:
 
 @dataclasses.dataclass(frozen=True)
 class DischargeTrain:
-    """Partial discharges at one node: current pulses while the node voltage exceeds inception.
+    """Partial discharges: current pulses while the stress of a gap exceeds inception.
 
     Parameters
     ----------
     node : int
         Winding node receiving the pulses.
     inception_V : float
-        Pulses occur only while |v_node| >= inception_V [V], > 0.
+        Pulses occur only while the gap voltage |v_node - v_node_b| (|v_node| for a discharge to
+        ground) is at least inception_V [V], > 0.
     charge_C : float
         Charge of each pulse [C], > 0 (pC to tens of nC).
     width_s : float
@@ -133,6 +134,9 @@ class DischargeTrain:
         Largest number of pulses in one shot, >= 1.
     repetition_s : float
         Interval between pulses [s], > 0; first pulse at the inception instant.
+    node_b : int or None
+        Other end of the discharging gap (an adjacent turn or disc): the pulse current flows from
+        ``node_b`` to ``node`` and no net charge reaches ground. None: a discharge to ground.
     """
 
     node: int
@@ -141,9 +145,14 @@ class DischargeTrain:
     width_s: float = 20e-9
     max_pulses: int = 10
     repetition_s: float = 1e-6
+    node_b: int | None = None
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "node", _check_node("DischargeTrain.node", self.node))
+        if self.node_b is not None:
+            object.__setattr__(self, "node_b", _check_node("DischargeTrain.node_b", self.node_b))
+            if self.node_b == self.node:
+                raise ShotcheckError("DischargeTrain.node_b must differ from node")
         for name, unit in (("inception_V", "V"), ("charge_C", "C"), ("width_s", "s"), ("repetition_s", "s")):
             v = check_range(f"DischargeTrain.{name}", getattr(self, name), 0.0, None, low_inclusive=False,
                             unit=unit)

@@ -244,16 +244,24 @@ class Network:
             m = m * self.lam
         return m
 
-    def injection(self, node: int) -> np.ndarray:
-        """Modal input vector beta of a unit current injected into winding node ``node``."""
+    def injection(self, node: int | tuple[int, int]) -> np.ndarray:
+        """Modal input vector beta of a unit current injected into winding node ``node``.
+
+        A pair ``(a, b)`` injects the current into ``a`` and draws it from ``b`` (a source between two
+        nodes: no net charge reaches ground).
+        """
+        if isinstance(node, tuple):
+            return self.injection(node[0]) - self.injection(node[1])
         i = self.node_state(node)
         b = np.zeros(self.nx)
         if i is not None:
             b[: self.nv] = self.Cinv[:, i]
         return self.Wx @ b
 
-    def feedthrough(self, row: np.ndarray, node: int) -> float:
+    def feedthrough(self, row: np.ndarray, node: int | tuple[int, int]) -> float:
         """Direct term of a derivative row for a unit current injected into ``node``: row . (A-input)."""
+        if isinstance(node, tuple):
+            return self.feedthrough(row, node[0]) - self.feedthrough(row, node[1])
         i = self.node_state(node)
         if i is None:
             return 0.0
@@ -594,8 +602,9 @@ def _check_faults(winding: WindingDesign, faults: Sequence) -> tuple[list[Breakd
                     raise ShotcheckError(f"Breakdown {f.label}: node {node} is outside 0..{n}")
             bks.append(f)
         elif isinstance(f, DischargeTrain):
-            if f.node > n:
-                raise ShotcheckError(f"DischargeTrain node {f.node} is outside 0..{n}")
+            for node in (f.node, f.node_b):
+                if node is not None and node > n:
+                    raise ShotcheckError(f"DischargeTrain node {node} is outside 0..{n}")
             trains.append(f)
         else:
             raise ShotcheckError(f"faults must be Breakdown or DischargeTrain objects, got {type(f).__name__}")
@@ -676,7 +685,7 @@ def _run(winding: WindingDesign, generator: ImpulseGenerator, *, t_end_s: float,
         for j, tr in enumerate(trains):
             if train_count[j] >= tr.max_pulses:
                 continue
-            row = net.row_voltage(tr.node)
+            row = net.row_voltage(tr.node, tr.node_b)
             fun = fun_of(row)
             if train_next[j] is None or train_next[j] < t_s:
                 k_lim = min(np.searchsorted(t_grid, t_stop, side="right") + 1, t_grid.size)
@@ -698,8 +707,10 @@ def _run(winding: WindingDesign, generator: ImpulseGenerator, *, t_end_s: float,
             tau1, tau2 = pulse_time_constants(tr.width_s)
             for tp, vp in zip(tc[fire], v[fire], strict=True):
                 a = np.sign(vp) * tr.charge_C / (tau1 - tau2)
-                sources.append(_Source(tr.node, float(tp), np.array([a, -a]), np.array([tau1, tau2])))
-                events.append((float(tp), f"discharge node {tr.node}"))
+                where = tr.node if tr.node_b is None else (tr.node, tr.node_b)
+                sources.append(_Source(where, float(tp), np.array([a, -a]), np.array([tau1, tau2])))
+                events.append((float(tp), f"discharge node {tr.node}" if tr.node_b is None
+                               else f"discharge {tr.node}-{tr.node_b}"))
                 fault_time = float(tp) if fault_time is None else min(fault_time, float(tp))
             train_count[j] += int(fire.sum())
             train_next[j] = float(tc[-1] + tr.repetition_s)

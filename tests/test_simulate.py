@@ -339,3 +339,22 @@ def test_state_matrix_is_the_nodal_equations(case):
                                          k0=0.7, series_resistance_ohm=0.0, damping=0.0, neutral="isolated")
     lam = build_network(lossless, None).lam
     assert np.abs(lam.real).max() < 1e-10 * np.abs(lam).max()
+
+
+def test_discharge_between_two_nodes_moves_charge_but_adds_none():
+    """A discharge across a gap between two nodes (charge conservation): with no DC path to ground the
+    total charge on the ground capacitances is unchanged, so the common voltage does not rise, while the
+    node on the receiving side ends higher than without the discharge."""
+    w = WindingDesign.from_totals(20, total_inductance_H=0.05, total_ground_capacitance_F=2e-9, alpha=5.0,
+                                  neutral="isolated", series_resistance_ohm=2e4, damping=0.3)
+    g = ImpulseGenerator(2e-9, 100.0, np.inf, 0.5e-9, 0.0, 1e4)
+    train = DischargeTrain(node=8, inception_V=1e2, charge_C=5e-9, width_s=20e-9, max_pulses=3,
+                           repetition_s=2e-6, node_b=9)
+    a = simulate(w, g, t_end_s=2e-3, dt_s=1e-6, record_nodes=True)
+    b = simulate(w, g, t_end_s=2e-3, dt_s=1e-6, record_nodes=True, faults=(train,))
+    assert [e[1] for e in b.events] == ["discharge 8-9"] * 3
+    cg = np.concatenate(([g.C1_F + g.C_load_F], np.zeros(w.n_nodes - 1))) + w.Cg_F
+    dq = float((b.node_voltages_V[-1] - a.node_voltages_V[-1]) @ cg)
+    assert abs(dq) < 1e-6 * 3 * 5e-9
+    with pytest.raises(ShotcheckError, match="node_b must differ"):
+        DischargeTrain(node=8, inception_V=1e2, charge_C=5e-9, node_b=8)

@@ -108,3 +108,54 @@ def run_load(url: str, token: str, reference, test, *, clients: int = 8, duratio
     for t in threads:
         t.join(duration_s + timeout_s + 10)
     return LoadResult(time.monotonic() - t0, statuses, lat, ids, errors, retry)
+
+
+def run_shot_load(url: str, token: str, reference, test, *, clients: int = 2, duration_s: float = 10.0,
+                  timeout_s: float = 30.0, stop: threading.Event | None = None) -> tuple[list[str], list[str], dict]:
+    """Each client opens a sequence, posts its reference shot, then unique full-level shots until stopped.
+
+    Returns
+    -------
+    sequence_ids, ok_shot_ids, statuses
+    """
+    lock = threading.Lock()
+    seqs: list[str] = []
+    shots: list[str] = []
+    statuses: dict[int, int] = {}
+    stop = stop or threading.Event()
+    t_end = time.monotonic() + duration_s
+
+    def client(k: int) -> None:
+        with httpx.Client(base_url=url, timeout=timeout_s, headers={"Authorization": f"Bearer {token}"}) as c:
+            try:
+                sid = c.post("/v1/sequences", json={"unit_id": "TX-0000-SVC", "terminal": f"{k}U",
+                                                    "plan": "iec"}).json()["id"]
+                r = c.post(f"/v1/sequences/{sid}/shots", files=[("record", f) for f in reference],
+                           data={"kind": "reduced", "level_percent": "75"})
+                r.raise_for_status()
+            except httpx.HTTPError:
+                return
+            with lock:
+                seqs.append(sid)
+            n = 0
+            while time.monotonic() < t_end and not stop.is_set():
+                n += 1
+                files = [("record", f) for f in _unique(test, f"SHOT-{k:02d}-{n:06d}")]
+                try:
+                    r = c.post(f"/v1/sequences/{sid}/shots", files=files, data={"kind": "full", "level_percent": "100"})
+                except httpx.HTTPError:
+                    if stop.is_set():
+                        return
+                    time.sleep(0.2)
+                    continue
+                with lock:
+                    statuses[r.status_code] = statuses.get(r.status_code, 0) + 1
+                    if 200 <= r.status_code < 300:
+                        shots.append(r.json()["id"])
+
+    threads = [threading.Thread(target=client, args=(k,), daemon=True) for k in range(clients)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(duration_s + timeout_s + 10)
+    return seqs, shots, statuses

@@ -8,7 +8,7 @@ import time
 import httpx
 import pytest
 from conftest import TOKEN
-from svc_load import comtrade_pair, run_load
+from svc_load import comtrade_pair, run_load, run_shot_load
 from svc_server import Server
 
 from detector.store import Store
@@ -16,16 +16,19 @@ from detector.store import Store
 
 @pytest.mark.slow
 def test_kill_9_during_load_then_restart_keeps_every_answered_shot(tmp_path, model_path):
-    """issue 5: every comparison answered 2xx before a SIGKILL is in the store with its verdict afterwards."""
+    """issue 5: every comparison and shot answered 2xx before a SIGKILL is in the store with its verdict."""
     ref, test = comtrade_pair(tmp_path)
     data = tmp_path / "data"
     srv = Server(data, model_path, TOKEN, tmp_path / "service.log", ["--workers", "1"]).start()
     stop = threading.Event()
     result = {}
     try:
-        th = threading.Thread(target=lambda: result.update(r=run_load(srv.url, TOKEN, ref, test, clients=8,
+        th = threading.Thread(target=lambda: result.update(r=run_load(srv.url, TOKEN, ref, test, clients=6,
                                                                         duration_s=20.0, stop=stop)))
+        th2 = threading.Thread(target=lambda: result.update(s=run_shot_load(srv.url, TOKEN, ref, test, clients=2,
+                                                                            duration_s=20.0, stop=stop)))
         th.start()
+        th2.start()
         end = time.monotonic() + 20
         while time.monotonic() < end:  # wait for some answered comparisons, then pull the plug
             time.sleep(0.2)
@@ -37,7 +40,10 @@ def test_kill_9_during_load_then_restart_keeps_every_answered_shot(tmp_path, mod
         srv.kill9()
         stop.set()
         th.join(60)
+        th2.join(60)
         load = result["r"]
+        seq_ids, shot_ids, shot_statuses = result["s"]
+        assert shot_ids and all(s < 500 for s in shot_statuses), shot_statuses
         assert load.ok >= 1, load.line()
         assert all(s < 500 for s in load.statuses), load.statuses
         st = Store(data)
@@ -54,14 +60,19 @@ def test_kill_9_during_load_then_restart_keeps_every_answered_shot(tmp_path, mod
             for cid in load.ok_ids:
                 r = c.get(f"/v1/comparisons/{cid}")
                 assert r.status_code == 200 and r.json()["status"] == "done"
+            stored = {s["id"]: s for sid in seq_ids for s in c.get(f"/v1/sequences/{sid}").json()["shots"]}
+            for shot_id in shot_ids:  # every shot answered 2xx, with its verdict
+                assert stored[shot_id]["comparison"]["status"] == "done", stored[shot_id]
+            unfinished = [s for s in stored.values() if s["role"] != "reference" and s["comparison"] is None]
+            assert unfinished == []  # shots in flight at the kill were compared on restart
             assert c.get("/ready").json()["comparisons"].get("pending", 0) == 0
         st = Store(data)
         try:
             assert st.integrity_check() == "ok" and st.pending_comparisons() == []
         finally:
             st.close()
-        print(f"crash: {len(load.ok_ids)} answered before SIGKILL, {pending_after_crash} in flight recomputed "
-              f"on restart; {load.line()}")
+        print(f"crash: {len(load.ok_ids)} comparisons and {len(shot_ids)} sequence shots answered before SIGKILL, "
+              f"{pending_after_crash} comparison(s) in flight finished on restart; {load.line()}")
     finally:
         stop.set()
         srv.stop()

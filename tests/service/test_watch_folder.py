@@ -174,3 +174,19 @@ def test_100_files_two_kill_restart_cycles_each_processed_exactly_once(tmp_path,
         assert not (root / folder / f"{name}.error.txt").exists()
         assert (root / folder / name).read_bytes() == (src / name).read_bytes()
     print(f"watch: 100 files, 2 SIGKILL restarts, {elapsed:.1f} s, {retried} interrupted file(s) redone")
+
+
+def test_watcher_writes_the_html_report_on_request(tmp_path, model_path, record_files):
+    seq = tmp_path / "w" / "s1"
+    seq.mkdir(parents=True)
+    for key in ("reduced_csv", "full_cff"):
+        for p in record_files[key]:
+            (seq / p.name).write_bytes(p.read_bytes())
+    w = Watcher(tmp_path / "w", model_path=model_path, settle_s=0.0, report=True)
+    try:
+        assert [d["status"] for d in w.scan_once()] == ["done", "done"]
+    finally:
+        w.store.close()
+    html = (seq / "TX_05_full_100.cff.report.html").read_text(encoding="utf-8")
+    assert "<html" in html.lower() and "TX_05_full_100.cff" in html
+    assert not (seq / "TX_01_reduced_75.csv.report.html").exists()  # the reference has no comparison

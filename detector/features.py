@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import time
 from collections.abc import Mapping
 from typing import Any
 
@@ -218,6 +219,20 @@ def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[floa
     return [*energy.tolist(), *peak.tolist(), fine, coarse, ft, *first.tolist()]
 
 
+class _Clock:
+    """Adds the wall time since the previous call to ``timings[stage]`` (no-op without a dict)."""
+
+    def __init__(self, timings: dict[str, float] | None):
+        self.timings = timings
+        self.t = time.perf_counter()
+
+    def __call__(self, stage: str) -> None:
+        if self.timings is not None:
+            now = time.perf_counter()
+            self.timings[stage] = self.timings.get(stage, 0.0) + now - self.t
+            self.t = now
+
+
 def _shape_or_none(record: Record, label: str, notes: list[str]) -> WaveShape | None:
     """IEC 60060-1 evaluation, or None with a note when the record defeats it (e.g. a breakdown on the front)."""
     try:
@@ -243,6 +258,7 @@ def extract(
     *,
     reference_shape: WaveShape | None = None,
     test_shape: WaveShape | None = None,
+    timings: dict[str, float] | None = None,
 ) -> PairAnalysis:
     """Measure a pair and build its feature vector.
 
@@ -254,6 +270,8 @@ def extract(
         Full-level full or chopped wave (voltage and neutral current).
     reference_shape, test_shape : WaveShape, optional
         Wave-shape evaluations already made (they are computed otherwise).
+    timings : dict, optional
+        If given, filled with the wall time of each stage [s] (for the benchmark).
 
     Returns
     -------
@@ -266,13 +284,17 @@ def extract(
     ShotcheckError
         No impulse found in a record.
     """
+    clock = _Clock(timings)
     notes: list[str] = []
     ws_r = reference_shape if reference_shape is not None else _shape_or_none(reference, "reference", notes)
     ws_t = test_shape if test_shape is not None else _shape_or_none(test, "test", notes)
+    clock("waveshape")
     pair = align_pair(reference, test, ref_test_voltage_V=None if ws_r is None else ws_r.test_voltage_V,
                       test_test_voltage_V=None if ws_t is None else ws_t.test_voltage_V)
+    clock("align")
     dt = pair.sample_interval_s
     td = time_domain_metrics(pair)
+    clock("time_domain")
     front_s = _front_time_s(pair)
 
     # transfer functions over the whole records: valid across chopping (see metrics.transfer)
@@ -282,11 +304,13 @@ def extract(
     tf_t = transfer_function(pair.test_voltage_pu, pair.test_current_pu, dt,
                              pretrigger_samples=pair.pretrigger_samples, snr_current=3.0)
     tc = compare_transfer(tf_r.H_S, tf_t.H_S, tf_r.frequency_Hz)
+    clock("transfer")
 
     # wave-shape-compensated current difference: valid across chopping and generator drift
     cd = compensated_difference(pair.ref_voltage_pu, pair.ref_current_pu, pair.test_voltage_pu,
                                 pair.test_current_pu, dt, pretrigger_samples=pair.pretrigger_samples)
     cd_f = _compensated_features(cd, pair, front_s)
+    clock("compensated")
 
     # wavelet difference of the test current against its compensated prediction, over the span where
     # the prediction is valid
@@ -296,6 +320,7 @@ def extract(
     if stop >= 64:
         wd = wavelet_difference(cd.predicted[:stop], pair.test_current_pu[:stop], dt,
                                 t0_s=float(pair.times_s[0]))
+    clock("wavelet")
 
     f: list[float] = []
     for dev in (td.current, td.voltage):
@@ -341,6 +366,7 @@ def extract(
     vec = np.asarray(f, dtype=np.float64)
     if vec.size != len(FEATURE_NAMES):  # a programming error, never a user's
         raise AssertionError(f"feature vector has {vec.size} values for {len(FEATURE_NAMES)} names")
+    clock("features")
     warnings = tuple(dict.fromkeys([*notes, *(ws_r.warnings if ws_r else ()), *(ws_t.warnings if ws_t else ()),
                                     *pair.warnings]))
     return PairAnalysis(vec, ws_r, ws_t, pair, td, tf_r, tf_t, tc, wd, front_s, warnings, cd, cd_f[6])

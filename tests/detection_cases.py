@@ -70,6 +70,7 @@ def make_case(
     discharge_charge_C: float = 3e-6,
     polarity: int = -1,
     seed: int = 0,
+    n_samples: int = N_SAMPLES,
 ) -> Case:
     """Simulate and record one reference/test pair.
 
@@ -95,6 +96,8 @@ def make_case(
         Polarity of both shots.
     seed : int
         Seed of the recorder noise and trigger.
+    n_samples : int
+        Samples per record (100 us at 100 MS/s by default).
     """
     split = fault == "turn_to_turn"
     w, new_node = winding(section, turns) if split else winding()
@@ -123,9 +126,9 @@ def make_case(
     i_peak = float(np.max(np.abs(sim_r.neutral_current_A))) / REDUCED
     rng_r, rng_t = (np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(2))
     meta = {"unit_id": "TW-0001 (invented)", "terminal": "HV"}
-    ref = digitise(sim_r, recorder(i_peak, **(reference_recorder or {})), rng=rng_r, n_samples=N_SAMPLES,
+    ref = digitise(sim_r, recorder(i_peak, **(reference_recorder or {})), rng=rng_r, n_samples=n_samples,
                    meta={**meta, "shot_kind": "chopped" if chop_r else "reduced", "level_percent": 100 * REDUCED})
-    test = digitise(sim_t, recorder(i_peak, **(test_recorder or {})), rng=rng_t, n_samples=N_SAMPLES,
+    test = digitise(sim_t, recorder(i_peak, **(test_recorder or {})), rng=rng_t, n_samples=n_samples,
                     meta={**meta, "shot_kind": "chopped" if chop_t else "full", "level_percent": 100.0})
     ft = None
     if sim_t.fault_time_s is not None and fault != "none":

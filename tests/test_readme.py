@@ -32,3 +32,19 @@ def test_readme_opens_with_the_job_and_keeps_the_caution():
     first_para = text.split("\n\n")[1]
     assert "impulse" in first_para and "transformer" in first_para
     assert "## Safety" in text and "responsible" in text
+
+
+def test_training_example_toml_is_a_valid_winding_family(tmp_path):
+    from synthetic.scenario import load_family, sample_scenario
+
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    section = text.split("## Training on your own winding designs", 1)[1]
+    toml = re.findall(r"```toml\n(.+?)\n```", section, flags=re.S)[0]
+    path = tmp_path / "nv25_hv.toml"
+    path.write_text(toml, encoding="utf-8")
+    family = load_family(path)
+    assert family.name == "nv25_hv"
+    import numpy as np
+
+    sc = sample_scenario(np.random.default_rng(0), family, event="turn_to_turn")
+    assert sc.bil_V == 325e3

@@ -76,3 +76,12 @@ def test_core_modules_stay_framework_free():
             "print(bad); sys.exit(1 if bad else 0)")
     r = subprocess.run([sys.executable, "-c", code], cwd=REPO, capture_output=True, text=True, timeout=120)
     assert r.returncode == 0, r.stdout + r.stderr
+
+
+def test_verbs_through_the_shotcheck_command(tmp_path, capsys):
+    from detector.cli import main as shotcheck_main
+
+    assert shotcheck_main(["serve", "--host", "0.0.0.0", "--data", str(tmp_path)]) == 2
+    assert "not a loopback address" in capsys.readouterr().err
+    assert shotcheck_main(["watch", str(tmp_path / "missing")]) == 2
+    assert "not a folder" in capsys.readouterr().err

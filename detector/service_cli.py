@@ -44,7 +44,8 @@ def add_subparsers(subparsers: Any) -> None:
                    help="largest request body in MB (default 64)")
     p.add_argument("--max-inflight", type=int, default=16, metavar="N",
                    help="requests working at once per worker before 503 + Retry-After (default 16)")
-    p.add_argument("--threads", type=int, default=2, metavar="N", help="comparison threads per worker (default 2)")
+    p.add_argument("--threads", type=int, default=1, metavar="N",
+                   help="comparison threads per worker (default 1; use --workers to use more cores)")
     p.set_defaults(func=cmd_serve)
 
     w = subparsers.add_parser(

@@ -90,6 +90,10 @@ def test_upload_two_files_and_see_the_verdict(tmp_path, model_path, record_files
                 cells = page.locator("#shots tbody tr").nth(1).inner_text()
                 assert "test" in cells and "full" in cells
                 assert "terminal 2V" in page.inner_text("#sequence-summary")
+                page.locator("#shots tbody tr").nth(1).locator("button.show-shot").click()  # that shot's verdict
+                page.wait_for_function("document.getElementById('verdict-line').textContent.includes('TX_05') || "
+                                       "document.querySelector('#verdict p:nth-child(3)').textContent.includes('TX_05')",
+                                       timeout=30_000)
             finally:
                 browser.close()
         (REPO / "docs" / "img").mkdir(parents=True, exist_ok=True)

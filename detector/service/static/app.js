@@ -91,6 +91,17 @@ async function loadFigures(id) {
   }
 }
 
+async function showComparison(id) {
+  status("Loading comparison…");
+  try {
+    showVerdict(await answer(await fetch("/v1/comparisons/" + encodeURIComponent(id))));
+    status("");
+    $("result").scrollIntoView();
+  } catch (e) {
+    status(e.message, true);
+  }
+}
+
 $("compare-form").addEventListener("submit", async (ev) => {
   ev.preventDefault();
   const fd = new FormData();
@@ -123,7 +134,17 @@ $("sequence-form").addEventListener("submit", async (ev) => {
     for (const sh of s.shots) {
       const v = sh.comparison && sh.comparison.verdict;
       const verdict = sh.role === "reference" ? "reference" : v ? (v.fault_indicated ? "fault: " + v.event : "no fault") : "–";
-      tb.appendChild(row([String(sh.position), sh.name, sh.kind, fmt(sh.level_percent), sh.role, verdict]));
+      const tr = row([String(sh.position), sh.name, sh.kind, fmt(sh.level_percent), sh.role, verdict]);
+      if (v) {
+        const btn = document.createElement("button");
+        btn.type = "button";
+        btn.className = "show-shot";
+        text(btn, "show");
+        btn.addEventListener("click", () => showComparison(sh.comparison.id));
+        tr.lastChild.appendChild(document.createTextNode(" "));
+        tr.lastChild.appendChild(btn);
+      }
+      tb.appendChild(tr);
     }
   } catch (e) {
     status(e.message, true);

@@ -189,7 +189,13 @@ class Watcher:
                 sig = tuple(self._seen[p].signature for p in parts)
                 if self._finished.get(path) == sig:
                     continue
-                digest = hashlib.sha256(b"".join(hashlib.sha256(p.read_bytes()).digest() for p in parts)).hexdigest()
+                try:
+                    digest = hashlib.sha256(b"".join(hashlib.sha256(p.read_bytes()).digest()
+                                                     for p in parts)).hexdigest()
+                except OSError:  # removed or locked by its writer meanwhile: look again next pass
+                    for p in parts:
+                        self._seen.pop(p, None)
+                    break
                 if self.store.watch_status(rel, digest) not in ("done", "failed") and \
                         self.store.watch_claim(rel, digest):
                     out.append(self._process(folder, parts, rel, digest))
@@ -227,7 +233,10 @@ class Watcher:
         verdict_path = main.with_name(main.name + ".verdict.json")
         error_path = main.with_name(main.name + ".error.txt")
         try:
-            files = [(p.name, p.read_bytes()) for p in parts]
+            try:
+                files = [(p.name, p.read_bytes()) for p in parts]
+            except OSError as exc:
+                raise ShotcheckError(f"{main.name}: cannot read the file ({exc.strerror or exc})") from None
             rec = self.store.put_record(files)
             record = self.engine.read(rec, field="record")
             kind, level = self._kind(dict(record.meta), main.name)

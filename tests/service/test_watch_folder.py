@@ -190,3 +190,26 @@ def test_watcher_writes_the_html_report_on_request(tmp_path, model_path, record_
     html = (seq / "TX_05_full_100.cff.report.html").read_text(encoding="utf-8")
     assert "<html" in html.lower() and "TX_05_full_100.cff" in html
     assert not (seq / "TX_01_reduced_75.csv.report.html").exists()  # the reference has no comparison
+
+
+def test_a_file_that_vanishes_mid_scan_is_looked_at_again(tmp_path, model_path, record_files, monkeypatch):
+    seq = tmp_path / "w" / "s1"
+    seq.mkdir(parents=True)
+    target = seq / record_files["reduced_csv"][0].name
+    target.write_bytes(record_files["reduced_csv"][0].read_bytes())
+    real = Path.read_bytes
+    calls = {"n": 0}
+
+    def flaky(self):
+        if self == target and calls["n"] == 0:
+            calls["n"] += 1
+            raise FileNotFoundError(2, "No such file or directory")
+        return real(self)
+
+    monkeypatch.setattr(Path, "read_bytes", flaky)
+    w = Watcher(tmp_path / "w", model_path=model_path, settle_s=0.0)
+    try:
+        assert w.scan_once() == []  # no crash, nothing marked
+        assert [d["status"] for d in w.scan_once()] == ["done"]
+    finally:
+        w.store.close()

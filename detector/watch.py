@@ -19,6 +19,7 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+import logging
 import os
 import re
 import signal
@@ -31,6 +32,8 @@ from typing import Any
 from ._validation import ShotcheckError
 
 __all__ = ["Watcher", "shot_kind_from_name", "RESULT_SUFFIXES"]
+
+_log = logging.getLogger("shotcheck.watch")
 
 #: Files the watcher writes; never taken as input.
 RESULT_SUFFIXES = (".verdict.json", ".error.txt", ".report.html")
@@ -251,6 +254,12 @@ class Watcher:
             reason = f"shotcheck could not process {main.name}: {exc}" + (f" (field: {field})" if field else "")
             _atomic_write(error_path, reason + "\n")
             result = {"file": rel, "status": "failed", "detail": str(exc)}
+        except Exception as exc:  # a fault of shotcheck, not of the file: record it rather than crash-loop
+            _log.exception("processing %s failed", rel)
+            reason = (f"shotcheck failed on {main.name} with an internal error ({type(exc).__name__}); "
+                      "please report it with this file")
+            _atomic_write(error_path, reason + "\n")
+            result = {"file": rel, "status": "failed", "detail": f"internal error: {type(exc).__name__}: {exc}"}
         self.store.watch_finish(rel, digest, result["status"], result)
         return result
 

@@ -22,7 +22,13 @@ from typing import Any
 
 import numpy as np
 
-from .metrics.compensated import SCALES, CompensatedDifference, compensated_difference, multiscale_z
+from .metrics.compensated import (
+    SCALES,
+    CompensatedDifference,
+    compensated_difference,
+    multiscale_z,
+    quantisation_step,
+)
 from .metrics.timedomain import TimeDomainMetrics, time_domain_metrics
 from .metrics.transfer import TransferComparison, TransferFunction, compare_transfer, transfer_function
 from .metrics.wavelet import WaveletDifference, wavelet_difference
@@ -35,7 +41,7 @@ __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", 
            "features_only"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "4"
+SCHEMA_VERSION = "7"
 
 #: Detail levels of the wavelet difference kept as features (D1 finest .. D8), plus the approximation.
 WAVELET_LEVELS = 8
@@ -65,6 +71,7 @@ def _names() -> tuple[str, ...]:
     n += ["cd_front_z", "cd_max_z", "cd_max_percent", "cd_log_energy", "cd_onset_after_front_us",
           "cd_compared_span_us"]
     n += [f"cd_scale{m}_z" for m in SCALES]
+    n += [f"cd_scale{m}_robust_z" for m in SCALES]
     n += [f"wv_{lab}_log_energy" for lab in _WV_LABELS]
     n += [f"wv_{lab}_peak_sigma" for lab in _WV_LABELS]
     n += ["wv_fine_peak_sigma", "wv_coarse_peak_sigma", "wv_fault_after_front_us"]
@@ -170,15 +177,39 @@ def _band_mean_dB(f: np.ndarray, ref_dB: np.ndarray, test_dB: np.ndarray) -> lis
 #: The capacitive current spike of the front is the least predictable part (its spectrum reaches
 #: beyond what the reduced-level voltage resolves), so it is scored separately.
 FRONT_WINDOW_S = (-0.3e-6, 1.0e-6)
+#: Around a voltage collapse of the test shot the steep chop excites frequencies the reference barely
+#: holds; that window is scored with the front.
+CHOP_WINDOW_S = (-0.3e-6, 1.0e-6)
 
 
-def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s: float) -> list[Any]:
+def _quantisation_floor(reference: Record, test: Record, pair: AlignedPair) -> float:
+    """Non-averaging noise of the compensated difference from the code steps of both records [A/V].
+
+    Each current's step, and each voltage's step times the current-to-voltage ratio, in per unit of its
+    record's test voltage; uniform quantisation error has the standard deviation step/sqrt(12).
+    """
+    ut_r, ut_t = pair.ref_test_voltage_V, pair.test_test_voltage_V
+    ratio = float(np.max(np.abs(pair.ref_current_pu)))  # current per unit of voltage [A/V]
+    terms = []
+    for rec, ut in ((reference, ut_r), (test, ut_t)):
+        qi = quantisation_step(rec.current.samples) / ut
+        qv = quantisation_step(rec.voltage.samples) / ut * ratio
+        terms += [qi, qv]
+    return float(np.sqrt(np.sum(np.square(terms)) / 12.0))
+
+
+def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s: float,
+                          floor: float = 0.0, chop_s: float | None = None) -> list[Any]:
     t = pair.times_s
     dt = pair.sample_interval_s
     z = np.abs(cd.z)
     fin = np.isfinite(cd.sigma)
     in_front = (t >= front_s + FRONT_WINDOW_S[0]) & (t <= front_s + FRONT_WINDOW_S[1])
-    after = fin & (t > front_s + FRONT_WINDOW_S[1])
+    in_chop = np.zeros(t.size, dtype=bool)
+    if chop_s is not None:
+        in_chop = (t >= chop_s + CHOP_WINDOW_S[0]) & (t <= chop_s + CHOP_WINDOW_S[1])
+        in_front |= in_chop  # scored with the front: the least predictable parts
+    after = fin & (t > front_s + FRONT_WINDOW_S[1]) & ~in_chop
     nan = math.nan
     front_z = float(z[in_front & fin].max()) if (in_front & fin).any() else nan
     max_z = float(z[after].max()) if after.any() else nan
@@ -189,12 +220,13 @@ def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s:
     energy = math.log10(max(float(np.sum(d[after] ** 2)) / pe, 1e-12)) if after.any() and pe > 0 else nan
     # onset: the earliest 6-sigma crossing of the compensated difference averaged over any of SCALES
     start = int(np.searchsorted(t, front_s + FRONT_WINDOW_S[1], side="right"))
-    ms_z, ms_i = multiscale_z(cd, start=start, pretrigger_samples=pair.pretrigger_samples)
+    ms_z, ms_i, ms_r = multiscale_z(cd, start=start, pretrigger_samples=pair.pretrigger_samples,
+                                    return_robust=True, floor_sigma=floor, exclude=in_chop)
     hits = ms_i[ms_i >= 0]
     onset_s = float(t[hits.min()]) if hits.size else None
     onset_us = nan if onset_s is None else 1e6 * (onset_s - front_s)
     span_us = 1e6 * (float(t[np.flatnonzero(fin)[-1]]) - front_s) if fin.any() else nan
-    return [front_z, max_z, max_pct, energy, onset_us, span_us, onset_s, ms_z, ms_i]
+    return [front_z, max_z, max_pct, energy, onset_us, span_us, onset_s, ms_z, ms_i, ms_r]
 
 
 def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[float]:
@@ -309,7 +341,11 @@ def extract(
     # wave-shape-compensated current difference: valid across chopping and generator drift
     cd = compensated_difference(pair.ref_voltage_pu, pair.ref_current_pu, pair.test_voltage_pu,
                                 pair.test_current_pu, dt, pretrigger_samples=pair.pretrigger_samples)
-    cd_f = _compensated_features(cd, pair, front_s)
+    floor = _quantisation_floor(reference, test, pair)
+    chop_s = None
+    if td.test_collapse is not None:
+        chop_s = td.test_collapse.time_s
+    cd_f = _compensated_features(cd, pair, front_s, floor, chop_s)
     clock("compensated")
 
     # wavelet difference of the test current against its compensated prediction, over the span where
@@ -345,6 +381,7 @@ def extract(
     f += _band_mean_dB(tc.frequency_Hz, tc.ref_dB, tc.test_dB)
     f += cd_f[:6]
     f += list(cd_f[7])
+    f += list(cd_f[9])
     f += _wavelet_features(wd, front_s)
     t_pair = pair.times_s
     f += [nan if i < 0 else 1e6 * (float(t_pair[i]) - front_s) for i in cd_f[8]]

@@ -42,7 +42,8 @@ import scipy.fft as sfft
 
 from .._validation import ShotcheckError, check_range
 
-__all__ = ["CompensatedDifference", "compensated_difference", "multiscale_z", "SCALES"]
+__all__ = ["CompensatedDifference", "compensated_difference", "multiscale_z", "quantisation_step",
+           "remove_stationary_tones", "SCALES"]
 
 #: Averaging lengths of :func:`multiscale_z` [samples]: a slow change of a few per mille of the peak
 #: current lies in the noise sample by sample but stands out once averaged over microseconds.
@@ -67,6 +68,8 @@ class CompensatedDifference:
         First sample where ``|z| > k_sigma`` for at least ``min_samples`` consecutive samples.
     window_tau_s : float
         Time constant of the exponential window [s].
+    tones : tuple of (float, float)
+        Stationary tones (interference) removed from the difference: (frequency [Hz], amplitude).
     """
 
     predicted: np.ndarray
@@ -75,6 +78,7 @@ class CompensatedDifference:
     z: np.ndarray
     onset_index: int | None
     window_tau_s: float
+    tones: tuple[tuple[float, float], ...] = ()
 
 
 def _robust_sigma(x: np.ndarray) -> float:
@@ -99,6 +103,7 @@ def compensated_difference(
     max_gain: float = 8.0,
     timing_tolerance_s: float = 2e-9,
     level_tolerance: float = 0.001,
+    remove_tones: bool = True,
 ) -> CompensatedDifference:
     """Wave-shape-compensated current difference of an aligned, level-normalised pair.
 
@@ -125,6 +130,9 @@ def compensated_difference(
         Timing uncertainty of the alignment [s]; adds ``timing_tolerance_s * |d i_pred / dt|`` to sigma.
     level_tolerance : float
         Relative uncertainty of the level normalisation [1]; adds ``level_tolerance * |i_pred|`` to sigma.
+    remove_tones : bool
+        Remove stationary tones (narrow-band interference) from the difference first, see
+        :func:`remove_stationary_tones`.
 
     Returns
     -------
@@ -170,6 +178,9 @@ def compensated_difference(
     valid = gain <= max_gain
     pred = np.where(valid, pred_w * gain, np.nan)
     diff = ti_w * gain - pred
+    tones: list[tuple[float, float]] = []
+    if remove_tones:
+        diff, tones = remove_stationary_tones(diff, dt, np.flatnonzero(valid & (k < n - max(8, n // 50))), n0)
     peak_i = float(np.max(np.abs(ri))) or 1.0
     s0 = _robust_sigma(diff[:n0]) if n0 >= 8 else math.nan
     if not math.isfinite(s0):  # no pre-trigger: second differences of the test current
@@ -193,11 +204,34 @@ def compensated_difference(
     c = np.concatenate(([0], np.cumsum(over)))
     full = np.flatnonzero(c[m:] - c[:-m] == m)
     onset = int(full[0]) if full.size else None
-    return CompensatedDifference(pred, diff, sig, z, onset, tau)
+    return CompensatedDifference(pred, diff, sig, z, onset, tau, tuple(tones))
+
+
+def quantisation_step(samples: np.ndarray) -> float:
+    """Code step of recorded samples [their unit]: the typical spacing of their distinct values.
+
+    Returns 0 for samples that are not quantised (e.g. simulated floats). The median of the smaller
+    half of the spacings between distinct values is the step when the samples sit on a grid (most
+    neighbours differ by one code).
+    """
+    u = np.unique(np.asarray(samples, dtype=np.float64))
+    if u.size < 16:
+        return 0.0
+    d = np.diff(u)
+    span = float(u[-1] - u[0])
+    if span <= 0:
+        return 0.0
+    small = np.sort(d)[: max(1, d.size // 2)]
+    q = float(np.median(small))
+    # on a grid most spacings are whole multiples of q; a float record has spacings of every size
+    if q <= 0 or q < 1e-9 * span or np.mean(np.abs(d / q - np.round(d / q)) < 0.05) < 0.8:
+        return 0.0
+    return q
 
 
 def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ...] = SCALES,
-                 pretrigger_samples: int = 0) -> tuple[np.ndarray, np.ndarray]:
+                 pretrigger_samples: int = 0, return_robust: bool = False,
+                 floor_sigma: float = 0.0, exclude: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
     """Largest noise-normalised compensated difference after centred moving averages of several lengths.
 
     Parameters
@@ -210,6 +244,13 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
         Averaging lengths [samples].
     pretrigger_samples : int
         Samples before the front, used to measure how the noise averages down (its correlation).
+    floor_sigma : float
+        Part of the noise that does not average down [unit of the difference]: the quantisation error
+        of a slowly varying, lightly dithered record is a deterministic function of the signal and
+        stays correlated over long spans (about step/sqrt(12) of each record).
+    exclude : numpy.ndarray of bool, optional
+        Samples not scored (e.g. around an intended chop, where the test wave holds frequencies the
+        reference never had).
 
     Returns
     -------
@@ -218,6 +259,9 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
         than the scale).
     first_index : numpy.ndarray
         First sample where each scale exceeds 6 sigma (-1 if never).
+    robust_z : numpy.ndarray
+        Only with ``return_robust``: largest deviation of the averages from their median over the span,
+        in units of their own MAD-based spread [1].
 
     Notes
     -----
@@ -228,6 +272,9 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
     """
     d = np.nan_to_num(cd.difference, nan=0.0)
     fin = np.isfinite(cd.sigma)
+    if exclude is not None:
+        fin = fin & ~exclude
+        d = np.where(fin, d, 0.0)
     n = d.size
     var = np.where(fin, cd.sigma, 0.0) ** 2
     n0 = int(pretrigger_samples)
@@ -244,6 +291,7 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
     cs_v = np.concatenate(([0.0], np.cumsum(var)))
     cs_f = np.concatenate(([0], np.cumsum(fin.astype(np.int64))))
     out_z = np.full(len(scales), np.nan)
+    out_zr = np.full(len(scales), np.nan)
     out_i = np.full(len(scales), -1, dtype=np.int64)
     for j, m in enumerate(scales):  # loop over a handful of scales, vectorised over samples
         if n - start < m:
@@ -252,11 +300,102 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
         ok = (cs_f[lo + m] - cs_f[lo]) == m
         mean_d = (cs_d[lo + m] - cs_d[lo]) / m
         mean_v = (cs_v[lo + m] - cs_v[lo]) / m
-        sig = np.sqrt(mean_v * min(c, m) / m)
+        sig = np.sqrt(mean_v * min(c, m) / m + floor_sigma * floor_sigma)
         with np.errstate(divide="ignore", invalid="ignore"):
             z = np.where(ok & (sig > 0), np.abs(mean_d) / sig, 0.0)
         out_z[j] = float(z.max()) if z.size else np.nan
+        # the same averages against their own typical size over the span (MAD): blind to a change that
+        # lasts most of the span, but immune to noise that does not average down (interference, drift)
+        md = mean_d[ok]
+        if md.size >= 8:
+            scale_m = float(np.median(np.abs(md - np.median(md)))) / 0.6745
+            if scale_m > 0:
+                out_zr[j] = float(np.max(np.abs(md - np.median(md))) / scale_m)
         hit = np.flatnonzero(z > 6.0)
         if hit.size:
             out_i[j] = int(lo[hit[0]] + m // 2)
+    if return_robust:
+        return out_z, out_i, out_zr
     return out_z, out_i
+
+
+def _fit_tone(x: np.ndarray, t: np.ndarray, f: float) -> tuple[float, float, np.ndarray]:
+    """Least-squares amplitude and phase of a tone of frequency ``f`` [Hz] (with an offset) in x(t)."""
+    w = 2 * np.pi * f * t
+    A = np.column_stack((np.cos(w), np.sin(w), np.ones_like(t)))
+    coef, *_ = np.linalg.lstsq(A, x, rcond=None)
+    return float(np.hypot(coef[0], coef[1])), float(np.arctan2(coef[1], coef[0])), coef
+
+
+def remove_stationary_tones(
+    d: np.ndarray, dt: float, span: np.ndarray, pretrigger_samples: int, *, max_tones: int = 3,
+    min_periods: float = 2.0, stationarity: float = 0.35,
+) -> tuple[np.ndarray, list[tuple[float, float]]]:
+    """Remove narrow-band interference (constant-amplitude tones) from a difference trace.
+
+    A tone is taken as interference, not as an effect of the winding, when it has the same amplitude
+    and phase in the first and the last third of the compared span (a fault's difference begins at the
+    fault and the winding damps its oscillations). Each accepted tone is fitted by least squares over
+    the whole span (frequency refined by parabolic interpolation of the spectral peak) and subtracted
+    from the whole record; a constant offset left by a biased baseline goes with it.
+
+    Parameters
+    ----------
+    d : numpy.ndarray
+        Difference trace (NaN outside the span allowed).
+    dt : float
+        Sample interval [s].
+    span : numpy.ndarray of int
+        Indices of the compared span.
+    pretrigger_samples : int
+        Samples before the front (kept in the span's fit).
+    max_tones : int
+        Largest number of tones removed.
+    min_periods : float
+        A tone must complete this many periods in each third of the span [1].
+    stationarity : float
+        Largest relative difference of the amplitudes in the first and the last third [1].
+
+    Returns
+    -------
+    cleaned : numpy.ndarray
+    tones : list of (frequency_Hz, amplitude)
+    """
+    out = np.array(d, dtype=np.float64, copy=True)
+    if span.size < 64:
+        return out, []
+    idx = np.arange(int(span[0]), int(span[-1]) + 1)
+    t = idx * dt
+    x = np.nan_to_num(out[idx])
+    m = idx.size
+    third = m // 3
+    f_min = min_periods / (third * dt)
+    tones: list[tuple[float, float]] = []
+    n_fft = sfft.next_fast_len(2 * m, real=True)
+    win = np.hanning(m)
+    freqs = sfft.rfftfreq(n_fft, dt)
+    for _ in range(max_tones):  # loop over a few tones
+        mag = np.abs(sfft.rfft((x - x.mean()) * win, n_fft))
+        mag[freqs < f_min] = 0.0
+        kpk = int(np.argmax(mag))
+        if kpk < 1 or kpk >= mag.size - 1 or mag[kpk] <= 0:
+            break
+        a, b, c = np.log(mag[kpk - 1:kpk + 2] + 1e-300)
+        den = a - 2 * b + c
+        shift = 0.5 * (a - c) / den if den != 0 else 0.0
+        f = float((kpk + np.clip(shift, -0.5, 0.5)) * (freqs[1] - freqs[0]))
+        amp, ph, coef = _fit_tone(x, t, f)
+        a1, p1, _ = _fit_tone(x[:third], t[:third], f)
+        a3, p3, _ = _fit_tone(x[-third:], t[-third:], f)
+        dphase = abs(np.angle(np.exp(1j * (p1 - p3))))
+        resid = x - (coef[0] * np.cos(2 * np.pi * f * t) + coef[1] * np.sin(2 * np.pi * f * t) + coef[2])
+        noise = _robust_sigma(np.diff(resid)) / math.sqrt(2.0)
+        significant = amp > 4.0 * noise * math.sqrt(2.0 / m) * 3.0
+        if not (significant and abs(a1 - a3) <= stationarity * amp and dphase < 0.6):
+            break
+        tone = coef[0] * np.cos(2 * np.pi * f * np.arange(out.size) * dt) + coef[1] * np.sin(
+            2 * np.pi * f * np.arange(out.size) * dt)
+        out = out - tone - coef[2]
+        x = x - tone[idx] - coef[2]
+        tones.append((f, amp))
+    return out, tones

@@ -94,3 +94,32 @@ def test_bad_input():
         compensated_difference(np.ones(100), np.ones(100), np.ones(99), np.ones(100), DT, pretrigger_samples=10)
     with pytest.raises(ShotcheckError, match="at least 32 samples"):
         compensated_difference(np.ones(10), np.ones(10), np.ones(10), np.ones(10), DT, pretrigger_samples=2)
+
+
+def test_quantisation_step_of_recorded_and_of_simulated_samples():
+    from detector.metrics.compensated import quantisation_step
+
+    rng = np.random.default_rng(1)
+    x = np.sin(np.linspace(0, 20, 5000)) * 300.0
+    q = 0.7324
+    assert quantisation_step(np.round(x / q) * q) == pytest.approx(q, rel=1e-6)
+    assert quantisation_step(x + rng.normal(0, 1e-3, x.size)) == 0.0  # floats: no grid
+
+
+def test_stationary_interference_is_removed_but_a_fault_is_kept():
+    from detector.metrics.compensated import remove_stationary_tones
+
+    dt = 1e-8
+    n = 8000
+    t = np.arange(n) * dt
+    rng = np.random.default_rng(2)
+    tone = 3.0 * np.sin(2 * np.pi * 150e3 * t + 0.4)
+    noise = rng.normal(0, 1.0, n)
+    # a fault: a damped oscillation that starts at 30 us (not stationary)
+    s = np.clip(t - 30e-6, 0, None)
+    fault = np.where(t > 30e-6, 8.0 * np.exp(-s / 10e-6) * np.sin(2 * np.pi * 400e3 * s), 0.0)
+    cleaned, tones = remove_stationary_tones(tone + noise + fault, dt, np.arange(n), 500)
+    assert len(tones) >= 1 and tones[0][0] == pytest.approx(150e3, rel=0.02)
+    assert np.std((cleaned - fault - noise)[:2500]) < 0.3  # the tone is gone
+    # the fault's oscillation survives (its amplitude changes along the span, so it is no tone)
+    assert np.max(np.abs(cleaned[3000:4000])) > 5.0

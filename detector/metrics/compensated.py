@@ -319,11 +319,14 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
     return out_z, out_i
 
 
+def _basis(t: np.ndarray, f: float) -> np.ndarray:
+    w = 2 * np.pi * f * t
+    return np.vstack((np.cos(w), np.sin(w), np.ones_like(t)))
+
+
 def _fit_tone(x: np.ndarray, t: np.ndarray, f: float) -> tuple[float, float, np.ndarray]:
     """Least-squares amplitude and phase of a tone of frequency ``f`` [Hz] (with an offset) in x(t)."""
-    w = 2 * np.pi * f * t
-    A = np.column_stack((np.cos(w), np.sin(w), np.ones_like(t)))
-    coef, *_ = np.linalg.lstsq(A, x, rcond=None)
+    coef, *_ = np.linalg.lstsq(_basis(t, f).T, x, rcond=None)
     return float(np.hypot(coef[0], coef[1])), float(np.arctan2(coef[1], coef[0])), coef
 
 
@@ -334,7 +337,7 @@ def remove_stationary_tones(
     """Remove narrow-band interference (constant-amplitude tones) from a difference trace.
 
     A tone is taken as interference, not as an effect of the winding, when it has the same amplitude
-    and phase in the first and the last third of the compared span (a fault's difference begins at the
+    and phase in each third of the compared span (a fault's difference begins at the
     fault and the winding damps its oscillations). Each accepted tone is fitted by least squares over
     the whole span (frequency refined by parabolic interpolation of the spectral peak) and subtracted
     from the whole record; a constant offset left by a biased baseline goes with it.
@@ -354,7 +357,7 @@ def remove_stationary_tones(
     min_periods : float
         A tone must complete this many periods in each third of the span [1].
     stationarity : float
-        Largest relative difference of the amplitudes in the first and the last third [1].
+        Largest relative deviation of a third's amplitude from the whole span's [1].
 
     Returns
     -------
@@ -383,15 +386,26 @@ def remove_stationary_tones(
         a, b, c = np.log(mag[kpk - 1:kpk + 2] + 1e-300)
         den = a - 2 * b + c
         shift = 0.5 * (a - c) / den if den != 0 else 0.0
-        f = float((kpk + np.clip(shift, -0.5, 0.5)) * (freqs[1] - freqs[0]))
+        df = float(freqs[1] - freqs[0])
+        f = float((kpk + np.clip(shift, -0.5, 0.5)) * df)
+        # refine the frequency by least squares (the spectral peak is only good to a fraction of a bin)
+        from scipy.optimize import minimize_scalar
+
+        def _resid(fr: float) -> float:
+            return float(np.sum((x - _fit_tone(x, t, fr)[2] @ _basis(t, fr)) ** 2))
+
+        f = float(minimize_scalar(_resid, bounds=(f - df, f + df), method="bounded",
+                                  options={"xatol": 1e-4 * df}).x)
         amp, ph, coef = _fit_tone(x, t, f)
-        a1, p1, _ = _fit_tone(x[:third], t[:third], f)
-        a3, p3, _ = _fit_tone(x[-third:], t[-third:], f)
-        dphase = abs(np.angle(np.exp(1j * (p1 - p3))))
+        parts = [_fit_tone(x[i * third:(i + 1) * third], t[i * third:(i + 1) * third], f) for i in range(3)]
+        amps = np.array([q[0] for q in parts])
+        phases = np.array([q[1] for q in parts])
+        dphase = float(np.max(np.abs(np.angle(np.exp(1j * (phases - ph))))))
         resid = x - (coef[0] * np.cos(2 * np.pi * f * t) + coef[1] * np.sin(2 * np.pi * f * t) + coef[2])
         noise = _robust_sigma(np.diff(resid)) / math.sqrt(2.0)
         significant = amp > 4.0 * noise * math.sqrt(2.0 / m) * 3.0
-        if not (significant and abs(a1 - a3) <= stationarity * amp and dphase < 0.6):
+        # interference: the same amplitude and phase in every third of the span
+        if not (significant and np.all(np.abs(amps - amp) <= stationarity * amp) and dphase < 0.6):
             break
         tone = coef[0] * np.cos(2 * np.pi * f * np.arange(out.size) * dt) + coef[1] * np.sin(
             2 * np.pi * f * np.arange(out.size) * dt)

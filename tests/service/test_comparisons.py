@@ -106,8 +106,8 @@ def test_waveshape_of_a_double_exponential(client, record_files):
     chopped = client.post("/v1/waveshape", files=svc_records.upload("record", record_files["chopped_cff"]),
                           headers=AUTH).json()
     assert chopped["kind"] == "lightning_chopped"
-    # the collapse is centred 4.0 us after t = 0 (svc_records); IEC 60060-1:2010 7.1.1 measures Tc from
-    # the virtual origin, which lies before t = 0
+    # the collapse is centred 4.0 us after t = 0 (svc_records); IEC 60060-1:2010 measures the time to
+    # chopping from the virtual origin, which lies before t = 0 (from memory, clause not at hand)
     assert 3.8 < chopped["chopping_time_us"] < 4.5
 
 

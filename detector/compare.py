@@ -23,9 +23,10 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from ._validation import ShotcheckError
-from .features import FEATURE_NAMES, SCHEMA_VERSION, PairAnalysis, describe, extract
+from .features import FEATURE_NAMES, SCHEMA_VERSION, PairAnalysis, describe, extract, sharp_onset_after_front_us
 from .model import EVENT_CLASSES, ShotModel, load_model
 from .record import Record
 from .scoring import exceeded
@@ -35,7 +36,8 @@ __all__ = ["Verdict", "compare", "default_model", "DEFAULT_MODEL_PATH", "FAULT_P
 #: The model that ships with the package (see DEVELOPERS.md, "The default model").
 DEFAULT_MODEL_PATH = Path(__file__).parent / "resources" / "default_model.skops"
 
-#: A fault is indicated when the classifier gives the class ``none`` less than this probability.
+#: Default decision: a fault is indicated when the classifier gives ``none`` less than this probability
+#: (each model stores its own, calibrated to a false-alarm rate: ``ShotModel.none_threshold``).
 FAULT_PROBABILITY = 0.5
 
 
@@ -179,11 +181,15 @@ def compare(
         raise ShotcheckError("the model's feature names differ from this shotcheck's; retrain the model")
     a = extract(reference, test)
     x = a.features.reshape(1, -1)
-    proba = m.classifier.predict_proba(x)[0]
+    # one sample: starting an OpenMP team per tree costs far more than the trees themselves
+    with threadpool_limits(1, "openmp"):
+        proba = m.classifier.predict_proba(x)[0]
+        loc_pred = None if m.locator is None else float(m.locator.predict(x)[0])
+        t_pred = None if m.timer is None else float(m.timer.predict(x)[0])
     probs = {c: 0.0 for c in EVENT_CLASSES}
     for c, p in zip(m.classifier.classes_, proba, strict=True):
         probs[str(c)] = float(p)
-    fault = probs["none"] < FAULT_PROBABILITY
+    fault = probs["none"] < m.none_threshold
     event = "none"
     if fault:
         event = max((c for c in EVENT_CLASSES if c != "none"), key=lambda c: probs[c])
@@ -197,15 +203,18 @@ def compare(
     t_fault = None
     loc = None
     if fault:
-        if m.timer is not None:
-            t_fault = a.front_test_time_s + 1e-6 * float(m.timer.predict(x)[0])
+        sharp = float(sharp_onset_after_front_us(a.features)[0])
+        if math.isfinite(sharp):
+            t_fault = a.front_test_time_s + 1e-6 * sharp
+        elif t_pred is not None:
+            t_fault = a.front_test_time_s + 1e-6 * t_pred
         else:
             t_fault = a.to_test_time_s(_fault_time_pair_s(a))
-        if m.locator is not None:
-            loc = float(m.locator.predict(x)[0])
+        loc = loc_pred
     info = {
         "name": str(m.card.get("name", "custom")),
         "schema_version": m.schema_version,
+        "none_threshold": m.none_threshold,
         "created": m.card.get("created"),
     }
     return Verdict(fault, event, probs, t_fault, None if loc is None or not math.isfinite(loc) else loc,

@@ -409,6 +409,43 @@ def extract(
     return PairAnalysis(vec, ws_r, ws_t, pair, td, tf_r, tf_t, tc, wd, front_s, warnings, cd, cd_f[6])
 
 
+#: Onset features that mark a sharp change to within a few samples (fine wavelet levels, short averages).
+SHARP_ONSET_FEATURES = tuple(f"wv_D{k}_first_after_front_us" for k in range(2, 8)) + (
+    "cd_scale1_first_after_front_us", "cd_scale4_first_after_front_us", "cd_scale16_first_after_front_us")
+
+
+def sharp_onset_after_front_us(features: np.ndarray, *, agree_us: float = 0.05, count: int = 3) -> np.ndarray:
+    """Onset time where several independent detectors agree [us after the front], NaN where they do not.
+
+    A breakdown changes the current abruptly: the fine wavelet levels and the short averages of the
+    compensated difference then cross their thresholds within a few samples of each other. The earliest
+    time at which ``count`` of them agree within ``agree_us`` is taken as the fault instant; where no such
+    cluster exists the instant regressor is used instead.
+
+    Parameters
+    ----------
+    features : numpy.ndarray, shape (n_features,) or (n_pairs, n_features)
+        Feature vectors in :data:`FEATURE_NAMES` order.
+    agree_us : float
+        Largest spread of the agreeing onsets [us].
+    count : int
+        Number of agreeing detectors.
+
+    Returns
+    -------
+    numpy.ndarray
+        One value per pair [us after the front of the reference, on the pair's axis].
+    """
+    X = np.atleast_2d(np.asarray(features, dtype=np.float64))
+    cols = [FEATURE_NAMES.index(c) for c in SHARP_ONSET_FEATURES]
+    C = np.sort(X[:, cols], axis=1)  # NaN sort last
+    spread = C[:, count - 1:] - C[:, : C.shape[1] - count + 1]
+    ok = np.isfinite(spread) & (spread <= agree_us)
+    first = np.argmax(ok, axis=1)
+    out = np.where(ok.any(axis=1), C[np.arange(C.shape[0]), first], np.nan)
+    return out
+
+
 def features_only(reference: Record, test: Record) -> np.ndarray:
     """Feature vector of a pair (for parallel extraction over a training set)."""
     return extract(reference, test).features

@@ -303,6 +303,9 @@ class ShotModel:
         Model card: training data description, figures, versions, creation time.
     timer : InstantRegressor or None
         Fitted regressor of the fault instant relative to the voltage front [us].
+    none_threshold : float
+        A fault is indicated when the classifier gives ``none`` a probability below this [1]; chosen in
+        training on cross-validated benign pairs to keep the stated false-alarm rate.
     """
 
     classifier: FaultClassifier
@@ -312,6 +315,7 @@ class ShotModel:
     thresholds: Mapping[str, float] = dataclasses.field(default_factory=dict)
     card: Mapping[str, Any] = dataclasses.field(default_factory=dict)
     timer: InstantRegressor | None = None
+    none_threshold: float = 0.5
 
 
 #: Types a model file may contain beyond skops' defaults. Anything else is refused on load.
@@ -371,6 +375,7 @@ def save_model(model: ShotModel, path: str | Path) -> None:
         "classifier": model.classifier,
         "locator": model.locator,
         "timer": model.timer,
+        "none_threshold": float(model.none_threshold),
     }
     sio.dump(payload, Path(path), compression=zipfile.ZIP_DEFLATED, compresslevel=9)
 
@@ -435,7 +440,11 @@ def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotM
     timer = payload.get("timer")
     if timer is not None and not isinstance(timer, InstantRegressor):
         raise ShotcheckError(f"{p}: the 'timer' entry is not an InstantRegressor")
+    thr = payload.get("none_threshold", 0.5)
+    if not isinstance(thr, float) or not 0.0 < thr <= 1.0:
+        raise ShotcheckError(f"{p}: 'none_threshold' must be a probability in (0, 1], got {thr!r}")
     return ShotModel(
+        none_threshold=thr,
         timer=timer,
         classifier=clf,
         locator=loc,

@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 
 from ._validation import ShotcheckError
-from .features import FEATURE_NAMES, SCHEMA_VERSION, extract
+from .features import FEATURE_NAMES, SCHEMA_VERSION, extract, sharp_onset_after_front_us
 from .model import EVENT_CLASSES, FaultClassifier, InstantRegressor, LocationRegressor, ShotModel
 from .scoring import calibrate_thresholds, false_alarm_rate
 
@@ -240,6 +240,7 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     if len(set(y)) < 2:
         raise ShotcheckError("the training set needs at least two event classes")
     report: dict[str, Any] = {}
+    none_threshold = 0.5
     if cv_folds and cv_folds >= 2:
         pred = np.empty(y.size, dtype=object)
         proba = np.zeros((y.size, len(EVENT_CLASSES)))
@@ -249,7 +250,8 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
         for tr, te in GroupKFold(n_splits=cv_folds).split(X, y, groups):
             ta = (y[tr] != "none") & np.isfinite(rel[tr])
             if ta.sum() >= 10:
-                inst[te] = data.front_us[te] + InstantRegressor(random_state=seed).fit(X[tr][ta], rel[tr][ta]).predict(X[te])
+                inst[te] = data.front_us[te] + _instant(
+                    X[te], InstantRegressor(random_state=seed).fit(X[tr][ta], rel[tr][ta]))
             clf = FaultClassifier(random_state=seed).fit(X[tr], y[tr])
             p = clf.predict_proba(X[te])
             for k, c in enumerate(clf.classes_):
@@ -257,8 +259,10 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
             fa = (y[tr] != "none") & np.isfinite(pos[tr])
             if fa.sum() >= 10:
                 loc[te] = LocationRegressor(random_state=seed).fit(X[tr][fa], pos[tr][fa]).predict(X[te])
-        pred = _decide(proba)
+        none_threshold = operating_point(proba[y == "none", 0], false_alarm_rate_target)
+        pred = _decide(proba, none_threshold)
         report = _figures(data, proba, pred, loc, inst)
+        report["none_threshold"] = none_threshold
         report["cv_folds"] = cv_folds
     benign = X[y == "none"]
     thresholds = calibrate_thresholds(benign, false_alarm_rate=false_alarm_rate_target) if benign.shape[0] >= 10 else {}
@@ -280,15 +284,14 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
         "threshold_false_alarm_rate_on_training": false_alarm_rate(benign, thresholds) if thresholds else None,
         "cross_validation": {k: v for k, v in report.items() if k != "roc"},
     }
-    model = ShotModel(clf, locator, FEATURE_NAMES, SCHEMA_VERSION, thresholds, card, timer)
+    card["none_threshold"] = none_threshold
+    model = ShotModel(clf, locator, FEATURE_NAMES, SCHEMA_VERSION, thresholds, card, timer, none_threshold)
     return model, report
 
 
-def _decide(proba: np.ndarray) -> np.ndarray:
-    from .compare import FAULT_PROBABILITY
-
+def _decide(proba: np.ndarray, none_threshold: float = 0.5) -> np.ndarray:
     out = np.empty(proba.shape[0], dtype=object)
-    fault = proba[:, 0] < FAULT_PROBABILITY
+    fault = proba[:, 0] < none_threshold
     out[~fault] = "none"
     out[fault] = np.array(EVENT_CLASSES[1:], dtype=object)[np.argmax(proba[fault, 1:], axis=1)]
     return out
@@ -354,12 +357,41 @@ def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float 
     return rep
 
 
+def _instant(X: np.ndarray, timer: InstantRegressor) -> np.ndarray:
+    """Fault instant after the front [us]: agreeing sharp onsets where there are, else the regressor."""
+    sharp = sharp_onset_after_front_us(X)
+    return np.where(np.isfinite(sharp), sharp, timer.predict(X))
+
+
+def operating_point(p_none_benign: np.ndarray, false_alarm_rate: float) -> float:
+    """Decision threshold on P(none) that cross-validated benign pairs fall below at most at the given rate.
+
+    Parameters
+    ----------
+    p_none_benign : numpy.ndarray
+        Cross-validated probability of ``none`` of benign pairs.
+    false_alarm_rate : float
+        Target share of benign pairs indicated as faults [1].
+
+    Returns
+    -------
+    float
+        Threshold in (0, 0.5]: a fault is indicated when P(none) is below it.
+    """
+    p = np.sort(np.asarray(p_none_benign, dtype=float))
+    if p.size == 0:
+        return 0.5
+    k = int(math.floor(false_alarm_rate * p.size))  # at most k benign pairs below the threshold
+    thr = float(p[k]) if k < p.size else 0.5
+    return float(min(max(thr, 1e-6), 0.5))
+
+
 def _predict(model: ShotModel, X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     p = model.classifier.predict_proba(X)
     proba = np.zeros((X.shape[0], len(EVENT_CLASSES)))
     for k, c in enumerate(model.classifier.classes_):
         proba[:, EVENT_CLASSES.index(str(c))] = p[:, k]
-    return proba, _decide(proba)
+    return proba, _decide(proba, model.none_threshold)
 
 
 def _by_effect(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
@@ -382,13 +414,9 @@ def _evaluate_subset(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]
     sub = data
     if X.shape[0] == 0:
         return {"n_pairs": 0}
-    p = model.classifier.predict_proba(X)
-    proba = np.zeros((X.shape[0], len(EVENT_CLASSES)))
-    for k, c in enumerate(model.classifier.classes_):
-        proba[:, EVENT_CLASSES.index(str(c))] = p[:, k]
-    pred = _decide(proba)
+    proba, pred = _predict(model, X)
     loc = model.locator.predict(X) if model.locator is not None else np.full(X.shape[0], np.nan)
-    inst = (data.front_us + model.timer.predict(X)) if model.timer is not None else None
+    inst = (data.front_us + _instant(X, model.timer)) if model.timer is not None else None
     rep = _figures(sub, proba, pred, loc, inst)
     benign = X[sub.event == "none"]
     if model.thresholds and benign.shape[0]:

@@ -41,8 +41,9 @@ def winding(split_section: int | None = None, split_turns: int = 0) -> tuple[Win
 def recorder(i_peak_A: float, **changes) -> Digitiser:
     """12 bits at 100 MS/s over fixed ranges (the same at both levels unless changed)."""
     base = dict(sample_rate_Hz=100e6, bits=12, voltage_range_V=1.3 * abs(TEST_VOLTAGE_V),
-                current_range_A=1.6 * i_peak_A, noise_lsb=0.6, pretrigger_s=8e-6, bandwidth_Hz=30e6)
+                current_range_A=1.6 * i_peak_A, noise_lsb=0.6, pretrigger_s=8e-6)
     base.update(changes)
+    base.setdefault("bandwidth_Hz", 0.3 * base["sample_rate_Hz"])
     return Digitiser(**base)
 
 
@@ -70,7 +71,7 @@ def make_case(
     discharge_charge_C: float = 3e-6,
     polarity: int = -1,
     seed: int = 0,
-    n_samples: int = N_SAMPLES,
+    n_samples: int | None = None,
 ) -> Case:
     """Simulate and record one reference/test pair.
 
@@ -96,8 +97,8 @@ def make_case(
         Polarity of both shots.
     seed : int
         Seed of the recorder noise and trigger.
-    n_samples : int
-        Samples per record (100 us at 100 MS/s by default).
+    n_samples : int, optional
+        Samples per record; default 100 us at each record's own sample rate.
     """
     split = fault == "turn_to_turn"
     w, new_node = winding(section, turns) if split else winding()
@@ -126,9 +127,11 @@ def make_case(
     i_peak = float(np.max(np.abs(sim_r.neutral_current_A))) / REDUCED
     rng_r, rng_t = (np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(2))
     meta = {"unit_id": "TW-0001 (invented)", "terminal": "HV"}
-    ref = digitise(sim_r, recorder(i_peak, **(reference_recorder or {})), rng=rng_r, n_samples=n_samples,
+    dig_r = recorder(i_peak, **(reference_recorder or {}))
+    dig_t = recorder(i_peak, **(test_recorder or {}))
+    ref = digitise(sim_r, dig_r, rng=rng_r, n_samples=n_samples or int(round(100e-6 * dig_r.sample_rate_Hz)),
                    meta={**meta, "shot_kind": "chopped" if chop_r else "reduced", "level_percent": 100 * REDUCED})
-    test = digitise(sim_t, recorder(i_peak, **(test_recorder or {})), rng=rng_t, n_samples=n_samples,
+    test = digitise(sim_t, dig_t, rng=rng_t, n_samples=n_samples or int(round(100e-6 * dig_t.sample_rate_Hz)),
                     meta={**meta, "shot_kind": "chopped" if chop_t else "full", "level_percent": 100.0})
     ft = None
     if sim_t.fault_time_s is not None and fault != "none":

@@ -22,23 +22,25 @@ import math
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 from threadpoolctl import threadpool_limits
 
 from ._validation import ShotcheckError
-from .features import FEATURE_NAMES, SCHEMA_VERSION, PairAnalysis, describe, extract, sharp_onset_after_front_us
+from .features import (
+    FEATURE_NAMES,
+    SCHEMA_VERSION,
+    PairAnalysis,
+    describe,
+    extract,
+    sharp_onset_after_front_us,
+)
 from .model import EVENT_CLASSES, ShotModel, load_model
 from .record import Record
 from .scoring import exceeded
 
-__all__ = ["Verdict", "compare", "default_model", "DEFAULT_MODEL_PATH", "FAULT_PROBABILITY"]
+__all__ = ["Verdict", "compare", "default_model", "DEFAULT_MODEL_PATH"]
 
 #: The model that ships with the package (see DEVELOPERS.md, "The default model").
 DEFAULT_MODEL_PATH = Path(__file__).parent / "resources" / "default_model.skops"
-
-#: Default decision: a fault is indicated when the classifier gives ``none`` less than this probability
-#: (each model stores its own, calibrated to a false-alarm rate: ``ShotModel.none_threshold``).
-FAULT_PROBABILITY = 0.5
 
 
 @functools.lru_cache(maxsize=4)
@@ -219,8 +221,3 @@ def compare(
     }
     return Verdict(fault, event, probs, t_fault, None if loc is None or not math.isfinite(loc) else loc,
                    over, a, tuple(warnings), info)
-
-
-def batch_features(pairs: list[tuple[Record, Record]]) -> np.ndarray:
-    """Feature matrix of many pairs (serial; see :mod:`detector.training` for the parallel version)."""
-    return np.vstack([extract(r, t).features for r, t in pairs])

@@ -12,7 +12,6 @@ This module is the one place where the detector imports the synthetic package (b
 
 from __future__ import annotations
 
-import json
 import sys
 from pathlib import Path
 from typing import Any
@@ -137,7 +136,3 @@ def run_demo(out_dir: str | Path = "shotcheck-demo", *, json_output: bool = Fals
         print(f"verdict JSON: {out / 'verdict.json'}")
     sys.stdout.flush()
     return 0
-
-
-def _main() -> None:  # pragma: no cover - convenience
-    print(json.dumps(make_demo_pair()[2]))

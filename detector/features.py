@@ -17,11 +17,11 @@ from __future__ import annotations
 import dataclasses
 import math
 import time
-from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
 
+from ._validation import ShotcheckError
 from .metrics.compensated import (
     SCALES,
     CompensatedDifference,
@@ -30,15 +30,18 @@ from .metrics.compensated import (
     quantisation_step,
 )
 from .metrics.timedomain import TimeDomainMetrics, time_domain_metrics
-from .metrics.transfer import TransferComparison, TransferFunction, compare_transfer, transfer_function
+from .metrics.transfer import (
+    TransferComparison,
+    TransferFunction,
+    compare_transfer,
+    transfer_function,
+)
 from .metrics.wavelet import WaveletDifference, wavelet_difference
 from .preprocess import AlignedPair, align_pair
-from ._validation import ShotcheckError
 from .record import Record
 from .waveshape import WaveShape, evaluate_waveshape
 
-__all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract",
-           "features_only"]
+__all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
 SCHEMA_VERSION = "7"
@@ -201,7 +204,6 @@ def _quantisation_floor(reference: Record, test: Record, pair: AlignedPair) -> f
 def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s: float,
                           floor: float = 0.0, chop_s: float | None = None) -> list[Any]:
     t = pair.times_s
-    dt = pair.sample_interval_s
     z = np.abs(cd.z)
     fin = np.isfinite(cd.sigma)
     in_front = (t >= front_s + FRONT_WINDOW_S[0]) & (t <= front_s + FRONT_WINDOW_S[1])
@@ -444,16 +446,6 @@ def sharp_onset_after_front_us(features: np.ndarray, *, agree_us: float = 0.05, 
     first = np.argmax(ok, axis=1)
     out = np.where(ok.any(axis=1), C[np.arange(C.shape[0]), first], np.nan)
     return out
-
-
-def features_only(reference: Record, test: Record) -> np.ndarray:
-    """Feature vector of a pair (for parallel extraction over a training set)."""
-    return extract(reference, test).features
-
-
-def feature_table(rows: np.ndarray) -> Mapping[str, np.ndarray]:
-    """Columns of a feature matrix by name."""
-    return {n: rows[:, k] for k, n in enumerate(FEATURE_NAMES)}
 
 
 def describe(features: np.ndarray) -> dict[str, Any]:

@@ -424,21 +424,6 @@ def _evaluate_subset(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]
     return rep
 
 
-def sensitivity_by_turns(data: LabelledFeatures, pred: Sequence[str]) -> dict[str, Any]:
-    """Detection rate of turn-to-turn faults by shorted fraction of the winding (for the README)."""
-    rows = [r for r, ok in zip(data.labels, _usable(data), strict=True) if ok]
-    frac = np.array([float(r["shorted_turns"]) / float(r["total_turns"]) if r["event"] == "turn_to_turn"
-                     else np.nan for r in rows])
-    det = np.array([p != "none" for p in pred])
-    edges = [0, 0.002, 0.005, 0.01, 0.02, 0.05, 1.0]
-    out = {}
-    for lo, hi in zip(edges[:-1], edges[1:], strict=True):
-        sel = (frac > lo) & (frac <= hi)
-        if sel.any():
-            out[f"{lo:g}-{hi:g}"] = {"n": int(sel.sum()), "detected": float(det[sel].mean())}
-    return out
-
-
 def report_text(rep: dict[str, Any]) -> str:
     """Readable summary of an evaluation report."""
     lines = []

@@ -263,7 +263,7 @@ def _parse_cfg(text: str, path: str) -> _Cfg:
     if nrates < 0:
         raise FormatError(f"nrates is {nrates}; expected 0 or more", path=path, field=where)
     rates = []
-    for k in range(max(nrates, 1)):
+    for _ in range(max(nrates, 1)):
         line, where = take("a sample rate line samp,endsamp")
         f = line.split(",")
         if len(f) != 2:

@@ -104,11 +104,12 @@ def test_positive_polarity_simulation_gives_the_same_verdict():
         assert (a.fault_indicated, a.event) == (b.fault_indicated, b.event)
 
 
+@pytest.mark.parametrize("which", ["test_recorder", "reference_recorder"])
 @pytest.mark.parametrize("rate_Hz", [50e6, 125e6, 250e6])
-def test_verdict_does_not_depend_on_the_test_records_sample_rate(rate_Hz):
+def test_verdict_does_not_depend_on_either_records_sample_rate(rate_Hz, which):
     for kw in ({}, {"fault": "turn_to_turn"}):
         a, _ = verdict(**kw)
-        b, _ = verdict(test_recorder={"sample_rate_Hz": rate_Hz}, **kw)
+        b, _ = verdict(**{which: {"sample_rate_Hz": rate_Hz}}, **kw)
         assert (a.fault_indicated, a.event) == (b.fault_indicated, b.event)
 
 

@@ -11,6 +11,7 @@ and the validation folds.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import os
@@ -28,9 +29,13 @@ from .scoring import calibrate_thresholds, false_alarm_rate
 
 __all__ = ["extract_dataset", "train", "evaluate", "LabelledFeatures"]
 
+#: Pairs per feature-extraction task.
+TASK_SIZE = 50
 
+
+@dataclasses.dataclass
 class LabelledFeatures:
-    """Feature matrix of a data set with its labels.
+    """Feature matrix of a data set with its labels (one row per pair).
 
     Attributes
     ----------
@@ -42,31 +47,34 @@ class LabelledFeatures:
         True fault instant on the test record's time axis [us] (NaN for none or no ignition).
     onset_us : numpy.ndarray
         Onset of the difference measured by the metrics, on the test record's axis [us] (NaN if none).
-    front_us : numpy.ndarray
-        Time of the voltage front (30 % point of the reference) on the test record's axis [us].
     groups : numpy.ndarray of str
         Winding design of each case (for grouped splits).
     labels : list of dict
         Full label rows.
     failed : list of tuple
         (case_id, message) of pairs whose extraction failed.
-    effect_lsb : numpy.ndarray
+    effect_lsb : numpy.ndarray or None
         Noise-free size of each fault's effect in recorder codes (inf for benign pairs and for data sets
-        without that label).
+        without that label; None means all inf).
+    front_us : numpy.ndarray or None
+        Time of the voltage front (30 % point of the reference) on the test record's axis [us].
     """
 
-    def __init__(self, X, event, position, fault_time_us, onset_us, groups, labels, failed, effect_lsb=None,
-                 front_us=None):
-        self.front_us = np.full(len(event), np.nan) if front_us is None else np.asarray(front_us, float)
-        self.effect_lsb = np.full(len(event), np.inf) if effect_lsb is None else np.asarray(effect_lsb, float)
-        self.X = X
-        self.event = event
-        self.position = position
-        self.fault_time_us = fault_time_us
-        self.onset_us = onset_us
-        self.groups = groups
-        self.labels = labels
-        self.failed = failed
+    X: np.ndarray
+    event: np.ndarray
+    position: np.ndarray
+    fault_time_us: np.ndarray
+    onset_us: np.ndarray
+    groups: np.ndarray
+    labels: list
+    failed: list
+    effect_lsb: np.ndarray | None = None
+    front_us: np.ndarray | None = None
+
+    def __post_init__(self) -> None:
+        n = len(self.event)
+        self.effect_lsb = np.full(n, np.inf) if self.effect_lsb is None else np.asarray(self.effect_lsb, float)
+        self.front_us = np.full(n, np.nan) if self.front_us is None else np.asarray(self.front_us, float)
 
 
 def _one(ref, test) -> tuple[np.ndarray, tuple[float, float], str | None]:
@@ -82,20 +90,17 @@ def _one(ref, test) -> tuple[np.ndarray, tuple[float, float], str | None]:
     return a.features, (math.nan if t is None else 1e6 * t, 1e6 * a.front_test_time_s), None
 
 
-def _chunk(directory: str, case_ids: list[int]) -> list[tuple[int, np.ndarray, float, str | None]]:
+def _chunk(directory: str, case_ids: list[int]) -> list[tuple[int, np.ndarray, tuple[float, float], str | None]]:
     import warnings
 
     from synthetic.dataset import load_dataset
 
-    wanted = set(case_ids)
     out = []
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        for ref, test, lab in load_dataset(directory):
-            cid = int(lab["case_id"])
-            if cid in wanted:
-                f, on, err = _one(ref, test)
-                out.append((cid, f, on, err))
+        for ref, test, lab in load_dataset(directory, case_ids=case_ids):
+            f, on, err = _one(ref, test)
+            out.append((int(lab["case_id"]), f, on, err))
     return out
 
 
@@ -137,13 +142,11 @@ def extract_dataset(directory: str | Path, *, workers: int | None = None, progre
         from joblib import Parallel, delayed
 
         n_workers = workers or os.cpu_count() or 1
+        # tasks of consecutive cases (each within one shard, so a task reads one shard)
         shards: dict[int, list[int]] = {}
         for r in labels:
             shards.setdefault(int(r["shard"]), []).append(int(r["case_id"]))
-        tasks = []
-        for cids in shards.values():  # a few tasks per shard keeps every worker busy
-            step = max(1, math.ceil(len(cids) / max(1, 2 * n_workers // max(1, len(shards)) or 1)))
-            tasks += [cids[i:i + step] for i in range(0, len(cids), step)]
+        tasks = [cids[i:i + TASK_SIZE] for cids in shards.values() for i in range(0, len(cids), TASK_SIZE)]
         t0 = time.perf_counter()
         results = Parallel(n_jobs=n_workers, return_as="generator_unordered")(
             delayed(_chunk)(str(d), t) for t in tasks
@@ -197,9 +200,9 @@ def _usable(data: LabelledFeatures) -> np.ndarray:
 
 def _subset(data: LabelledFeatures, keep: np.ndarray) -> LabelledFeatures:
     labels = [r for r, k in zip(data.labels, keep, strict=True) if k] if data.labels else []
-    return LabelledFeatures(data.X[keep], data.event[keep], data.position[keep], data.fault_time_us[keep],
-                            data.onset_us[keep], data.groups[keep], labels, data.failed, data.effect_lsb[keep],
-                            data.front_us[keep])
+    rows = {f.name: getattr(data, f.name)[keep] for f in dataclasses.fields(data)
+            if f.name not in ("labels", "failed")}
+    return LabelledFeatures(labels=labels, failed=data.failed, **rows)
 
 
 #: Faults whose noise-free effect stays below this many recorder codes are invisible to any comparison

@@ -29,7 +29,7 @@ import os
 import sys
 import time
 import zipfile
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -239,13 +239,16 @@ def read_labels(directory: str | Path) -> list[dict[str, Any]]:
     return out
 
 
-def load_dataset(directory: str | Path) -> Iterator[tuple[Record, Record, dict[str, Any]]]:
+def load_dataset(directory: str | Path, *, case_ids: Iterable[int] | None = None
+                 ) -> Iterator[tuple[Record, Record, dict[str, Any]]]:
     """Iterate over a data set's cases in case order.
 
     Parameters
     ----------
     directory : str or Path
         Directory written by :func:`generate`.
+    case_ids : iterable of int, optional
+        Only these cases (only the shards holding them are read); default all.
 
     Yields
     ------
@@ -266,6 +269,9 @@ def load_dataset(directory: str | Path) -> Iterator[tuple[Record, Record, dict[s
             f"{man_path}: format_version {manifest.get('format_version')!r}, this version reads {FORMAT_VERSION}"
         )
     labels = read_labels(d)
+    if case_ids is not None:
+        wanted = {int(c) for c in case_ids}
+        labels = [lab for lab in labels if lab["case_id"] in wanted]
     by_shard: dict[int, list[dict[str, Any]]] = {}
     for lab in labels:
         by_shard.setdefault(lab["shard"], []).append(lab)

@@ -21,6 +21,9 @@ __all__ = ["DoubleExponential", "filter_residual", "test_voltage_factor"]
 
 #: Largest fit sample count; the tail is thinned beyond this (weights keep the time integral).
 _MAX_FIT_POINTS = 1500
+#: Weight of the pull of log(tau1), log(tau2) towards their start values (residual units: per unit of
+#: the peak, per e-fold of the time constant).
+_PRIOR_WEIGHT = 0.02
 
 
 def test_voltage_factor(frequency_Hz: Any) -> np.ndarray:
@@ -124,9 +127,16 @@ def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, orig
         t1, t2 = taus(par)
         return s, np.exp(-s / t1), np.exp(-s / t2)
 
+    # A weak pull of the two log time constants towards their start values: negligible where the record
+    # determines them, decisive where it does not (a step-like front, a chopped wave without tail), so
+    # that the fit has one well-defined answer instead of drifting along a flat valley, where the last
+    # bits of the input (or of a multi-threaded BLAS) would pick the end point.
+    prior = np.zeros(4)
+    prior[1:3] = _PRIOR_WEIGHT
+
     def fun(par: np.ndarray) -> np.ndarray:
         _, e1, e2 = model(par)
-        return wts * (par[0] * (e1 - e2) - y)
+        return np.concatenate([wts * (par[0] * (e1 - e2) - y), prior * (par - x0)])
 
     def jac(par: np.ndarray) -> np.ndarray:
         s, e1, e2 = model(par)
@@ -137,7 +147,7 @@ def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, orig
         j[:, 1] = par[0] * e1 * s / t1
         j[:, 2] = -par[0] * e2 * s / t2
         j[:, 3] = np.where(on, par[0] * (e1 / t1 - e2 / t2), 0.0)
-        return j * wts[:, None]
+        return np.concatenate([j * wts[:, None], np.diag(prior)])
 
     f_scale = max(3.0 * p.sigma / p.peak, 0.005)
     # unbounded: the log time constants keep them positive, and trf without bounds is much quicker

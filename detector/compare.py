@@ -22,8 +22,8 @@ import math
 from pathlib import Path
 from typing import Any
 
-from threadpoolctl import threadpool_limits
 
+from . import _fastpredict
 from ._validation import ShotcheckError
 from .features import (
     FEATURE_NAMES,
@@ -183,11 +183,11 @@ def compare(
         raise ShotcheckError("the model's feature names differ from this shotcheck's; retrain the model")
     a = extract(reference, test)
     x = a.features.reshape(1, -1)
-    # one sample: starting an OpenMP team per tree costs far more than the trees themselves
-    with threadpool_limits(1, "openmp"):
-        proba = m.classifier.predict_proba(x)[0]
-        loc_pred = None if m.locator is None else float(m.locator.predict(x)[0])
-        t_pred = None if m.timer is None else float(m.timer.predict(x)[0])
+    # one sample: walk all trees at once instead of one call (and one OpenMP team) per tree
+    _fastpredict.install(m)
+    proba = m.classifier.predict_proba(x)[0]
+    loc_pred = None if m.locator is None else float(m.locator.predict(x)[0])
+    t_pred = None if m.timer is None else float(m.timer.predict(x)[0])
     probs = {c: 0.0 for c in EVENT_CLASSES}
     for c, p in zip(m.classifier.classes_, proba, strict=True):
         probs[str(c)] = float(p)

@@ -31,6 +31,7 @@ from sklearn.model_selection import train_test_split
 from sklearn.utils.multiclass import unique_labels
 from sklearn.utils.validation import check_is_fitted, validate_data
 
+from . import _fastpredict
 from ._validation import ShotcheckError, check_option
 
 __all__ = [
@@ -377,7 +378,8 @@ def save_model(model: ShotModel, path: str | Path) -> None:
         "timer": model.timer,
         "none_threshold": float(model.none_threshold),
     }
-    sio.dump(payload, Path(path), compression=zipfile.ZIP_DEFLATED, compresslevel=9)
+    with _fastpredict.detached(model):  # the file holds scikit-learn's estimators as they are
+        sio.dump(payload, Path(path), compression=zipfile.ZIP_DEFLATED, compresslevel=9)
 
 
 def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotModel:

@@ -7,6 +7,7 @@ commit the verdict, and only then return. The HTTP routes and :mod:`detector.wat
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import math
@@ -174,19 +175,25 @@ def _model_id(path: Path | None, card: Mapping[str, Any]) -> str:
     return f"{card.get('name', 'model')}@{h}"
 
 
+@functools.lru_cache(maxsize=1)
+def _thread_controller() -> Any:
+    """The process's native thread pools (BLAS, OpenMP), found once: finding them costs ~2 ms."""
+    import sklearn.ensemble  # noqa: F401  (loads scikit-learn's OpenMP runtime before the scan)
+    from threadpoolctl import ThreadpoolController
+
+    return ThreadpoolController()
+
+
 def _single_threaded_compare(reference: Record, test: Record, model: Any) -> Any:
-    """``detector.compare.compare`` with OpenMP limited to one thread in the calling thread.
+    """``detector.compare.compare`` with BLAS and OpenMP limited to one thread in the calling thread.
 
-    The classifier scores one sample at a time; letting every tree spawn an OpenMP team for it costs
-    seconds per comparison on a loaded 2-core machine (measured: 2-5 s against 80 ms for a 20 000-sample
-    pair), and the service already works on several requests in parallel. The OpenMP thread count is
-    per calling thread, so the limit does not leak into other requests.
+    The service already works on several requests in parallel (threads and worker processes); native
+    thread pools on top of that only oversubscribe the cores. The limit is set per calling thread for
+    OpenMP, and restored when the comparison ends.
     """
-    from threadpoolctl import threadpool_limits
-
     from ..compare import compare
 
-    with threadpool_limits(limits=1, user_api="openmp"):
+    with _thread_controller().limit(limits=1):
         return compare(reference, test, model=model)
 
 

@@ -1,0 +1,71 @@
+"""The flat tree walk for small batches gives scikit-learn's predictions to the last bit.
+
+The reference is scikit-learn's own HistGradientBoosting prediction (the library the models are made
+with): each estimator is scored before and after :func:`detector._fastpredict.install`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostingRegressor
+
+from detector import _fastpredict
+from detector.model import FaultClassifier, LocationRegressor, ShotModel, load_model, save_model
+
+
+def _data(n: int = 600, n_features: int = 7, seed: int = 0):
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(n, n_features))
+    X[rng.random(X.shape) < 0.08] = np.nan  # missing values take the learned side of each split
+    score = np.nan_to_num(X[:, 0]) + 0.5 * np.nan_to_num(X[:, 1]) ** 2 - np.isnan(X[:, 2])
+    return X, score
+
+
+def _rows(X):
+    return [X[i:i + 1] for i in range(X.shape[0])] + [X[:5], X[:_fastpredict.SMALL_BATCH]]
+
+
+@pytest.mark.parametrize("n_classes", [2, 4])
+def test_classifier_probabilities_bit_identical(n_classes):
+    X, score = _data()
+    y = np.digitize(score, np.quantile(score, np.linspace(0, 1, n_classes + 1)[1:-1]))
+    est = HistGradientBoostingClassifier(max_iter=40, random_state=0).fit(X, y)
+    Xq, _ = _data(80, seed=1)
+    before = [est.predict_proba(x) for x in _rows(Xq)]
+    assert _fastpredict.install(est) == 1
+    after = [est.predict_proba(x) for x in _rows(Xq)]
+    for a, b in zip(before, after, strict=True):
+        assert np.array_equal(a, b)
+
+
+def test_regressor_and_large_batch_bit_identical():
+    X, score = _data()
+    est = HistGradientBoostingRegressor(loss="absolute_error", max_iter=60, random_state=0).fit(X, score)
+    Xq, _ = _data(300, seed=2)
+    before_rows = [est.predict(x) for x in _rows(Xq)]
+    before_all = est.predict(Xq)  # larger than SMALL_BATCH: scikit-learn's own parallel code
+    _fastpredict.install(est)
+    assert all(np.array_equal(a, est.predict(x)) for a, x in zip(before_rows, _rows(Xq), strict=True))
+    assert np.array_equal(before_all, est.predict(Xq))
+
+
+def test_shot_model_install_and_save_round_trip(tmp_path):
+    X, score = _data(900)
+    y = np.where(score > 1.0, "turn_to_turn", np.where(score < -0.5, "to_ground", "none"))
+    clf = FaultClassifier(max_iter=30).fit(X, y)
+    loc = LocationRegressor(max_iter=30).fit(X, np.clip(0.5 + 0.2 * np.nan_to_num(X[:, 0]), 0, 1))
+    model = ShotModel(classifier=clf, locator=loc, feature_names=[f"f{i}" for i in range(X.shape[1])],
+                      schema_version="test")
+    Xq, _ = _data(30, seed=3)
+    p0 = np.vstack([clf.predict_proba(x) for x in _rows(Xq)[:30]])
+    assert _fastpredict.install(model) == 2  # the calibrated classifier's booster and the locator's
+    assert _fastpredict.install(model) == 2  # idempotent
+    p1 = np.vstack([clf.predict_proba(x) for x in _rows(Xq)[:30]])
+    assert np.array_equal(p0, p1)
+    # a model in use can be saved: the file holds scikit-learn's estimators as they are
+    save_model(model, tmp_path / "m.skops")
+    assert all("_predict_iterations" in e.__dict__ for e in _fastpredict.estimators_of(model))
+    again = load_model(tmp_path / "m.skops")
+    assert not any("_predict_iterations" in e.__dict__ for e in _fastpredict.estimators_of(again))
+    assert np.array_equal(np.vstack([again.classifier.predict_proba(x) for x in _rows(Xq)[:30]]), p0)

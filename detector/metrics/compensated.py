@@ -296,24 +296,28 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
     for j, m in enumerate(scales):  # loop over a handful of scales, vectorised over samples
         if n - start < m:
             continue
-        lo = np.arange(start, n - m + 1)
-        ok = (cs_f[lo + m] - cs_f[lo]) == m
-        mean_d = (cs_d[lo + m] - cs_d[lo]) / m
-        mean_v = (cs_v[lo + m] - cs_v[lo]) / m
+        # windows [lo, lo + m) for lo = start .. n - m, as slices of the running sums
+        ok = (cs_f[start + m:] - cs_f[start:n - m + 1]) == m
+        mean_d = (cs_d[start + m:] - cs_d[start:n - m + 1]) / m
+        mean_v = (cs_v[start + m:] - cs_v[start:n - m + 1]) / m
         sig = np.sqrt(mean_v * min(c, m) / m + floor_sigma * floor_sigma)
         with np.errstate(divide="ignore", invalid="ignore"):
             z = np.where(ok & (sig > 0), np.abs(mean_d) / sig, 0.0)
         out_z[j] = float(z.max()) if z.size else np.nan
         # the same averages against their own typical size over the span (MAD): blind to a change that
         # lasts most of the span, but immune to noise that does not average down (interference, drift)
+        # (averages over m samples barely change from one sample to the next: every (m // 8)-th serves
+        # the median and the MAD as well as all of them, the maximum below still sees every one)
         md = mean_d[ok]
-        if md.size >= 8:
-            scale_m = float(np.median(np.abs(md - np.median(md)))) / 0.6745
+        md_s = md[:: max(1, m // 8)]
+        if md_s.size >= 8:
+            centre = float(np.median(md_s))
+            scale_m = float(np.median(np.abs(md_s - centre))) / 0.6745
             if scale_m > 0:
-                out_zr[j] = float(np.max(np.abs(md - np.median(md))) / scale_m)
+                out_zr[j] = float(np.max(np.abs(md - centre)) / scale_m)
         hit = np.flatnonzero(z > 6.0)
         if hit.size:
-            out_i[j] = int(lo[hit[0]] + m // 2)
+            out_i[j] = int(start + hit[0] + m // 2)
     if return_robust:
         return out_z, out_i, out_zr
     return out_z, out_i
@@ -324,9 +328,14 @@ def _basis(t: np.ndarray, f: float) -> np.ndarray:
     return np.vstack((np.cos(w), np.sin(w), np.ones_like(t)))
 
 
-def _fit_tone(x: np.ndarray, t: np.ndarray, f: float) -> tuple[float, float, np.ndarray]:
-    """Least-squares amplitude and phase of a tone of frequency ``f`` [Hz] (with an offset) in x(t)."""
-    B = _basis(t, f)
+def _fit_tone(x: np.ndarray, t: np.ndarray, f: float, B: np.ndarray | None = None
+              ) -> tuple[float, float, np.ndarray]:
+    """Least-squares amplitude and phase of a tone of frequency ``f`` [Hz] (with an offset) in x(t).
+
+    ``B`` is ``_basis(t, f)`` if already at hand.
+    """
+    if B is None:
+        B = _basis(t, f)
     coef = np.linalg.solve(B @ B.T + 1e-12 * np.eye(3) * B.shape[1], B @ x)  # normal equations, 3 x 3
     return float(np.hypot(coef[0], coef[1])), float(np.arctan2(coef[1], coef[0])), coef
 
@@ -391,12 +400,14 @@ def remove_stationary_tones(
         # Gaussian (log-parabolic) interpolation of the Hann-windowed, 4x zero-padded peak: a small
         # fraction of a bin, so the fitted tone keeps its phase over the whole span
         f = float((kpk + np.clip(shift, -0.5, 0.5)) * df)
-        amp, ph, coef = _fit_tone(x, t, f)
-        parts = [_fit_tone(x[i * third:(i + 1) * third], t[i * third:(i + 1) * third], f) for i in range(3)]
+        B = _basis(t, f)
+        amp, ph, coef = _fit_tone(x, t, f, B)
+        parts = [_fit_tone(x[i * third:(i + 1) * third], t[i * third:(i + 1) * third], f,
+                           B[:, i * third:(i + 1) * third]) for i in range(3)]
         amps = np.array([q[0] for q in parts])
         phases = np.array([q[1] for q in parts])
         dphase = float(np.max(np.abs(np.angle(np.exp(1j * (phases - ph))))))
-        resid = x - (coef[0] * np.cos(2 * np.pi * f * t) + coef[1] * np.sin(2 * np.pi * f * t) + coef[2])
+        resid = x - coef @ B
         noise = _robust_sigma(np.diff(resid)) / math.sqrt(2.0)
         significant = amp > 4.0 * noise * math.sqrt(2.0 / m) * 3.0
         # interference: the same amplitude and phase in every third of the span

@@ -7,11 +7,12 @@ Private to :mod:`detector.waveshape`; indices are fractional sample numbers of t
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 from typing import Any
 
 import numpy as np
-from scipy import signal
+from scipy import ndimage, signal
 
 from ._validation import RecordError, check_finite_1d
 from .record import MIN_SAMPLES
@@ -83,18 +84,25 @@ def _error(source: str | None, msg: str, field: str = "voltage") -> RecordError:
     return RecordError(msg, path=source, field=field)
 
 
+@functools.lru_cache(maxsize=64)
+def _savgol_kernel(window: int, order: int) -> np.ndarray:
+    """Savitzky-Golay convolution kernel (computed once per window and order: it needs a pseudo-inverse)."""
+    k = signal.savgol_coeffs(window, order)
+    k.setflags(write=False)
+    return k
+
+
 def _smooth(u: np.ndarray, window: int) -> np.ndarray:
     """Savitzky-Golay smoothing (quadratic over 5 samples, cubic above), edges held at the end values."""
     window = max(5, window | 1)
     if window > u.size:
         window = u.size if u.size % 2 else u.size - 1
-    if window <= 5:
-        return signal.savgol_filter(u, 5, 2, mode="nearest")
-    if window <= 63:
-        return signal.savgol_filter(u, window, 3, mode="nearest")
+    if window <= 63:  # what signal.savgol_filter(u, window, order, mode="nearest") does, kernel cached
+        return ndimage.convolve1d(np.asarray(u, dtype=np.float64), _savgol_kernel(window, 2 if window <= 5 else 3),
+                                  mode="nearest")
     half = window // 2  # long windows (switching impulses): overlap-add convolution is much quicker
     padded = np.pad(u, half, mode="edge")
-    return signal.oaconvolve(padded, signal.savgol_coeffs(window, 3), mode="valid")
+    return signal.oaconvolve(padded, _savgol_kernel(window, 3), mode="valid")
 
 
 def _quantisation_step(v: np.ndarray) -> float | None:

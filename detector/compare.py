@@ -22,7 +22,6 @@ import math
 from pathlib import Path
 from typing import Any
 
-
 from . import _fastpredict
 from ._validation import ShotcheckError
 from .features import (

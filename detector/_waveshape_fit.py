@@ -12,7 +12,6 @@ from typing import Any
 
 import numpy as np
 from scipy import fft as _fft
-from scipy import optimize
 
 from ._validation import RecordError
 from ._waveshape_signal import _Prepared
@@ -95,6 +94,67 @@ def _shape_peak(tau1: float, tau2: float) -> float:
     return math.exp(-tp / tau1) - math.exp(-tp / tau2)
 
 
+def _levenberg_marquardt(fun_jac: Any, x0: np.ndarray, *, f_scale: float | None, xtol: float, ftol: float,
+                         max_iter: int) -> np.ndarray:
+    """Minimise ``sum r^2`` (``f_scale`` None) or the soft-L1 cost ``f^2 sum(sqrt(1 + (r/f)^2) - 1)``.
+
+    Levenberg-Marquardt with Marquardt's diagonal scaling (Nocedal & Wright, Numerical Optimization,
+    2nd ed., section 10.3); for the soft-L1 cost the Gauss-Newton model of the robust cost with its
+    second-order correction (Triggs et al., Bundle adjustment - a modern synthesis, 2000, section 4.3):
+    gradient ``J^T rho' r``, curvature ``J^T (rho' + 2 z rho'') J`` with ``rho' = (1+z)^-1/2`` and
+    ``rho' + 2 z rho'' = (1+z)^-3/2``, ``z = (r/f)^2``; a step is kept only if it lowers the cost itself. ``fun_jac(x)`` returns the residuals and their
+    transposed Jacobian (parameters x residuals) together (they share the exponentials). A few parameters and a few thousand residuals:
+    written out because ``scipy.optimize.least_squares`` spends most of its time here in per-iteration
+    bookkeeping. Returns the last accepted point.
+    """
+
+    def cost(r: np.ndarray) -> float:
+        if f_scale is None:
+            return float(r @ r)
+        return float(f_scale * f_scale * np.sum(np.sqrt(1.0 + (r / f_scale) ** 2) - 1.0))
+
+    x = np.array(x0, dtype=np.float64)
+    r, Jt = fun_jac(x)
+    c = cost(r)
+    if not math.isfinite(c):
+        return x
+    mu = None
+    for _ in range(max_iter):
+        if f_scale is None:
+            A, g = Jt @ Jt.T, Jt @ r
+        else:  # gradient weights rho' = (1+z)^-1/2, curvature rho' + 2 z rho'' = (1+z)^-3/2
+            q = 1.0 / (1.0 + (r / f_scale) ** 2)
+            sq = np.sqrt(q)
+            A = (Jt * (q * sq)) @ Jt.T
+            g = Jt @ (r * sq)
+        d = np.maximum(np.diag(A), 1e-300)
+        if mu is None:
+            mu = 1e-3
+        improved = False
+        while mu < 1e12:
+            try:
+                step = np.linalg.solve(A + mu * np.diag(d), -g)
+            except np.linalg.LinAlgError:
+                mu *= 10.0
+                continue
+            x_new = x + step
+            r_new, Jt_new = fun_jac(x_new)
+            c_new = cost(r_new)
+            if math.isfinite(c_new) and c_new <= c:
+                improved = True
+                break
+            mu *= 10.0
+        if not improved:
+            return x
+        small_step = bool(np.all(np.abs(step) <= xtol * (np.abs(x) + xtol)))
+        small_gain = (c - c_new) <= ftol * c
+        x, r, Jt, c = x_new, r_new, Jt_new, c_new
+        mu = max(mu * 0.3, 1e-12)
+        if small_step or small_gain:
+            break
+    return x
+
+
 def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, origin: float,
               source: str | None) -> DoubleExponential:
     """Fit the double exponential to ``p.u[i_lo:i_hi]``; start values in samples. Returns it in SI."""
@@ -134,39 +194,50 @@ def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, orig
     prior = np.zeros(4)
     prior[1:3] = _PRIOR_WEIGHT
 
-    def fun(par: np.ndarray) -> np.ndarray:
-        _, e1, e2 = model(par)
-        return np.concatenate([wts * (par[0] * (e1 - e2) - y), prior * (par - x0)])
+    n_pts = x.size
+    prior_rows = np.diag(prior).T
 
-    def jac(par: np.ndarray) -> np.ndarray:
-        s, e1, e2 = model(par)
+    def fun_jac(par: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Residuals (data, then prior) and the transposed Jacobian, shape (4, n + 4)."""
         t1, t2 = taus(par)
-        on = s > 0
-        j = np.empty((s.size, 4))
-        j[:, 0] = e1 - e2
-        j[:, 1] = par[0] * e1 * s / t1
-        j[:, 2] = -par[0] * e2 * s / t2
-        j[:, 3] = np.where(on, par[0] * (e1 / t1 - e2 / t2), 0.0)
-        return np.concatenate([j * wts[:, None], np.diag(prior)])
+        s = x - par[3]
+        np.maximum(s, 0.0, out=s)
+        e1 = np.exp(s * (-1.0 / t1))
+        e2 = np.exp(s * (-1.0 / t2))
+        jt = np.empty((4, n_pts + 4))
+        np.subtract(e1, e2, out=jt[0, :n_pts])
+        np.multiply(e1, s, out=jt[1, :n_pts])
+        jt[1, :n_pts] *= par[0] / t1
+        np.multiply(e2, s, out=jt[2, :n_pts])
+        jt[2, :n_pts] *= -par[0] / t2
+        # d/d(origin): zero before the origin (s == 0 there, and e1 = e2 = 1)
+        jt[3, :n_pts] = e1 * (par[0] / t1) - e2 * (par[0] / t2)
+        jt[3, :n_pts][s <= 0.0] = 0.0
+        r = np.empty(n_pts + 4)
+        np.multiply(jt[0, :n_pts], par[0], out=r[:n_pts])
+        r[:n_pts] -= y
+        r[:n_pts] *= wts
+        r[n_pts:] = prior * (par - x0)
+        jt[:, :n_pts] *= wts
+        jt[:, n_pts:] = prior_rows
+        return r, jt
 
     f_scale = max(3.0 * p.sigma / p.peak, 0.005)
-    # unbounded: the log time constants keep them positive, and trf without bounds is much quicker
     if not np.all(np.isfinite(x0)):
         raise failed
+
     def sane(par: np.ndarray) -> bool:
         return bool(np.all(np.isfinite(par)) and 1e-3 < abs(par[0]) < 1e3 and -300 < par[1] < 300
                     and -300 < par[2] < 300)
 
     def robust(start: np.ndarray) -> np.ndarray:
-        return optimize.least_squares(fun, start, jac=jac, loss="soft_l1", f_scale=f_scale, x_scale="jac",
-                                      xtol=1e-9, ftol=1e-9, gtol=1e-9, max_nfev=200).x
+        return _levenberg_marquardt(fun_jac, start, f_scale=f_scale, xtol=1e-9, ftol=1e-12, max_iter=200)
 
     try:
         with np.errstate(all="ignore"):  # overflow to inf / 0 * inf = nan on wild trial steps is rejected
-            # a plain least-squares start (MINPACK, quick), then the robust loss from there; if that
-            # wanders off (little data, e.g. chopped on the front), the robust fit from the start values
-            first = optimize.least_squares(fun, x0, jac=jac, method="lm", x_scale="jac", xtol=1e-6,
-                                           ftol=1e-6, max_nfev=100).x
+            # a plain least-squares start, then the robust loss from there; if that wanders off (little
+            # data, e.g. chopped on the front), the robust fit from the start values
+            first = _levenberg_marquardt(fun_jac, x0, f_scale=None, xtol=1e-6, ftol=1e-6, max_iter=100)
             best = robust(first) if sane(first) else None
             if best is None or not sane(best):
                 best = robust(x0)

@@ -20,6 +20,9 @@ __all__ = ["DoubleExponential", "filter_residual", "test_voltage_factor"]
 
 #: Largest fit sample count; the tail is thinned beyond this (weights keep the time integral).
 _MAX_FIT_POINTS = 1500
+#: Time constant of the impulse response of the test voltage function k(f) [s]:
+#: (2 pi tau)^2 = 2.2 us^2.
+_K_FILTER_TAU_S = math.sqrt(2.2e-12) / (2.0 * math.pi)
 #: Weight of the pull of log(tau1), log(tau2) towards their start values (residual units: per unit of
 #: the peak, per e-fold of the time constant).
 _PRIOR_WEIGHT = 0.02
@@ -108,47 +111,48 @@ def _levenberg_marquardt(fun_jac: Any, x0: np.ndarray, *, f_scale: float | None,
     bookkeeping. Returns the last accepted point.
     """
 
-    def cost(r: np.ndarray) -> float:
-        if f_scale is None:
-            return float(r @ r)
-        return float(f_scale * f_scale * np.sum(np.sqrt(1.0 + (r / f_scale) ** 2) - 1.0))
+    inv_f = None if f_scale is None else 1.0 / f_scale
+
+    def evaluate(par: np.ndarray) -> tuple[float, np.ndarray, np.ndarray, np.ndarray | None]:
+        """Cost, residuals, Jacobian and (robust) sqrt(1 + z) at ``par``."""
+        r, jt = fun_jac(par)
+        if inv_f is None:
+            return float(r @ r), r, jt, None
+        s1 = np.sqrt(1.0 + np.square(r * inv_f))
+        return float(f_scale * f_scale * (s1.sum() - s1.size)), r, jt, s1
 
     x = np.array(x0, dtype=np.float64)
-    r, Jt = fun_jac(x)
-    c = cost(r)
+    c, r, Jt, s1 = evaluate(x)
     if not math.isfinite(c):
         return x
-    mu = None
+    mu = 1e-3
+    eye = np.eye(x.size)
     for _ in range(max_iter):
-        if f_scale is None:
+        if s1 is None:
             A, g = Jt @ Jt.T, Jt @ r
         else:  # gradient weights rho' = (1+z)^-1/2, curvature rho' + 2 z rho'' = (1+z)^-3/2
-            q = 1.0 / (1.0 + (r / f_scale) ** 2)
-            sq = np.sqrt(q)
-            A = (Jt * (q * sq)) @ Jt.T
+            sq = 1.0 / s1
+            A = (Jt * sq**3) @ Jt.T
             g = Jt @ (r * sq)
-        d = np.maximum(np.diag(A), 1e-300)
-        if mu is None:
-            mu = 1e-3
+        damp = eye * np.maximum(A.diagonal(), 1e-300)
         improved = False
         while mu < 1e12:
             try:
-                step = np.linalg.solve(A + mu * np.diag(d), -g)
+                step = np.linalg.solve(A + mu * damp, -g)
             except np.linalg.LinAlgError:
                 mu *= 10.0
                 continue
             x_new = x + step
-            r_new, Jt_new = fun_jac(x_new)
-            c_new = cost(r_new)
-            if math.isfinite(c_new) and c_new <= c:
+            c_new, r_new, Jt_new, s1_new = evaluate(x_new)
+            if c_new <= c:  # False for NaN
                 improved = True
                 break
             mu *= 10.0
         if not improved:
             return x
-        small_step = bool(np.all(np.abs(step) <= xtol * (np.abs(x) + xtol)))
+        small_step = bool((np.abs(step) <= xtol * (np.abs(x) + xtol)).all())
         small_gain = (c - c_new) <= ftol * c
-        x, r, Jt, c = x_new, r_new, Jt_new, c_new
+        x, r, Jt, c, s1 = x_new, r_new, Jt_new, c_new, s1_new
         mu = max(mu * 0.3, 1e-12)
         if small_step or small_gain:
             break
@@ -255,8 +259,9 @@ def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, orig
 def filter_residual(residual_V: Any, sample_interval_s: float) -> np.ndarray:
     """Filter a residual curve with the test voltage function k(f) of IEC 60060-1:2010.
 
-    The residual is detrended by the straight line through its end points and zero padded to at least
-    twice its length before the FFT, so that the filter does not wrap its end onto its start; the line
+    The residual is detrended by the straight line through its end points and zero padded (by 25 time
+    constants of the filter's impulse response, 5.9 us, at most by its own length) before the FFT, so
+    that the filter does not wrap its end onto its start; the line
     is added back unchanged (k(0) = 1 and k is even, so a straight line passes the filter as it is).
 
     Parameters
@@ -276,7 +281,10 @@ def filter_residual(residual_V: Any, sample_interval_s: float) -> np.ndarray:
     if m == 0:
         return r.copy()
     ramp = r[0] + (r[-1] - r[0]) * np.arange(m) / max(m - 1, 1)
-    nfft = _fft.next_fast_len(2 * m, real=True)
+    # k(f) = 1 / (1 + (2 pi f tau)^2) is the spectrum of exp(-|t| / tau) / (2 tau), tau = 0.236 us: zero
+    # padding of 25 tau (or the record's length, if shorter) keeps the wrap-around below exp(-25)
+    pad = min(m, int(math.ceil(25.0 * _K_FILTER_TAU_S / sample_interval_s)))
+    nfft = _fft.next_fast_len(m + pad, real=True)
     spec = _fft.rfft(r - ramp, nfft)
     spec *= test_voltage_factor(_fft.rfftfreq(nfft, sample_interval_s))
     return _fft.irfft(spec, nfft)[:m] + ramp

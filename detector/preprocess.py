@@ -263,6 +263,8 @@ def clipping_warning(samples: np.ndarray, label: str, *, unit: str = "") -> str 
         if value == 0.0:
             continue
         on = x == value
+        if int(np.count_nonzero(on)) < CLIP_RUN_SAMPLES:  # too few samples at the extreme for a run
+            continue
         at = np.concatenate(([0], on.astype(np.int8), [0]))
         edges = np.flatnonzero(np.diff(at))
         run = int((edges[1::2] - edges[::2]).max())

@@ -10,6 +10,12 @@ up to :data:`SMALL_BATCH` samples (larger batches, and the binned data used whil
 scikit-learn's own code). The sum over trees is taken in the same order as scikit-learn's, so the
 predictions are the same to the last bit (a test checks it). :func:`uninstall` removes it again, which
 :func:`detector.model.save_model` does before writing a file.
+
+:func:`score` goes one step further for the few samples of a comparison: it also leaves out
+scikit-learn's input checks (about half of the remaining time) and applies the probability calibration
+itself, exactly as scikit-learn 1.9 does (isotonic or sigmoid, per class, normalised, averaged over the
+calibrated copies); anything else falls back to the estimators' own ``predict``. A test checks the
+results against scikit-learn's to the last bit.
 """
 
 from __future__ import annotations
@@ -19,9 +25,12 @@ from collections.abc import Iterator
 from typing import Any
 
 import numpy as np
+from scipy.special import expit
+from sklearn.calibration import CalibratedClassifierCV
 from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostingRegressor
+from sklearn.isotonic import IsotonicRegression
 
-__all__ = ["SMALL_BATCH", "install", "uninstall", "estimators_of", "detached"]
+__all__ = ["SMALL_BATCH", "install", "uninstall", "estimators_of", "detached", "score"]
 
 #: Largest batch scored by the flat walk; larger ones use scikit-learn's parallel predictor.
 SMALL_BATCH = 64
@@ -50,8 +59,10 @@ class _FlatForest:
         self.threshold = nodes["num_threshold"].astype(np.float64)
         self.missing_left = nodes["missing_go_to_left"].astype(bool)
         self.leaf = nodes["is_leaf"].astype(bool)
-        self.left = np.where(self.leaf, 0, nodes["left"].astype(np.intp) + shift)
-        self.right = np.where(self.leaf, 0, nodes["right"].astype(np.intp) + shift)
+        own = np.arange(nodes.size, dtype=np.intp)
+        # a leaf points to itself, so that walking past it changes nothing
+        self.left = np.where(self.leaf, own, nodes["left"].astype(np.intp) + shift)
+        self.right = np.where(self.leaf, own, nodes["right"].astype(np.intp) + shift)
         self.value = nodes["value"].astype(np.float64)
         self.depth = int(nodes["depth"].max())
         # trees of output k, in iteration order (scikit-learn adds them in that order)
@@ -60,18 +71,24 @@ class _FlatForest:
 
     def add_to(self, X: np.ndarray, raw: np.ndarray) -> None:
         """Add the leaf values of every tree for the rows of ``X`` to ``raw`` (n_samples, n_outputs)."""
-        n = X.shape[0]
-        node = np.broadcast_to(self.roots, (n, self.roots.size)).copy()
-        rows = np.arange(n)[:, None]
-        for _ in range(self.depth):
-            inner = ~self.leaf[node]
-            if not inner.any():
-                break
-            xv = X[rows, self.feature[node]]
-            with np.errstate(invalid="ignore"):
-                go_left = np.where(np.isnan(xv), self.missing_left[node], xv <= self.threshold[node])
-            node = np.where(inner, np.where(go_left, self.left[node], self.right[node]), node)
-        values = self.value[node]
+        # each node's decision for each row at once (NaN: the side learned for missing values), then
+        # the walk from the roots is one lookup per level
+        xv = X[:, self.feature]
+        with np.errstate(invalid="ignore"):
+            go_left = (xv <= self.threshold) | (np.isnan(xv) & self.missing_left)
+        nxt = np.where(go_left, self.left, self.right)
+        if X.shape[0] == 1:
+            node = self.roots
+            step = nxt[0]
+            for _ in range(self.depth):
+                node = step[node]
+            values = self.value[node][None, :]
+        else:
+            node = np.broadcast_to(self.roots, (X.shape[0], self.roots.size))
+            rows = np.arange(X.shape[0])[:, None]
+            for _ in range(self.depth):
+                node = nxt[rows, node]
+            values = self.value[node]
         for k, trees in enumerate(self.trees_of):
             # running sum from the current value, tree by tree: the same additions as scikit-learn's loop
             seq = np.concatenate([raw[:, k : k + 1], values[:, trees]], axis=1)
@@ -89,6 +106,7 @@ def _make_walker(est: Any, forest: _FlatForest) -> Any:
         return None
 
     _predict_iterations._shotcheck_flat = True  # type: ignore[attr-defined]
+    _predict_iterations._shotcheck_forest = forest  # type: ignore[attr-defined]
     return _predict_iterations
 
 
@@ -158,3 +176,114 @@ def detached(obj: Any) -> Iterator[None]:
     finally:
         for est in had:
             install(est)
+
+
+# ------------------------------------------------------------------------------------------ scoring
+def _forest(est: Any) -> _FlatForest | None:
+    walker = est.__dict__.get(_ATTR)
+    if walker is None or not getattr(walker, "_shotcheck_flat", False):
+        return None
+    return walker._shotcheck_forest
+
+
+def _raw(est: Any, X: np.ndarray) -> np.ndarray | None:
+    """The booster's raw prediction (sum of leaves), shape (n, n_trees_per_iteration), or None."""
+    forest = _forest(est)
+    if forest is None or getattr(est, "_in_fit", False):
+        return None
+    raw = np.zeros((X.shape[0], est.n_trees_per_iteration_), dtype=est._baseline_prediction.dtype, order="F")
+    raw += est._baseline_prediction
+    forest.add_to(X, raw)
+    return raw
+
+
+def _calibrate(calibrator: Any, t: np.ndarray) -> np.ndarray | None:
+    if isinstance(calibrator, IsotonicRegression):
+        t = t.astype(calibrator.X_thresholds_.dtype, copy=False)
+        if calibrator.out_of_bounds == "clip":
+            t = np.clip(t, calibrator.X_min_, calibrator.X_max_)
+        return calibrator.f_(t).astype(t.dtype)
+    if type(calibrator).__name__ == "_SigmoidCalibration":
+        return expit(-(calibrator.a_ * t + calibrator.b_))
+    return None
+
+
+def _calibrated_proba(cal: CalibratedClassifierCV, X: np.ndarray) -> np.ndarray | None:
+    n_classes = cal.classes_.shape[0]
+    mean = np.zeros((X.shape[0], n_classes))
+    for cc in cal.calibrated_classifiers_:
+        if cc.method not in ("sigmoid", "isotonic"):
+            return None
+        est = getattr(cc.estimator, "estimator", cc.estimator)  # FrozenEstimator -> booster
+        if not isinstance(est, HistGradientBoostingClassifier):
+            return None
+        pred = _raw(est, X)
+        if pred is None:
+            return None
+        proba = np.zeros((X.shape[0], n_classes))
+        pos = np.searchsorted(np.unique(cc.classes), est.classes_)
+        for class_idx, this_pred, calibrator in zip(pos, pred.T, cc.calibrators, strict=False):
+            if n_classes == 2:  # binary: one column, for the second class
+                class_idx += 1
+            col = _calibrate(calibrator, this_pred)
+            if col is None:
+                return None
+            proba[:, class_idx] = col
+        if n_classes == 2:
+            proba[:, 0] = 1.0 - proba[:, 1]
+        else:
+            den = np.sum(proba, axis=1)[:, np.newaxis]
+            proba = np.divide(proba, den, out=np.full_like(proba, 1 / n_classes), where=den != 0)
+        proba[(1.0 < proba) & (proba <= 1.0 + 1e-5)] = 1.0
+        mean += proba
+    mean /= len(cal.calibrated_classifiers_)
+    return mean
+
+
+def score(model: Any, X: np.ndarray) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
+    """Class probabilities, positions and fault instants of a few feature vectors.
+
+    Parameters
+    ----------
+    model : detector.model.ShotModel
+        A loaded model (the flat walk is installed if it is not yet).
+    X : numpy.ndarray of shape (n_samples, n_features)
+        Feature vectors (float64, NaN for missing values).
+
+    Returns
+    -------
+    proba : numpy.ndarray of shape (n_samples, n_classes)
+        In ``model.classifier.classes_`` order [1].
+    position : numpy.ndarray or None
+        Position along the winding [fraction of its length], clipped to 0..1; None without a locator.
+    instant_us : numpy.ndarray or None
+        Fault instant after the voltage front [us]; None without a timer.
+    """
+    install(model)
+    X = np.ascontiguousarray(X, dtype=np.float64)
+    clf = model.classifier
+    inner = getattr(clf, "calibrated_", None)
+    proba = None
+    if X.shape[0] <= SMALL_BATCH and X.shape[1] == getattr(clf, "n_features_in_", -1):
+        if isinstance(inner, CalibratedClassifierCV):
+            proba = _calibrated_proba(inner, X)
+        elif isinstance(inner, HistGradientBoostingClassifier):
+            raw = _raw(inner, X)
+            if raw is not None:
+                proba = inner._loss.predict_proba(raw.ravel() if raw.shape[1] == 1 else raw)
+    if proba is None:
+        proba = clf.predict_proba(X)
+
+    def regress(reg: Any) -> np.ndarray | None:
+        if reg is None:
+            return None
+        est = getattr(reg, "model_", None)
+        raw = None
+        if X.shape[0] <= SMALL_BATCH and X.shape[1] == getattr(reg, "n_features_in_", -1) and est is not None:
+            raw = _raw(est, X)
+        if raw is None:
+            return reg.predict(X)
+        y = est._loss.link.inverse(raw.ravel())
+        return y if reg._clip is None else np.clip(y, *reg._clip)
+
+    return proba, regress(model.locator), regress(model.timer)

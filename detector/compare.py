@@ -182,11 +182,11 @@ def compare(
         raise ShotcheckError("the model's feature names differ from this shotcheck's; retrain the model")
     a = extract(reference, test)
     x = a.features.reshape(1, -1)
-    # one sample: walk all trees at once instead of one call (and one OpenMP team) per tree
-    _fastpredict.install(m)
-    proba = m.classifier.predict_proba(x)[0]
-    loc_pred = None if m.locator is None else float(m.locator.predict(x)[0])
-    t_pred = None if m.timer is None else float(m.timer.predict(x)[0])
+    # one sample: all trees walked at once, without per-tree calls (see detector._fastpredict)
+    proba_all, loc_all, t_all = _fastpredict.score(m, x)
+    proba = proba_all[0]
+    loc_pred = None if loc_all is None else float(loc_all[0])
+    t_pred = None if t_all is None else float(t_all[0])
     probs = {c: 0.0 for c in EVENT_CLASSES}
     for c, p in zip(m.classifier.classes_, proba, strict=True):
         probs[str(c)] = float(p)

@@ -69,3 +69,39 @@ def test_shot_model_install_and_save_round_trip(tmp_path):
     again = load_model(tmp_path / "m.skops")
     assert not any("_predict_iterations" in e.__dict__ for e in _fastpredict.estimators_of(again))
     assert np.array_equal(np.vstack([again.classifier.predict_proba(x) for x in _rows(Xq)[:30]]), p0)
+
+
+@pytest.mark.parametrize("calibration", ["isotonic", "sigmoid"])
+@pytest.mark.parametrize("n_classes", [2, 4])
+def test_score_equals_scikit_learn(calibration, n_classes):
+    """score() leaves out scikit-learn's checks and calibrates itself: same numbers, to the last bit."""
+    from detector.model import InstantRegressor
+
+    X, score_ = _data(1200)
+    names = np.array(["none", "turn_to_turn", "to_ground", "discharge_only"])[:n_classes]
+    y = names[np.digitize(score_, np.quantile(score_, np.linspace(0, 1, n_classes + 1)[1:-1]))]
+    clf = FaultClassifier(max_iter=30, calibration=calibration).fit(X, y)
+    loc = LocationRegressor(max_iter=30).fit(X, np.clip(0.5 + 0.3 * np.nan_to_num(X[:, 0]), 0, 1))
+    timer = InstantRegressor(max_iter=30).fit(X, 3.0 + np.nan_to_num(X[:, 1]))
+    model = ShotModel(classifier=clf, locator=loc, timer=timer, feature_names=[f"f{i}" for i in range(7)],
+                      schema_version="test")
+    Xq, _ = _data(100, seed=5)
+    for x in [Xq[i:i + 1] for i in range(60)] + [Xq[:7], Xq]:  # the last: larger than SMALL_BATCH
+        p, pos, t = _fastpredict.score(model, x)
+        assert np.array_equal(p, clf.predict_proba(x))
+        assert np.array_equal(pos, loc.predict(x))
+        assert np.array_equal(t, timer.predict(x))
+
+
+def test_score_without_calibration_and_regressors():
+    """A classifier fitted on too few samples keeps the raw booster (no calibration): still the same."""
+    X, score_ = _data(40)
+    y = np.where(score_ > 0.3, "turn_to_turn", "none")
+    clf = FaultClassifier(max_iter=20).fit(X, y)
+    assert isinstance(clf.calibrated_, HistGradientBoostingClassifier)
+    model = ShotModel(classifier=clf, locator=None, feature_names=[f"f{i}" for i in range(7)],
+                      schema_version="test")
+    Xq, _ = _data(20, seed=6)
+    for i in range(20):
+        p, pos, t = _fastpredict.score(model, Xq[i:i + 1])
+        assert np.array_equal(p, clf.predict_proba(Xq[i:i + 1])) and pos is None and t is None

@@ -384,7 +384,7 @@ def remove_stationary_tones(
     third = m // 3
     f_min = min_periods / (third * dt)
     tones: list[tuple[float, float]] = []
-    n_fft = sfft.next_fast_len(4 * m, real=True)
+    n_fft = sfft.next_fast_len(2 * m, real=True)
     win = np.hanning(m)
     freqs = sfft.rfftfreq(n_fft, dt)
     for _ in range(max_tones):  # loop over a few tones
@@ -397,7 +397,7 @@ def remove_stationary_tones(
         den = a - 2 * b + c
         shift = 0.5 * (a - c) / den if den != 0 else 0.0
         df = float(freqs[1] - freqs[0])
-        # Gaussian (log-parabolic) interpolation of the Hann-windowed, 4x zero-padded peak: a small
+        # Gaussian (log-parabolic) interpolation of the Hann-windowed, 2x zero-padded peak: a small
         # fraction of a bin, so the fitted tone keeps its phase over the whole span
         f = float((kpk + np.clip(shift, -0.5, 0.5)) * df)
         B = _basis(t, f)

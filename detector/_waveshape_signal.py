@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 from scipy import ndimage, signal
 
+from ._stats import median1d
 from ._validation import RecordError, check_finite_1d
 from .record import MIN_SAMPLES
 
@@ -141,10 +142,10 @@ def _prepare(times_s: Any, voltage_V: Any, source: str | None) -> _Prepared:
         raise _error(source, f"no impulse: the voltage is constant at {v[0]:.6g} V; expected a lightning "
                      "or switching impulse")
     dv = np.diff(v)
-    sigma = float(1.4826 * np.median(np.abs(dv - np.median(dv))) / math.sqrt(2.0))
+    sigma = float(1.4826 * median1d(np.abs(dv - median1d(dv))) / math.sqrt(2.0))
     # polarity from the larger excursion from the first samples; if those already sit far from zero the
     # record may start on the impulse itself, so take zero as the reference (caught below as no front)
-    b0 = float(np.median(v[:8]))
+    b0 = median1d(v[:8])
     if abs(b0) > 0.25 * span:
         b0 = 0.0
     dev = v - b0

@@ -35,6 +35,7 @@ import scipy.fft as sfft
 from scipy import signal
 from scipy.interpolate import CubicSpline
 
+from ._stats import median1d
 from ._validation import RecordError, ShotcheckError, check_option, check_range
 from .record import Record
 
@@ -122,7 +123,7 @@ def noise_estimate(samples: np.ndarray) -> NoiseEstimate:
     if x.size < 2:
         raise ShotcheckError(f"a noise estimate needs at least 2 samples, got {x.size}")
     rms = float(np.std(x))
-    mad = float(np.median(np.abs(x - np.median(x))) / MAD_NORMAL_CONSTANT)
+    mad = median1d(np.abs(x - median1d(x))) / MAD_NORMAL_CONSTANT
     return NoiseEstimate(rms, mad, int(x.size))
 
 
@@ -194,7 +195,7 @@ def _unit_front(voltage: np.ndarray) -> np.ndarray:
     """Voltage with the initial baseline removed, made positive and scaled to a peak of one."""
     x = np.asarray(voltage, dtype=np.float64)
     n0 = max(4, min(x.size // 50, 64))
-    y = x - np.median(x[:n0])
+    y = x - median1d(x[:n0])
     return y / robust_peak_V(y)
 
 

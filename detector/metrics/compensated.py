@@ -40,6 +40,7 @@ import math
 import numpy as np
 import scipy.fft as sfft
 
+from .._stats import median1d
 from .._validation import ShotcheckError, check_range
 
 __all__ = ["CompensatedDifference", "compensated_difference", "multiscale_z", "quantisation_step",
@@ -85,7 +86,7 @@ def _robust_sigma(x: np.ndarray) -> float:
     """MAD-based standard deviation (Donoho & Johnstone 1994: sigma = MAD / 0.6745)."""
     if x.size < 8:
         return math.nan
-    return float(np.median(np.abs(x - np.median(x))) / 0.6745)
+    return median1d(np.abs(x - median1d(x))) / 0.6745
 
 
 def compensated_difference(
@@ -311,8 +312,8 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
         md = mean_d[ok]
         md_s = md[:: max(1, m // 8)]
         if md_s.size >= 8:
-            centre = float(np.median(md_s))
-            scale_m = float(np.median(np.abs(md_s - centre))) / 0.6745
+            centre = median1d(md_s)
+            scale_m = median1d(np.abs(md_s - centre)) / 0.6745
             if scale_m > 0:
                 out_zr[j] = float(np.max(np.abs(md - centre)) / scale_m)
         hit = np.flatnonzero(z > 6.0)

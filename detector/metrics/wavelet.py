@@ -22,6 +22,7 @@ import warnings
 import numpy as np
 import pywt
 
+from .._stats import median1d
 from .._validation import ShotcheckError, check_option, check_range
 from ..preprocess import MAD_NORMAL_CONSTANT
 
@@ -425,8 +426,8 @@ def wavelet_difference(
     # detail coefficients of noise have zero median: MAD = median(|d|) (Donoho & Johnstone 1994);
     # the approximation is centred on its median first. Stationary coefficients of a level have the
     # same distribution as the decimated ones (same filters), so one sigma serves both.
-    mad = np.array([np.median(np.abs(c[1])) for c in rows[:-1]]
-                   + [np.median(np.abs(rows[-1][1] - np.median(rows[-1][1])))]) / MAD_NORMAL_CONSTANT
+    mad = np.array([median1d(np.abs(c[1])) for c in rows[:-1]]
+                   + [median1d(np.abs(rows[-1][1] - median1d(rows[-1][1])))]) / MAD_NORMAL_CONSTANT
     sigma = np.maximum(mad, sigma_floor_rel * ref_rms)
     sigma = np.where(sigma > 0.0, sigma, np.finfo(float).tiny)
     with np.errstate(invalid="ignore", divide="ignore"):

@@ -69,12 +69,29 @@ def test_harmless_differences_give_no_fault(name):
         ({"fault": "to_ground", "section": 30}, "to_ground"),
     ],
 )
-def test_faults_are_indicated_classified_located_and_timed(kw, event):
+def test_faults_are_indicated_classified_and_timed(kw, event):
     v, c = verdict(**kw)
     assert v.fault_indicated, v.probabilities
     assert v.event == event, v.probabilities
-    assert v.location is not None and abs(v.location - c.location) < 0.2
+    assert v.location is not None and 0.0 <= v.location <= 1.0
     assert v.fault_time_s is not None and abs(1e6 * v.fault_time_s - c.fault_time_us) < 3.0
+
+
+def test_faults_are_located_roughly_along_the_winding():
+    """Ten faults spread along the winding: the median location error stays under 0.2 of its length.
+
+    The location is a regression with a measured median error of about 0.1 and a 90th percentile of
+    about 0.33 on the held-out set (README), so one case alone says little; the bound is twice the
+    measured median, set from the held-out figures before these cases were run.
+    """
+    errors = []
+    for fault in ("turn_to_turn", "to_ground"):
+        for section in (3, 11, 20, 28, 36):  # of 40, 0 at the line end
+            v, c = verdict(fault=fault, section=section)
+            assert v.fault_indicated and v.location is not None, (fault, section, v.probabilities)
+            errors.append(abs(v.location - c.location))
+    errors.sort()
+    assert 0.5 * (errors[4] + errors[5]) < 0.2, [round(e, 3) for e in errors]
 
 
 def test_breakdown_after_chopping_is_indicated():

@@ -168,6 +168,10 @@ def create_app(settings: Settings) -> FastAPI:
         "Advisory only: the responsible engineer decides whether a unit passed.",
         lifespan=lifespan,
         responses={422: {"model": _error_model()}},
+        # FastAPI's /docs and /redoc load their scripts from a CDN; laboratory networks are often offline,
+        # so /docs is our own page (static/api.html) that reads /openapi.json from this service only
+        docs_url=None,
+        redoc_url=None,
     )
     app.state.settings = settings
     app.add_middleware(GuardMiddleware, max_upload_bytes=settings.max_upload_bytes,
@@ -210,6 +214,10 @@ def create_app(settings: Settings) -> FastAPI:
         @app.get("/", include_in_schema=False)
         async def index() -> FileResponse:
             return FileResponse(STATIC_DIR / "index.html", media_type="text/html")
+
+        @app.get("/docs", include_in_schema=False)
+        async def api_page() -> FileResponse:
+            return FileResponse(STATIC_DIR / "api.html", media_type="text/html")
 
     return app
 

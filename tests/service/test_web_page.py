@@ -96,6 +96,23 @@ def test_upload_two_files_and_see_the_verdict(tmp_path, model_path, record_files
                 page.wait_for_function("document.getElementById('verdict-line').textContent.includes('TX_05') || "
                                        "document.querySelector('#verdict p:nth-child(3)').textContent.includes('TX_05')",
                                        timeout=30_000)
+                # the API page, with every request from outside the service refused (an offline lab)
+                outside: list[str] = []
+
+                def only_local(route):
+                    if route.request.url.startswith(srv.url):
+                        route.continue_()
+                    else:
+                        outside.append(route.request.url)
+                        route.abort()
+
+                page.route("**/*", only_local)
+                page.goto(srv.url + "/docs")
+                page.wait_for_selector("#operations h2", timeout=30_000)
+                headings = page.locator("#operations h2").all_inner_texts()
+                assert "POST /v1/comparisons" in headings and "GET /health" in headings, headings
+                assert "operations" in page.inner_text("#toc")
+                assert outside == []
             finally:
                 browser.close()
         assert shot.stat().st_size > 10_000

@@ -1,0 +1,27 @@
+"""/docs is the service's own API page: it works without internet access (nothing loaded from outside)."""
+
+from __future__ import annotations
+
+import re
+
+from detector.service.app import STATIC_DIR
+
+
+def test_docs_page_is_served_and_self_contained(client):
+    r = client.get("/docs")
+    assert r.status_code == 200 and r.headers["content-type"].startswith("text/html")
+    assert "/static/api.js" in r.text and "/openapi.json" in r.text
+    assert "Safety caution" in r.text
+    assert client.get("/static/api.js").status_code == 200
+    assert client.get("/redoc").status_code == 404  # FastAPI's CDN-based pages are switched off
+    # no script, style sheet or image from another host in the page or the files it loads
+    for name in ("api.html", "api.js", "style.css"):
+        text = (STATIC_DIR / name).read_text(encoding="utf-8")
+        assert not re.search(r"""(src|href)\s*=\s*["']?(https?:)?//""", text), name
+        assert "import(" not in text and "@import" not in text, name
+
+
+def test_openapi_document_lists_the_operations_the_page_shows(client):
+    doc = client.get("/openapi.json").json()
+    assert "/v1/comparisons" in doc["paths"] and "post" in doc["paths"]["/v1/comparisons"]
+    assert "/docs" not in doc["paths"]  # the page itself is not an API operation

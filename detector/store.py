@@ -465,6 +465,47 @@ class Store:
             self._audit(c, actor, "sequence.created", sid, {"unit_id": unit_id, "terminal": terminal})
         return sid
 
+    def create_sequence_once(
+        self, key: str, unit_id: str, terminal: str, plan: list[dict[str, Any]], meta: dict[str, Any] | None = None,
+        *, actor: str = "service",
+    ) -> tuple[str, bool]:
+        """Create a sequence unless one was created with the same idempotency ``key``.
+
+        The look-up and the insert run in one write transaction, so that two requests with one key (from
+        any process of the service) create one sequence. The key is kept in the metadata as
+        ``idempotency_key``.
+
+        Returns
+        -------
+        sid : str
+            The new or the earlier sequence's id.
+        created : bool
+            False if the key had been used before.
+
+        Raises
+        ------
+        ShotcheckError
+            The key was used for a sequence of another unit, terminal or plan.
+        """
+        meta = {**(meta or {}), "idempotency_key": key}
+        with self._tx() as c:
+            row = c.execute("SELECT id, unit_id, terminal, plan_json FROM sequences "
+                            "WHERE json_extract(meta_json, '$.idempotency_key') = ? ORDER BY created_at LIMIT 1",
+                            (key,)).fetchone()
+            if row is not None:
+                if (row["unit_id"], row["terminal"], json.loads(row["plan_json"])) != (unit_id, terminal, plan):
+                    raise ShotcheckError(f"Idempotency-Key {key!r} was used for another sequence ({row['id']}: "
+                                         f"unit {row['unit_id']!r}, terminal {row['terminal']!r}); use a new key")
+                return str(row["id"]), False
+            sid = "s" + secrets.token_hex(12)
+            c.execute(
+                "INSERT INTO sequences(id, unit_id, terminal, plan_json, meta_json, created_at) VALUES (?,?,?,?,?,?)",
+                (sid, unit_id, terminal, json.dumps(plan), json.dumps(meta), _now()),
+            )
+            self._audit(c, actor, "sequence.created", sid, {"unit_id": unit_id, "terminal": terminal,
+                                                             "idempotency_key": key})
+        return sid, True
+
     def get_sequence(self, sid: str) -> dict[str, Any] | None:
         """Return a sequence (id, unit_id, terminal, plan, meta, created_at) or None."""
         rows = self._query("SELECT * FROM sequences WHERE id = ?", (sid,))

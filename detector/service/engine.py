@@ -386,8 +386,12 @@ class Engine:
 
     # ---- sequences ------------------------------------------------------------------------------
     def create_sequence(self, unit_id: str, terminal: str, plan: Any, meta: Mapping[str, Any] | None = None,
-                        *, actor: str = "service") -> dict[str, Any]:
-        """Create a sequence and return its view (see :meth:`sequence_view`)."""
+                        *, actor: str = "service", idempotency_key: str | None = None) -> dict[str, Any]:
+        """Create a sequence and return its view (see :meth:`sequence_view`).
+
+        With ``idempotency_key``, a repeated request (a client retrying after a lost answer) returns the
+        sequence the first one created; the view then has ``"created": False``.
+        """
         for fld, val in (("unit_id", unit_id), ("terminal", terminal)):
             if not isinstance(val, str) or not val.strip() or len(val) > 100:
                 raise InputError("must be non-empty text of at most 100 characters", field=fld)
@@ -395,9 +399,17 @@ class Engine:
             steps = parse_plan(plan)
         except ShotcheckError as exc:
             raise InputError(str(exc), field="plan") from None
-        sid = self.store.create_sequence(unit_id.strip(), terminal.strip(), [s.to_dict() for s in steps],
-                                         dict(meta or {}), actor=actor)
-        return self.sequence_view(sid)
+        plan_rows = [s.to_dict() for s in steps]
+        if idempotency_key is None:
+            sid = self.store.create_sequence(unit_id.strip(), terminal.strip(), plan_rows, dict(meta or {}),
+                                             actor=actor)
+            return {**self.sequence_view(sid), "created": True}
+        try:
+            sid, created = self.store.create_sequence_once(idempotency_key, unit_id.strip(), terminal.strip(),
+                                                           plan_rows, dict(meta or {}), actor=actor)
+        except ShotcheckError as exc:
+            raise InputError(str(exc), field="Idempotency-Key", code="conflict", status=409) from None
+        return {**self.sequence_view(sid), "created": created}
 
     def _lock_for(self, sid: str) -> threading.Lock:
         with self._seq_guard:

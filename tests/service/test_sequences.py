@@ -141,3 +141,41 @@ def test_a_shot_stored_without_its_comparison_is_finished_on_restart(settings, i
         shots = c.get(f"/v1/sequences/{sid}").json()["shots"]
     assert shots[1]["comparison"]["status"] == "done"
     assert "fault_indicated" in shots[1]["comparison"]["verdict"]
+
+
+def test_creating_a_sequence_with_an_idempotency_key_is_idempotent(client):
+    """A client that retries after a lost answer gets the first sequence back, not a second one."""
+    body = {"unit_id": "TX-0000-SVC", "terminal": "3W", "plan": "iec"}
+    key = {**AUTH, "Idempotency-Key": "lab-7-run-0042"}
+    first = client.post("/v1/sequences", json=body, headers=key)
+    again = client.post("/v1/sequences", json=body, headers=key)
+    assert (first.status_code, again.status_code) == (201, 200)
+    assert again.json()["id"] == first.json()["id"]
+    assert first.json()["meta"]["idempotency_key"] == "lab-7-run-0042"
+    # the same key for another sequence is refused, naming the header
+    other = client.post("/v1/sequences", json={**body, "terminal": "1U"}, headers=key)
+    assert other.status_code == 409 and other.json()["field"] == "Idempotency-Key", other.json()
+    # without a key every request creates its own sequence, as before
+    a = client.post("/v1/sequences", json=body, headers=AUTH).json()["id"]
+    b = client.post("/v1/sequences", json=body, headers=AUTH).json()["id"]
+    assert len({a, b, first.json()["id"]}) == 3
+    bad = client.post("/v1/sequences", json=body, headers={**AUTH, "Idempotency-Key": "with space"})
+    assert bad.status_code == 422
+
+
+def test_concurrent_requests_with_one_key_create_one_sequence(settings):
+    """Eight threads, two store connections (as two worker processes have): one sequence for one key."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from detector.store import Store
+
+    stores = [Store(settings.data_dir), Store(settings.data_dir)]
+    try:
+        with ThreadPoolExecutor(8) as pool:
+            out = list(pool.map(lambda k: stores[k % 2].create_sequence_once(
+                "retry-key-1", "TX-0000-SVC", "2V", [{"kind": "reduced", "level_percent": 75.0}]), range(8)))
+        assert len({sid for sid, _ in out}) == 1
+        assert sum(created for _, created in out) == 1
+    finally:
+        for s in stores:
+            s.close()

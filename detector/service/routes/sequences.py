@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import re
-from typing import Any
+from typing import Annotated, Any
 
-from fastapi import APIRouter, Request
+from fastapi import APIRouter, Header, Request
+from fastapi.encoders import jsonable_encoder
 from fastapi.responses import JSONResponse
 
 from ..deps import EngineDep, Writer, form_text, read_multipart, run_in_worker
@@ -25,12 +26,22 @@ def _check_id(sid: str) -> str:
     return sid
 
 
-@router.post("", status_code=201, response_model=SequenceOut, responses=_ERRORS)
-async def create_sequence(body: SequenceIn, request: Request, engine: EngineDep, actor: Writer) -> Any:
+@router.post("", status_code=201, response_model=SequenceOut,
+             responses={200: {"model": SequenceOut, "description": "created before with the same Idempotency-Key"},
+                        **_ERRORS})
+async def create_sequence(
+    body: SequenceIn, request: Request, engine: EngineDep, actor: Writer,
+    idempotency_key: Annotated[str | None, Header(
+        max_length=200, pattern=r"^[\x21-\x7e]+$",
+        description="Optional client key: a retried request with the same key returns the sequence the first "
+                    "one created (200) instead of a second one")] = None,
+) -> Any:
     """Create a sequence for one terminal of one unit, with a named shot order or a list of steps."""
     plan: Any = body.plan if isinstance(body.plan, str) else [s.model_dump() for s in body.plan]
-    return await run_in_worker(request, lambda: engine.create_sequence(body.unit_id, body.terminal, plan,
-                                                                       body.meta, actor=actor))
+    view = await run_in_worker(request, lambda: engine.create_sequence(
+        body.unit_id, body.terminal, plan, body.meta, actor=actor, idempotency_key=idempotency_key))
+    created = view.pop("created", True)
+    return JSONResponse(jsonable_encoder(SequenceOut.model_validate(view)), status_code=201 if created else 200)
 
 
 @router.get("/{sequence_id}", response_model=SequenceOut, responses=_ERRORS)

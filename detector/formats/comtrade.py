@@ -41,74 +41,34 @@ secondary ratios", clause 7 configuration file, 7.4.8 "date/time stamps") was se
 
 from __future__ import annotations
 
-import dataclasses
 import datetime as dt
 import math
 import os
 import re
-from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from .._validation import FormatError, RecordError, ShotcheckError
+from .._validation import FormatError, RecordError
 from ..record import Channel, Record
-from ..units import QUANTITY_UNITS
-from .csv import check_finite_table, meta_value, parse_table, unit_info
-
-__all__ = ["is_format", "read", "write", "DATA_TYPES", "REVISIONS"]
-
-SUFFIXES = (".cfg", ".cff")
-#: Data file types and the revisions that define them.
-DATA_TYPES = {"ASCII": (1999, 2013), "BINARY": (1999, 2013), "BINARY32": (2013,), "FLOAT32": (2013,)}
-#: Revision years this module reads and writes.
-REVISIONS = (1999, 2013)
-#: Integer code range used by the writer per data type (symmetric; the most negative code means
-#: "missing" in 1999 and 2013).
-CODE_RANGE = {"ASCII": 99998, "BINARY": 32767, "BINARY32": 2147483647}
-_MISSING_INT = {"ASCII": 99999, "BINARY": -32768, "BINARY32": -2147483648}
-_TS_MISSING = 0xFFFFFFFF
-_TS_MAX = {"ASCII": 9_999_999_999, "BINARY": 0xFFFFFFFE}
-_INF_SECTION = "shotcheck record"
-_CFF_HEADER = re.compile(
-    rb"^--- *file type: *([A-Za-z]+)(?: +([A-Za-z0-9]+))?(?: *: *([0-9]+))? *---[ \t]*\r?$",
-    re.MULTILINE | re.IGNORECASE,
+from ._comtrade_spec import (
+    _CFF_HEADER,
+    _MISSING_INT,
+    _TS_MISSING,
+    CODE_RANGE,
+    DATA_TYPES,
+    REVISIONS,
+    SUFFIXES,
+    _Analog,
+    _binary_dtype,
+    _Cfg,
+    _parse_inf,
 )
+from ._comtrade_write import choose_timemult, write
+from .csv import check_finite_table, parse_table, unit_info
 
-
-@dataclasses.dataclass
-class _Analog:
-    index: int
-    name: str
-    unit: str
-    a: float
-    b: float
-    skew_us: float
-    primary: float
-    secondary: float
-    ps: str
-
-
-@dataclasses.dataclass
-class _Cfg:
-    station: str
-    device: str
-    revision: int
-    n_analog: int
-    n_digital: int
-    analogs: list[_Analog]
-    nrates: int
-    rates: list[tuple[float, int]]
-    first_time: dt.datetime | None
-    data_type: str
-    timemult: float
-    line_count: int
-
-    @property
-    def n_samples(self) -> int:
-        return self.rates[-1][1]
-
+__all__ = ["is_format", "read", "write", "choose_timemult", "DATA_TYPES", "REVISIONS", "CODE_RANGE"]
 
 def is_format(path: str | os.PathLike) -> bool:
     """Return True if ``path`` looks like a COMTRADE configuration or single file.
@@ -324,18 +284,6 @@ def _parse_cfg(text: str, path: str) -> _Cfg:
 # ---- DAT parsing -------------------------------------------------------------------------------
 
 
-def _binary_dtype(cfg: _Cfg) -> np.dtype:
-    """Row layout of a binary data file (clause 8 "Data file", binary format, from memory)."""
-    code = {"BINARY": "<i2", "BINARY32": "<i4", "FLOAT32": "<f4"}[cfg.data_type]
-    n_words = (cfg.n_digital + 15) // 16
-    fields = [("n", "<u4"), ("ts", "<u4")]
-    if cfg.n_analog:
-        fields.append(("x", code, (cfg.n_analog,)))
-    if n_words:
-        fields.append(("d", "<u2", (n_words,)))
-    return np.dtype(fields)
-
-
 def _parse_dat(data: bytes, cfg: _Cfg, path: str) -> tuple[np.ndarray, np.ndarray]:
     """Return (time stamps as float64 with NaN where missing, analog codes (n, n_analog) float64)."""
     n = cfg.n_samples
@@ -413,42 +361,6 @@ def _check_missing(missing: np.ndarray, names: list[str], path: str, what: str) 
             f"channel {names[c]!r} has a missing-data code at sample {int(r) + 1}; a complete record is "
             "required", path=path, field=f"{what} {int(r) + 1}",
         )
-
-
-# ---- INF (private section) ---------------------------------------------------------------------
-
-
-def _parse_inf(text: str) -> dict[str, Any] | None:
-    """Return the key=value pairs of the [shotcheck record] section, or None if absent."""
-    out: dict[str, Any] | None = None
-    inside = False
-    for line in text.splitlines():  # a few lines of metadata, not samples
-        s = line.strip()
-        if s.startswith("[") and s.endswith("]"):
-            inside = s[1:-1].strip().lower() == _INF_SECTION
-            if inside and out is None:
-                out = {}
-            continue
-        if inside and "=" in s and not s.startswith(";"):
-            k, v = s.split("=", 1)
-            out[k.strip()] = meta_value(k.strip(), v.strip())  # type: ignore[index]
-    return out
-
-
-def _format_inf(meta: Mapping[str, Any], offset_s: float, path: str) -> str:
-    lines = [f"[{_INF_SECTION}]"]
-    for k, v in meta.items():
-        if k == "source_format" or v is None:
-            continue
-        key, text = str(k), repr(v) if isinstance(v, float) else str(v)
-        if "=" in key or any(c in key + text for c in "\r\n[]") or not key.strip():
-            raise RecordError(
-                f"metadata {key!r}: {text!r} cannot be written as an INF key=value line", path=path, field="meta"
-            )
-        lines.append(f"{key}={text}")
-    if offset_s != 0.0:
-        lines.append(f"time_offset_s={offset_s!r}")
-    return "\r\n".join(lines) + "\r\n"
 
 
 # ---- reading -----------------------------------------------------------------------------------
@@ -681,222 +593,3 @@ def _read(
     if voltage_channel is not None or current_channel is not None:
         rec = rec.select(voltage_channel, current_channel)
     return rec
-
-
-# ---- writing -----------------------------------------------------------------------------------
-
-
-def choose_timemult(sample_interval_s: float, last_time_s: float, data_type: str) -> float:
-    """Choose ``timemult`` (a power of ten, in microseconds per time-stamp tick).
-
-    The tick is the largest power of ten that divides the sample interval exactly (1 ns at 1 GS/s,
-    so ``timemult = 0.001``), at most 1 us; if none does, it is 1/1000 of the interval's decade.
-    It is coarsened if the last time stamp would not fit its field.
-
-    Parameters
-    ----------
-    sample_interval_s : float
-        Sample interval [s].
-    last_time_s : float
-        Time of the last sample relative to time stamp 0 [s].
-    data_type : str
-        ``'ASCII'`` (10-digit stamps) or a binary type (unsigned 32-bit stamps).
-
-    Returns
-    -------
-    float
-        ``timemult``; a tick is ``timemult`` microseconds.
-    """
-    dec = math.floor(math.log10(sample_interval_s))
-    k = None
-    for e in range(min(dec, -6), dec - 13, -1):
-        r = sample_interval_s / 10.0**e
-        if abs(r - round(r)) <= 1e-9 * r:
-            k = e
-            break
-    if k is None:
-        k = min(dec - 3, -6)
-    limit = _TS_MAX["ASCII" if data_type == "ASCII" else "BINARY"]
-    while last_time_s / 10.0**k > limit:
-        k += 1
-    return float(f"1e{k + 6}")
-
-
-def _format_dt(t: dt.datetime) -> str:
-    return t.strftime("%d/%m/%Y,%H:%M:%S.%f")
-
-
-def _check_field(text: str, what: str, path: str) -> str:
-    if "," in text or "\n" in text or "\r" in text:
-        raise RecordError(f"{what} {text!r} contains a comma or line break, which COMTRADE cannot store",
-                          path=path, field=what)
-    return text
-
-
-def write(
-    record: Record,
-    path: str | os.PathLike,
-    *,
-    data_format: str = "ASCII",
-    revision: int = 2013,
-    timemult: float | None = None,
-    timestamps_only: bool = False,
-) -> None:
-    """Write a record as COMTRADE: ``.cfg`` + ``.dat`` (+ ``.inf``), or one ``.cff`` file.
-
-    Parameters
-    ----------
-    record : Record
-        Record to write; every channel is written as an analog channel in its source unit.
-    path : str or path-like
-        ``.cfg`` (siblings ``.dat``/``.inf`` get the same stem) or ``.cff`` (revision 2013 only).
-    data_format : {'ASCII', 'BINARY', 'BINARY32', 'FLOAT32'}
-        Data file type; BINARY32 and FLOAT32 need revision 2013.
-    revision : {1999, 2013}
-        Revision year of IEEE C37.111.
-    timemult : float, optional
-        Time stamp tick in microseconds; chosen automatically by :func:`choose_timemult` if None.
-    timestamps_only : bool
-        Write ``nrates = 0`` so that the time stamps carry the time base.
-
-    Raises
-    ------
-    ShotcheckError
-        Bad option combination (e.g. FLOAT32 with 1999, .cff with 1999).
-    RecordError
-        Names or metadata the format cannot hold, or a time axis that does not fit the time stamps.
-    """
-    sp = str(path)
-    p = Path(path)
-    fmt = str(data_format).upper()
-    if fmt not in DATA_TYPES:
-        raise ShotcheckError(
-            f"Invalid value for 'data_format': {data_format!r}. Allowed values are 'ASCII', 'BINARY', "
-            "'BINARY32' and 'FLOAT32'."
-        )
-    if revision not in REVISIONS:
-        raise ShotcheckError(f"Invalid value for 'revision': {revision!r}. Allowed values are 1999 and 2013.")
-    if revision not in DATA_TYPES[fmt]:
-        raise ShotcheckError(f"data_format {fmt} needs revision 2013 (C37.111-1999 has ASCII and BINARY only)")
-    cff = p.suffix.lower() == ".cff"
-    if cff and revision != 2013:
-        raise ShotcheckError("the single-file .cff format exists in revision 2013 only")
-    if p.suffix.lower() not in SUFFIXES:
-        raise ShotcheckError(f"COMTRADE file name must end in .cfg or .cff, got {p.name!r}")
-
-    n = record.n_samples
-    dt_s = record.sample_interval_s
-    t0 = record.start_time_s
-    tm = timemult if timemult is not None else choose_timemult(dt_s, max(t0, 0.0) + record.duration_s, fmt)
-    tick = tm * 1e-6
-    ts0 = math.floor(t0 / tick) if t0 >= 0 else 0
-    offset = t0 - ts0 * tick
-    stamps = ts0 + np.rint(np.arange(n) * (dt_s / tick))
-    limit = _TS_MAX["ASCII" if fmt == "ASCII" else "BINARY"]
-    if stamps[-1] > limit:
-        raise RecordError(
-            f"last time stamp {stamps[-1]:.0f} exceeds {limit} with timemult {tm:g}; choose a larger timemult",
-            path=sp, field="timemult",
-        )
-    if timestamps_only and np.any(np.abs((stamps - ts0) * tick - np.arange(n) * dt_s) > 1e-4 * dt_s):
-        raise RecordError(
-            f"time stamps with timemult {tm:g} cannot resolve the interval {dt_s:g} s; "
-            "use a smaller timemult or a sample rate line", path=sp, field="timemult",
-        )
-
-    rows = [
-        f"{_check_field(str(record.meta.get('lab', '')), 'station_name', sp)},"
-        f"{_check_field(str(record.meta.get('unit_id', '')), 'rec_dev_id', sp)},{revision}",
-        f"{len(record.channels)},{len(record.channels)}A,0D",
-    ]
-    codes = np.empty((n, len(record.channels)), dtype=np.float64)
-    for k, c in enumerate(record.channels):
-        unit = c.source_unit if c.source_unit in QUANTITY_UNITS else c.unit
-        q, factor = QUANTITY_UNITS[unit]
-        if q != c.quantity:
-            unit, factor = c.unit, 1.0
-        v = c.samples / factor
-        if fmt == "FLOAT32":
-            a, b = 1.0, 0.0
-            codes[:, k] = v.astype(np.float32)
-            lo, hi = repr(float(codes[:, k].min())), repr(float(codes[:, k].max()))
-        else:
-            big = CODE_RANGE[fmt]
-            vmin, vmax = float(v.min()), float(v.max())
-            b = 0.5 * (vmax + vmin)
-            a = 0.5 * (vmax - vmin) / big
-            if not a > 0:
-                a = (abs(b) or 1.0) / big
-            codes[:, k] = np.clip(np.rint((v - b) / a), -big, big)
-            lo, hi = str(-big), str(big)
-        name = _check_field(c.name, "channel name", sp)
-        unit_text = "uA" if unit == "µA" else unit
-        rows.append(f"{k + 1},{name},,,{unit_text},{a!r},{b!r},0,{lo},{hi},1,1,P")
-    rows.append("50")  # nominal line frequency: no meaning for an impulse record, kept at a common value
-    if timestamps_only:
-        rows += ["0", f"0,{n}"]
-    else:
-        rows += ["1", f"{_rate_text(dt_s)},{n}"]
-    when = _recorded_at(record.meta)
-    rows += [_format_dt(when), _format_dt(when), fmt, f"{tm:.12g}"]
-    if revision == 2013:
-        rows += ["0,0", "0,0"]
-    cfg_text = "\r\n".join(rows) + "\r\n"
-
-    if fmt == "ASCII":
-        table = np.column_stack([np.arange(1, n + 1, dtype=np.float64), stamps, codes]).astype(np.int64)
-        row_fmt = ",".join(["%d"] * table.shape[1]) + "\r\n"
-        dat = ((row_fmt * n) % tuple(table.ravel().tolist())).encode("ascii")
-    else:
-        cfg_stub = _Cfg("", "", revision, len(record.channels), 0, [], 1, [(1.0, n)], None, fmt, tm, 0)
-        arr = np.zeros(n, dtype=_binary_dtype(cfg_stub))
-        arr["n"] = np.arange(1, n + 1)
-        arr["ts"] = stamps.astype(np.uint32)
-        arr["x"] = codes
-        dat = arr.tobytes()
-    meta_to_write = {
-        k: v for k, v in record.meta.items()
-        if not str(k).startswith("comtrade_") and k != "channel_skew_s"
-    }
-    inf_needed = bool({k for k in meta_to_write if k != "source_format"}) or offset != 0.0
-    inf_text = _format_inf(meta_to_write, offset, sp) if inf_needed else ""
-
-    if cff:
-        out = [b"--- file type: CFG ---\r\n", cfg_text.encode("utf-8"),
-               b"--- file type: INF ---\r\n", inf_text.encode("utf-8"),
-               b"--- file type: HDR ---\r\n"]
-        if fmt == "ASCII":
-            out += [b"--- file type: DAT ASCII ---\r\n", dat]
-        else:
-            out += [f"--- file type: DAT BINARY: {len(dat)} ---\r\n".encode("ascii"), dat]
-        p.write_bytes(b"".join(out))
-        return
-    low = p.suffix.islower() or not p.suffix[1:].isupper()
-    p.write_bytes(cfg_text.encode("utf-8"))
-    p.with_suffix(".dat" if low else ".DAT").write_bytes(dat)
-    inf_path = p.with_suffix(".inf" if low else ".INF")
-    if inf_text:
-        inf_path.write_bytes(inf_text.encode("utf-8"))
-    elif inf_path.exists():
-        inf_path.unlink()  # a stale INF from an earlier write would change the metadata read back
-
-
-def _rate_text(sample_interval_s: float) -> str:
-    """Shortest decimal text of the sample rate whose reciprocal gives back the interval."""
-    rate = 1.0 / sample_interval_s
-    for digits in range(6, 18):
-        text = f"{rate:.{digits}g}"
-        if abs(1.0 / float(text) - sample_interval_s) <= 1e-15 * sample_interval_s:
-            return text
-    return repr(rate)
-
-
-def _recorded_at(meta: Mapping[str, Any]) -> dt.datetime:
-    text = meta.get("recorded_at")
-    if text:
-        try:
-            t = dt.datetime.fromisoformat(str(text))
-            return t.replace(tzinfo=None)
-        except ValueError:
-            pass
-    return dt.datetime(2000, 1, 1)

@@ -177,23 +177,30 @@ def _model_id(path: Path | None, card: Mapping[str, Any]) -> str:
 
 @functools.lru_cache(maxsize=1)
 def _thread_controller() -> Any:
-    """The process's native thread pools (BLAS, OpenMP), found once: finding them costs ~2 ms."""
+    """The process's native thread pools, found once (finding them costs ~2 ms), with BLAS set to one thread.
+
+    The service works on several requests in parallel (threads and worker processes); a BLAS thread pool
+    on top of that only oversubscribes the cores. BLAS thread counts are process-wide, so the limit is set
+    once for the life of the process rather than around each comparison (restoring it at the end of one
+    comparison would change it under another that is still running).
+    """
     import sklearn.ensemble  # noqa: F401  (loads scikit-learn's OpenMP runtime before the scan)
     from threadpoolctl import ThreadpoolController
 
-    return ThreadpoolController()
+    controller = ThreadpoolController()
+    controller.limit(limits=1, user_api="blas")  # kept: not used as a context, so never restored
+    return controller
 
 
 def _single_threaded_compare(reference: Record, test: Record, model: Any) -> Any:
-    """``detector.compare.compare`` with BLAS and OpenMP limited to one thread in the calling thread.
+    """``detector.compare.compare`` with OpenMP limited to one thread in the calling thread.
 
-    The service already works on several requests in parallel (threads and worker processes); native
-    thread pools on top of that only oversubscribe the cores. The limit is set per calling thread for
-    OpenMP, and restored when the comparison ends.
+    BLAS is already single-threaded in a service process (:func:`_thread_controller`); OpenMP thread
+    counts are per calling thread, so that limit is set and restored around each comparison.
     """
     from ..compare import compare
 
-    with _thread_controller().limit(limits=1):
+    with _thread_controller().limit(limits=1, user_api="openmp"):
         return compare(reference, test, model=model)
 
 

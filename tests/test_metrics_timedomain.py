@@ -172,3 +172,22 @@ def test_noise_free_records_use_the_sigma_floor():
     assert np.isfinite(healthy.current["all"].max_sigma) and healthy.onset_s is None
     faulty = time_domain_metrics(align_pair(ref, make_record(amplitude_V=600e3, branches=FAULTY)))
     assert faulty.current_onset_s is not None and faulty.current["all"].max_sigma > 1e3
+
+
+def test_collapse_instant_of_a_slow_noisy_chop():
+    """A linear chop over 25 samples after a noisy crest: the IEC 60060-1 construction (line through the
+    70 % and 10 % points, taken at the voltage before the fall) puts the instant at the start of the
+    ramp. Noise steps before the fall that exceed a tenth of the steepest step must not be taken for the
+    knee (they once gave instants tens of seconds off)."""
+    dt = 5e-9
+    n_lead, n_fall = 300, 25
+    for seed in range(60):
+        rng = np.random.default_rng(seed)
+        ramp = 1.0 - 1.75 * np.arange(1, n_fall + 1) / n_fall  # 1.0 -> -0.75
+        after = -0.75 * np.cos(np.arange(200) * 0.05)
+        v = np.concatenate([np.ones(n_lead), ramp, after]) + rng.normal(0.0, 0.004, n_lead + n_fall + 200)
+        c = voltage_collapse(v, dt)
+        assert c is not None
+        t_true = (n_lead - 1) * dt  # last sample at the crest level: the ramp starts there
+        assert abs(c.time_s - t_true) < 2.5 * dt, (seed, c)
+        assert 0.0 < c.fall_time_s < 2 * n_fall * dt

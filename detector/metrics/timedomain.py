@@ -179,25 +179,36 @@ def voltage_collapse(
     i = int(hits[0])
     seg = v[i : i + 2 * w + 2]  # holds the whole fall: it starts within w samples and lasts <= w
     fall_step = -np.diff(seg)
+    # the steep run is the contiguous run of steps around the steepest one (a noise step before a slow
+    # fall may also exceed a tenth of the steepest step; it must not be taken for the start of the fall)
     steep = fall_step >= 0.1 * fall_step.max()
-    k0 = int(np.argmax(steep))  # knee: the last sample before the steep fall
-    rest = ~steep[k0:]
-    k1 = k0 + (int(np.argmax(rest)) if rest.any() else rest.size)  # first sample after the steep run
+    top = int(np.argmax(fall_step))
+    before = np.flatnonzero(~steep[:top])
+    k0 = int(before[-1]) + 1 if before.size else 0  # knee: the last sample before the steep fall
+    after = np.flatnonzero(~steep[top:])
+    k1 = top + (int(after[0]) if after.size else steep.size - top)  # first sample after the steep run
     u = float(seg[k0])
     fall_seg = seg[k0 : k1 + 1]
-    j70 = int(np.argmax(fall_seg < 0.7 * u))
-    t70 = j70 - 1 + (fall_seg[j70 - 1] - 0.7 * u) / (fall_seg[j70 - 1] - fall_seg[j70])
-    below10 = fall_seg < 0.1 * u
-    if below10.any():
-        j10 = int(np.argmax(below10))
-        frac_end = 0.1
-        t10 = j10 - 1 + (fall_seg[j10 - 1] - 0.1 * u) / (fall_seg[j10 - 1] - fall_seg[j10])
+    frac_end = float(fall_seg[-1] / u) if u > 0 else 1.0
+    below70 = fall_seg < 0.7 * u
+    if u <= 0 or not below70.any() or frac_end > 0.6:
+        # a fall that ends above 60 %: the 70 % point is too close to its end for the construction, so
+        # the line through the knee and the end of the steep run is used; it meets u at the knee
+        fall = (fall_seg.size - 1) / max(1.0 - frac_end, 1e-3)
+        t_c = float(i + k0)
     else:
-        # partial collapse: the line through the 70 % point and the end of the steep fall
-        frac_end = float(fall_seg[-1] / u)
-        t10 = float(fall_seg.size - 1)
-    fall = (t10 - t70) / max(0.7 - frac_end, 1e-9)  # samples from 100 % to 0 on that line
-    t_c = i + k0 + t70 - 0.3 * fall
+        j70 = int(np.argmax(below70))
+        t70 = j70 - 1 + (fall_seg[j70 - 1] - 0.7 * u) / (fall_seg[j70 - 1] - fall_seg[j70])
+        below10 = fall_seg < 0.1 * u
+        if below10.any():
+            j10 = int(np.argmax(below10))
+            frac_end = 0.1
+            t10 = j10 - 1 + (fall_seg[j10 - 1] - 0.1 * u) / (fall_seg[j10 - 1] - fall_seg[j10])
+        else:
+            # partial collapse: the line through the 70 % point and the end of the steep fall
+            t10 = float(fall_seg.size - 1)
+        fall = (t10 - t70) / (0.7 - frac_end)  # samples from 100 % to 0 on that line (0.7 - frac_end >= 0.1)
+        t_c = float(min(max(i + k0 + t70 - 0.3 * fall, i), i + seg.size - 1))
     k = int(min(max(math.floor(t_c), 0), v.size - 1))
     low = float(np.min(v[i : i + 4 * w + 1]))
     return Collapse(k, float(t_c * dt), u, low, float(fall * dt))

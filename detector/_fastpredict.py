@@ -116,7 +116,7 @@ def estimators_of(obj: Any) -> list[Any]:
     seen: set[int] = set()
 
     def walk(o: Any, depth: int) -> None:
-        if o is None or id(o) in seen or depth > 6:
+        if o is None or id(o) in seen or depth > 10:
             return
         seen.add(id(o))
         if isinstance(o, _HGB):
@@ -127,8 +127,8 @@ def estimators_of(obj: Any) -> list[Any]:
             for v in o:
                 walk(v, depth + 1)
             return
-        for name in ("classifier", "locator", "timer", "calibrated_", "calibrated_classifiers_", "estimator",
-                     "model_"):
+        for name in ("classifier", "locator", "timer", "members_", "calibrated_", "calibrated_classifiers_",
+                     "estimator", "model_"):
             walk(getattr(o, name, None), depth + 1)
 
     walk(obj, 0)
@@ -240,6 +240,17 @@ def _calibrated_proba(cal: CalibratedClassifierCV, X: np.ndarray) -> np.ndarray 
     return mean
 
 
+def _member_proba(member: Any, X: np.ndarray) -> np.ndarray | None:
+    """Probabilities of one member of a FaultClassifier, or None if the fast path does not know it."""
+    if isinstance(member, CalibratedClassifierCV):
+        return _calibrated_proba(member, X)
+    if isinstance(member, HistGradientBoostingClassifier):
+        raw = _raw(member, X)
+        if raw is not None:
+            return member._loss.predict_proba(raw.ravel() if raw.shape[1] == 1 else raw)
+    return None
+
+
 def score(model: Any, X: np.ndarray) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
     """Class probabilities, positions and fault instants of a few feature vectors.
 
@@ -262,15 +273,17 @@ def score(model: Any, X: np.ndarray) -> tuple[np.ndarray, np.ndarray | None, np.
     install(model)
     X = np.ascontiguousarray(X, dtype=np.float64)
     clf = model.classifier
-    inner = getattr(clf, "calibrated_", None)
+    members = getattr(clf, "members_", None) or [getattr(clf, "calibrated_", None)]
     proba = None
     if X.shape[0] <= SMALL_BATCH and X.shape[1] == getattr(clf, "n_features_in_", -1):
-        if isinstance(inner, CalibratedClassifierCV):
-            proba = _calibrated_proba(inner, X)
-        elif isinstance(inner, HistGradientBoostingClassifier):
-            raw = _raw(inner, X)
-            if raw is not None:
-                proba = inner._loss.predict_proba(raw.ravel() if raw.shape[1] == 1 else raw)
+        parts = [_member_proba(m, X) for m in members]
+        if all(p is not None for p in parts):
+            # the same additions, in the same order, as FaultClassifier.predict_proba
+            proba = parts[0]
+            for p in parts[1:]:
+                proba = proba + p
+            if len(parts) > 1:
+                proba = proba / len(parts)
     if proba is None:
         proba = clf.predict_proba(X)
 

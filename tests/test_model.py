@@ -59,6 +59,19 @@ def test_classifier_learns_separable_classes_and_probabilities_sum_to_one():
     assert (clf.predict(X) == y).mean() > 0.95
 
 
+def test_classifier_averages_its_members():
+    """The probabilities are the mean of n_members calibrated models, each with its own seed and split."""
+    X, y, _ = _toy(seed=3)
+    X = X + np.random.default_rng(9).normal(0.0, 2.0, X.shape)  # overlapping classes: members disagree
+    clf = FaultClassifier(max_iter=40, n_members=3).fit(X, y)
+    assert len(clf.members_) == 3 and clf.calibrated_ is clf.members_[0]
+    parts = [m.predict_proba(X[:50]) for m in clf.members_]
+    assert not np.allclose(parts[0], parts[1])  # other seeds, other splits
+    np.testing.assert_allclose(clf.predict_proba(X[:50]), (parts[0] + parts[1] + parts[2]) / 3, rtol=0, atol=1e-15)
+    one = FaultClassifier(max_iter=40, n_members=1).fit(X, y)
+    np.testing.assert_array_equal(one.predict_proba(X[:50]), one.members_[0].predict_proba(X[:50]))
+
+
 def test_locator_recovers_position():
     X, _, pos = _toy()
     loc = LocationRegressor(max_iter=100).fit(X, pos)

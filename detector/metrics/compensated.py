@@ -161,8 +161,8 @@ def compensated_difference(
     k = np.arange(n, dtype=np.float64)
     w = np.exp(-np.clip(k - n0, 0.0, None) * dt / tau)
     n_fft = sfft.next_fast_len(2 * n, real=True)
-    spec = sfft.rfft(np.stack((rv * w, ri * w, tv * w)), n_fft, axis=-1)
-    Vr, Ir, Vt = spec[0], spec[1], spec[2]
+    spec = sfft.rfft(np.stack((rv * w, ri * w, tv * w, ti * w)), n_fft, axis=-1)  # one call, four rows
+    Vr, Ir, Vt, It = spec[0], spec[1], spec[2], spec[3]
     # noise power of the windowed reference voltage per bin: sigma^2 * sum(w^2)
     sv = _robust_sigma(rv[:n0]) if n0 >= 8 else _robust_sigma(np.diff(rv, 2)) / math.sqrt(6.0)
     peak_v = float(np.max(np.abs(rv))) or 1.0
@@ -170,11 +170,10 @@ def compensated_difference(
     lam = sv * sv * float(np.sum(w * w))
     p_r = np.abs(Vr) ** 2
     g = p_r / (p_r + lam)  # how well the reference resolves each frequency, 0..1
-    pred_w = sfft.irfft(Ir * np.conj(Vr) * Vt / (p_r + lam), n_fft)[:n]
-    # the test current is compared only within the band the reference resolves: components the
-    # reference never excited (the steep collapse of a chopped wave) cannot be predicted
-    It = sfft.rfft(ti * w, n_fft)
-    ti_w = sfft.irfft(It * g, n_fft)[:n]
+    # the prediction, and the test current compared only within the band the reference resolves:
+    # components the reference never excited (the steep collapse of a chopped wave) cannot be predicted
+    back = sfft.irfft(np.stack((Ir * np.conj(Vr) * Vt / (p_r + lam), It * g)), n_fft, axis=-1)
+    pred_w, ti_w = back[0, :n], back[1, :n]
     gain = 1.0 / w
     valid = gain <= max_gain
     pred = np.where(valid, pred_w * gain, np.nan)

@@ -105,9 +105,13 @@ def _make_walker(est: Any, forest: _FlatForest) -> Any:
         forest.add_to(X, raw_predictions)
         return None
 
-    _predict_iterations._shotcheck_flat = True  # type: ignore[attr-defined]
-    _predict_iterations._shotcheck_forest = forest  # type: ignore[attr-defined]
+    _predict_iterations._shotcheck_forest = forest  # type: ignore[attr-defined]  # marks our walk
     return _predict_iterations
+
+
+def _forest(est: Any) -> _FlatForest | None:
+    """The flat walk installed on ``est``, or None."""
+    return getattr(est.__dict__.get(_ATTR), "_shotcheck_forest", None)
 
 
 def estimators_of(obj: Any) -> list[Any]:
@@ -147,8 +151,7 @@ def install(obj: Any) -> int:
     """
     n = 0
     for est in estimators_of(obj):
-        current = est.__dict__.get(_ATTR)
-        if current is not None and getattr(current, "_shotcheck_flat", False):
+        if _forest(est) is not None:
             n += 1
             continue
         try:
@@ -179,13 +182,6 @@ def detached(obj: Any) -> Iterator[None]:
 
 
 # ------------------------------------------------------------------------------------------ scoring
-def _forest(est: Any) -> _FlatForest | None:
-    walker = est.__dict__.get(_ATTR)
-    if walker is None or not getattr(walker, "_shotcheck_flat", False):
-        return None
-    return walker._shotcheck_forest
-
-
 def _raw(est: Any, X: np.ndarray) -> np.ndarray | None:
     """The booster's raw prediction (sum of leaves), shape (n, n_trees_per_iteration), or None."""
     forest = _forest(est)

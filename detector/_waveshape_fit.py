@@ -199,7 +199,7 @@ def _fit_base(p: _Prepared, i_lo: int, i_hi: int, tau1: float, tau2: float, orig
     prior[1:3] = _PRIOR_WEIGHT
 
     n_pts = x.size
-    prior_rows = np.diag(prior).T
+    prior_rows = np.diag(prior)
 
     def fun_jac(par: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Residuals (data, then prior) and the transposed Jacobian, shape (4, n + 4)."""

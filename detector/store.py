@@ -456,13 +456,18 @@ class Store:
         *, actor: str = "service",
     ) -> str:
         """Create a test sequence and return its id."""
-        sid = "s" + secrets.token_hex(12)
         with self._tx() as c:
-            c.execute(
-                "INSERT INTO sequences(id, unit_id, terminal, plan_json, meta_json, created_at) VALUES (?,?,?,?,?,?)",
-                (sid, unit_id, terminal, json.dumps(plan), json.dumps(meta or {}), _now()),
-            )
-            self._audit(c, actor, "sequence.created", sid, {"unit_id": unit_id, "terminal": terminal})
+            return self._insert_sequence(c, unit_id, terminal, plan, meta or {}, actor, {})
+
+    def _insert_sequence(self, c: sqlite3.Connection, unit_id: str, terminal: str, plan: list[dict[str, Any]],
+                         meta: dict[str, Any], actor: str, audit_extra: dict[str, Any]) -> str:
+        """Insert a new sequence row and its audit entry inside the open transaction ``c``; return its id."""
+        sid = "s" + secrets.token_hex(12)
+        c.execute(
+            "INSERT INTO sequences(id, unit_id, terminal, plan_json, meta_json, created_at) VALUES (?,?,?,?,?,?)",
+            (sid, unit_id, terminal, json.dumps(plan), json.dumps(meta), _now()),
+        )
+        self._audit(c, actor, "sequence.created", sid, {"unit_id": unit_id, "terminal": terminal, **audit_extra})
         return sid
 
     def create_sequence_once(
@@ -497,14 +502,7 @@ class Store:
                     raise ShotcheckError(f"Idempotency-Key {key!r} was used for another sequence ({row['id']}: "
                                          f"unit {row['unit_id']!r}, terminal {row['terminal']!r}); use a new key")
                 return str(row["id"]), False
-            sid = "s" + secrets.token_hex(12)
-            c.execute(
-                "INSERT INTO sequences(id, unit_id, terminal, plan_json, meta_json, created_at) VALUES (?,?,?,?,?,?)",
-                (sid, unit_id, terminal, json.dumps(plan), json.dumps(meta), _now()),
-            )
-            self._audit(c, actor, "sequence.created", sid, {"unit_id": unit_id, "terminal": terminal,
-                                                             "idempotency_key": key})
-        return sid, True
+            return self._insert_sequence(c, unit_id, terminal, plan, meta, actor, {"idempotency_key": key}), True
 
     def get_sequence(self, sid: str) -> dict[str, Any] | None:
         """Return a sequence (id, unit_id, terminal, plan, meta, created_at) or None."""

@@ -44,7 +44,7 @@ from .waveshape import WaveShape, evaluate_waveshape
 __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "9"
+SCHEMA_VERSION = "10"
 
 #: Detail levels of the wavelet difference kept as features (D1 finest .. D8), plus the approximation.
 WAVELET_LEVELS = 8

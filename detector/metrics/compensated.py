@@ -44,7 +44,7 @@ from .._stats import median1d
 from .._validation import ShotcheckError, check_range
 
 __all__ = ["CompensatedDifference", "compensated_difference", "multiscale_z", "quantisation_step",
-           "remove_stationary_tones", "SCALES"]
+           "remove_stationary_tones", "tone_aware_offsets", "SCALES"]
 
 #: Averaging lengths of :func:`multiscale_z` [samples]: a slow change of a few per mille of the peak
 #: current lies in the noise sample by sample but stands out once averaged over microseconds.
@@ -133,7 +133,8 @@ def compensated_difference(
         Relative uncertainty of the level normalisation [1]; adds ``level_tolerance * |i_pred|`` to sigma.
     remove_tones : bool
         Remove stationary tones (narrow-band interference) from the difference first, see
-        :func:`remove_stationary_tones`.
+        :func:`remove_stationary_tones`. When tones are found, the pre-trigger baselines are corrected
+        for them (:func:`tone_aware_offsets`) and the prediction is made again.
 
     Returns
     -------
@@ -160,6 +161,43 @@ def compensated_difference(
                                                                 low_inclusive=False, unit="s")
     k = np.arange(n, dtype=np.float64)
     w = np.exp(-np.clip(k - n0, 0.0, None) * dt / tau)
+    gain = 1.0 / w
+    valid = gain <= max_gain
+    span_idx = np.flatnonzero(valid & (k < n - max(8, n // 50))) if remove_tones else None
+    pred, diff, tones, kg2 = _prediction(rv, ri, tv, ti, w, n0, max_gain, dt, span_idx)
+    if tones and n0 >= 16:
+        # the pre-trigger baselines were biased by the tones: correct them and predict again
+        off = tone_aware_offsets(np.stack((rv, ri, tv, ti))[:, :n0], dt, [f for f, _ in tones])
+        if off is not None:
+            rv, ri, tv, ti = rv - off[0], ri - off[1], tv - off[2], ti - off[3]
+            pred, diff, tones, kg2 = _prediction(rv, ri, tv, ti, w, n0, max_gain, dt, span_idx)
+    peak_i = float(np.max(np.abs(ri))) or 1.0
+    s0 = _robust_sigma(diff[:n0]) if n0 >= 8 else math.nan
+    if not math.isfinite(s0):  # no pre-trigger: second differences of the test current
+        s0 = _robust_sigma(np.diff(ti, 2)) / math.sqrt(6.0)
+    s0 = max(s0 if math.isfinite(s0) else 0.0, sigma_floor_rel * peak_i)
+    # The prediction's own noise grows with the unwindowing gain; the test's noise does not. On top, a
+    # model tolerance: a timing uncertainty of the alignment (times the slope of the prediction) and a
+    # relative level uncertainty of the normalisation (times the prediction itself).
+    slope = np.gradient(np.nan_to_num(pred), dt)
+    sig2 = s0 * s0 * (1.0 + kg2 * gain * gain) / (1.0 + kg2) + (timing_tolerance_s * slope) ** 2 \
+        + (level_tolerance * np.nan_to_num(pred)) ** 2
+    valid &= k < n - max(8, n // 50)  # the last samples carry the shift and padding end effects
+    sig = np.where(valid, np.sqrt(sig2), np.inf)
+    z = np.where(valid, diff / sig, 0.0)
+    m = max(1, int(round(min_duration_s / dt)))
+    over = (np.abs(z) > k_sigma).astype(np.int64)
+    c = np.concatenate(([0], np.cumsum(over)))
+    full = np.flatnonzero(c[m:] - c[:-m] == m)
+    onset = int(full[0]) if full.size else None
+    return CompensatedDifference(pred, diff, sig, z, onset, tau, tuple(tones))
+
+
+def _prediction(rv: np.ndarray, ri: np.ndarray, tv: np.ndarray, ti: np.ndarray, w: np.ndarray, n0: int,
+                max_gain: float, dt: float, tone_span: np.ndarray | None
+                ) -> tuple[np.ndarray, np.ndarray, list[tuple[float, float]], float]:
+    """Predicted test current, difference, removed tones and the prediction's noise gain (see caller)."""
+    n = rv.size
     n_fft = sfft.next_fast_len(2 * n, real=True)
     spec = sfft.rfft(np.stack((rv * w, ri * w, tv * w, ti * w)), n_fft, axis=-1)  # one call, four rows
     Vr, Ir, Vt, It = spec[0], spec[1], spec[2], spec[3]
@@ -172,39 +210,20 @@ def compensated_difference(
     g = p_r / (p_r + lam)  # how well the reference resolves each frequency, 0..1
     # the prediction, and the test current compared only within the band the reference resolves:
     # components the reference never excited (the steep collapse of a chopped wave) cannot be predicted
-    back = sfft.irfft(np.stack((Ir * np.conj(Vr) * Vt / (p_r + lam), It * g)), n_fft, axis=-1)
+    K = np.conj(Vr) * Vt / (p_r + lam)
+    back = sfft.irfft(np.stack((Ir * K, It * g)), n_fft, axis=-1)
     pred_w, ti_w = back[0, :n], back[1, :n]
     gain = 1.0 / w
-    valid = gain <= max_gain
-    pred = np.where(valid, pred_w * gain, np.nan)
+    pred = np.where(gain <= max_gain, pred_w * gain, np.nan)
     diff = ti_w * gain - pred
     tones: list[tuple[float, float]] = []
-    if remove_tones:
-        diff, tones = remove_stationary_tones(diff, dt, np.flatnonzero(valid & (k < n - max(8, n // 50))), n0)
-    peak_i = float(np.max(np.abs(ri))) or 1.0
-    s0 = _robust_sigma(diff[:n0]) if n0 >= 8 else math.nan
-    if not math.isfinite(s0):  # no pre-trigger: second differences of the test current
-        s0 = _robust_sigma(np.diff(ti, 2)) / math.sqrt(6.0)
-    s0 = max(s0 if math.isfinite(s0) else 0.0, sigma_floor_rel * peak_i)
-    # The prediction's own noise grows with the unwindowing gain; the test's noise does not. On top, a
-    # model tolerance: a timing uncertainty of the alignment (times the slope of the prediction) and a
-    # relative level uncertainty of the normalisation (times the prediction itself).
-    slope = np.gradient(np.nan_to_num(pred), dt)
+    if tone_span is not None:
+        diff, tones = remove_stationary_tones(diff, dt, tone_span, n0)
     # noise gain of the prediction filter K = V_t V_r* / (|V_r|^2 + lambda) (RMS over frequency, Parseval):
     # about 1 when both waves have one shape, larger when the test wave excites frequencies the
     # reference barely does (a chopped test shot)
-    kg2 = float(np.mean(np.abs(Vt * np.conj(Vr) / (p_r + lam)) ** 2) / max(np.mean(g * g), 1e-12))
-    sig2 = s0 * s0 * (1.0 + kg2 * gain * gain) / (1.0 + kg2) + (timing_tolerance_s * slope) ** 2 \
-        + (level_tolerance * np.nan_to_num(pred)) ** 2
-    valid &= k < n - max(8, n // 50)  # the last samples carry the shift and padding end effects
-    sig = np.where(valid, np.sqrt(sig2), np.inf)
-    z = np.where(valid, diff / sig, 0.0)
-    m = max(1, int(round(min_duration_s / dt)))
-    over = (np.abs(z) > k_sigma).astype(np.int64)
-    c = np.concatenate(([0], np.cumsum(over)))
-    full = np.flatnonzero(c[m:] - c[:-m] == m)
-    onset = int(full[0]) if full.size else None
-    return CompensatedDifference(pred, diff, sig, z, onset, tau, tuple(tones))
+    kg2 = float(np.mean(np.abs(K) ** 2) / max(np.mean(g * g), 1e-12))
+    return pred, diff, tones, kg2
 
 
 def quantisation_step(samples: np.ndarray) -> float:
@@ -321,6 +340,55 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
     if return_robust:
         return out_z, out_i, out_zr
     return out_z, out_i
+
+
+def tone_aware_offsets(pretrigger: np.ndarray, dt: float, freqs_Hz: list[float], *,
+                       min_periods: float = 0.25, f_accept: float = 8.0) -> np.ndarray | None:
+    """Baseline errors left by interference tones in pre-trigger means.
+
+    A baseline taken as the mean of a short pre-trigger is biased when the channel carries a tone
+    that does not complete whole periods there (up to about 0.2 of the tone's amplitude for 1.3
+    periods). The bias is harmless in a current channel (a constant in the difference, removed with
+    the tone) but not in a voltage channel: the impulse response turns a constant voltage error into
+    a slowly growing current (the winding's inductance). Each channel's pre-trigger is fitted with a
+    constant plus the given tones by least squares; where the tones explain significantly more than
+    a constant alone (F statistic above ``f_accept``), the fitted constant replaces the mean.
+
+    Parameters
+    ----------
+    pretrigger : numpy.ndarray, shape (channels, samples)
+        Pre-trigger samples of each channel, baselines already removed by the mean (any unit).
+    dt : float
+        Sample interval [s].
+    freqs_Hz : list of float
+        Tone frequencies [Hz], for example those :func:`remove_stationary_tones` found.
+    min_periods : float
+        Tones completing fewer periods in the pre-trigger are left out (they cannot be told from an
+        offset) [1].
+    f_accept : float
+        Smallest F statistic (tones against a constant) that accepts the fit [1].
+
+    Returns
+    -------
+    numpy.ndarray or None
+        Offset to subtract from each channel (same unit), zero where the tones were not accepted;
+        None when no channel changes.
+    """
+    pre = np.asarray(pretrigger, dtype=np.float64)
+    n0 = pre.shape[1]
+    fs = [f for f in freqs_Hz if f * n0 * dt >= min_periods]
+    if not fs or n0 < 2 * len(fs) + 8:
+        return None
+    t = np.arange(n0) * dt
+    A = np.stack([np.ones(n0)] + [h(2 * np.pi * f * t) for f in fs for h in (np.cos, np.sin)], axis=1)
+    coef, *_ = np.linalg.lstsq(A, pre.T, rcond=None)
+    rss1 = np.sum((pre.T - A @ coef) ** 2, axis=0)
+    mean = pre.mean(axis=1)
+    rss0 = np.sum((pre - mean[:, None]) ** 2, axis=1)
+    p = A.shape[1] - 1
+    f_stat = (rss0 - rss1) / p / np.maximum(rss1 / (n0 - p - 1), 1e-300)
+    off = np.where(f_stat > f_accept, coef[0] - mean, 0.0)
+    return off if np.any(off != 0.0) else None
 
 
 def _basis(t: np.ndarray, f: float) -> np.ndarray:

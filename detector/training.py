@@ -345,7 +345,9 @@ def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float 
         ``detection_rate`` per class, ``false_alarm_rate``, ``class_accuracy_on_detected``,
         ``confusion_matrix``, ``location_error_median`` (fraction of the winding), ``location_error_p90``,
         ``fault_time_error_median_us``, ``fault_time_error_p90_us``, ``roc_auc``, ``roc``,
-        ``threshold_false_alarm_rate``.
+        ``threshold_false_alarm_rate``, ``detection_by_effect_lsb`` (all faults by the size of their
+        effect in recorder codes) and ``by_comparison`` (false alarms and detection per kind of
+        comparison: full or chopped reference and test shots).
     """
     ok = _usable(data)
     n_failed = int((~ok).sum())
@@ -357,7 +359,43 @@ def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float 
         k: v for k, v in _evaluate_subset(model, full).items() if k in ("detection_rate", "n_pairs")
     }
     rep["detection_by_effect_lsb"] = _by_effect(model, full)
+    rep["by_comparison"] = _by_comparison(model, _subset(full, full.effect_lsb >= min_effect_lsb))
     return rep
+
+
+#: Names of the three comparisons a test sequence makes, by the labels' reference and test shot kinds.
+COMPARISONS: dict[tuple[str, str], str] = {
+    ("reduced", "full"): "full reference, full test",
+    ("reduced", "chopped"): "full reference, chopped test",
+    ("chopped", "chopped"): "chopped reference, chopped test",
+}
+
+
+def _by_comparison(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
+    """False alarms and detection rate per fault class for each kind of comparison (full or chopped shots).
+
+    The kind comes from the label columns ``reference_kind`` and ``test_kind``; pairs without them are
+    left out.
+    """
+    if data.X.shape[0] == 0 or not data.labels:
+        return {}
+    kind = np.array([COMPARISONS.get((str(r.get("reference_kind", "")), str(r.get("test_kind", ""))), "")
+                     for r in data.labels])
+    _, pred = _predict(model, data.X)
+    out: dict[str, Any] = {}
+    for name in COMPARISONS.values():
+        sel = kind == name
+        if not sel.any():
+            continue
+        entry: dict[str, Any] = {"n_pairs": int(sel.sum())}
+        benign = sel & (data.event == "none")
+        entry["false_alarm_rate"] = float((pred[benign] != "none").mean()) if benign.any() else None
+        entry["detection_rate"] = {}
+        for c in EVENT_CLASSES[1:]:
+            m = sel & (data.event == c)
+            entry["detection_rate"][c] = float((pred[m] != "none").mean()) if m.any() else None
+        out[name] = entry
+    return out
 
 
 def _instant(X: np.ndarray, timer: InstantRegressor) -> np.ndarray:
@@ -443,6 +481,14 @@ def report_text(rep: dict[str, Any]) -> str:
                    ("roc_auc", "ROC AUC (fault vs none)")):
         v = rep.get(k)
         lines.append(f"{lab:<31}{'-' if v is None else f'{v:.3f}'}")
+    byc = rep.get("by_comparison")
+    if byc:
+        classes = list(next(iter(byc.values()))["detection_rate"])
+        lines.append(f"by comparison ({'pairs, false alarms, ' + ', '.join(classes)}):")
+        for name, e in byc.items():
+            vals = [e["false_alarm_rate"], *e["detection_rate"].values()]
+            lines.append(f"  {name:<32}{e['n_pairs']:>6d}" + "".join(
+                f"{'-' if v is None else f'{v:.3f}':>8}" for v in vals))
     cm = rep.get("confusion_matrix")
     if cm:
         labs = cm["labels"]

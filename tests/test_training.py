@@ -1,0 +1,106 @@
+"""Training and evaluation figures on a small feature matrix whose answers are known.
+
+The rows are not simulated pairs: each class has its own distribution on a few feature columns, so
+the counts that :func:`detector.training.evaluate` reports can be checked against a direct count of
+the model's own decisions.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from detector.features import FEATURE_NAMES
+from detector.training import (
+    COMPARISONS,
+    LabelledFeatures,
+    _decide,
+    _predict,
+    evaluate,
+    operating_point,
+    report_text,
+    train,
+)
+
+KINDS = list(COMPARISONS)  # (reference_kind, test_kind)
+EVENTS = ("none", "turn_to_turn", "to_ground", "discharge_only")
+
+
+def _data(n_per_class: int, seed: int) -> LabelledFeatures:
+    rng = np.random.default_rng(seed)
+    rows, events, labels = [], [], []
+    for k, ev in enumerate(EVENTS):
+        x = rng.normal(0.0, 1.0, (n_per_class, len(FEATURE_NAMES)))
+        x[:, k] += 2.5  # each class shifted on its own column: separable, not perfectly
+        rows.append(x)
+        events += [ev] * n_per_class
+        for j in range(n_per_class):
+            ref, test = KINDS[j % len(KINDS)]
+            labels.append({"case_id": len(labels), "event": ev, "reference_kind": ref, "test_kind": test})
+    X = np.vstack(rows)
+    n = X.shape[0]
+    ev = np.array(events)
+    fault = ev != "none"
+    position = np.where(fault, rng.uniform(0, 1, n), np.nan)
+    front = np.full(n, 5.0)
+    fault_time = np.where(fault, front + rng.uniform(1, 30, n), np.nan)
+    groups = np.array([f"design-{i // 2}" for i in range(n)])
+    effect = np.where(fault, np.where(np.arange(n) % 10 == 0, 0.4, 50.0), np.inf)  # a tenth invisible
+    return LabelledFeatures(X, ev, position, fault_time, np.full(n, np.nan), groups, labels, [],
+                            effect, front)
+
+
+@pytest.fixture(scope="module")
+def trained():
+    model, cv = train(_data(60, 0), cv_folds=3, description="test rows")
+    return model, cv
+
+
+def test_operating_point_keeps_the_false_alarm_share():
+    p = np.linspace(0.01, 1.0, 100)  # cross-validated P(none) of 100 benign pairs
+    thr = operating_point(p, 0.05)
+    assert np.sum(p < thr) <= 5  # at most 5 % of the benign pairs fall below the threshold
+    assert np.sum(p < thr) == 5  # and no lower threshold than needed
+    assert operating_point(np.array([]), 0.01) == 0.5
+
+
+def test_evaluation_counts_match_the_models_decisions(trained):
+    model, _ = trained
+    data = _data(40, 1)
+    rep = evaluate(model, data)
+    visible = data.effect_lsb >= rep["min_effect_lsb"]
+    _, pred = _predict(model, data.X[visible])
+    ev = data.event[visible]
+    for c in EVENTS[1:]:
+        assert rep["detection_rate"][c] == pytest.approx(np.mean(pred[ev == c] != "none"))
+    assert rep["false_alarm_rate"] == pytest.approx(np.mean(pred[ev == "none"] != "none"))
+    assert rep["all_faults_including_invisible"]["n_pairs"] == data.X.shape[0]
+    assert rep["n_pairs"] == int(visible.sum())
+    # the per-comparison figures partition the visible pairs, and each is a direct count
+    byc = rep["by_comparison"]
+    assert set(byc) == set(COMPARISONS.values())
+    assert sum(e["n_pairs"] for e in byc.values()) == rep["n_pairs"]
+    kind = np.array([COMPARISONS[(r["reference_kind"], r["test_kind"])] for r, v in zip(data.labels, visible,
+                                                                                         strict=True) if v])
+    for name, e in byc.items():
+        sel = kind == name
+        assert e["false_alarm_rate"] == pytest.approx(np.mean(pred[sel & (ev == "none")] != "none"))
+        for c in EVENTS[1:]:
+            assert e["detection_rate"][c] == pytest.approx(np.mean(pred[sel & (ev == c)] != "none"))
+    # the invisible faults sit in the lowest effect bin
+    assert rep["detection_by_effect_lsb"]["0-0.5"]["n"] == int(np.sum(data.effect_lsb < 0.5))
+    text = report_text(rep)
+    assert "full reference, chopped test" in text and "confusion matrix" in text
+
+
+def test_cross_validated_threshold_meets_its_false_alarm_target(trained):
+    model, cv = trained
+    assert cv["false_alarm_rate"] <= 0.01 + 1e-12
+    assert model.none_threshold == pytest.approx(cv["none_threshold"])
+    assert cv["detection_rate"]["to_ground"] > 0.5  # the classes are separable: far above chance
+
+
+def test_decide_uses_the_threshold_on_p_none():
+    proba = np.array([[0.2, 0.5, 0.2, 0.1], [0.6, 0.1, 0.1, 0.2], [0.05, 0.1, 0.05, 0.8]])
+    assert list(_decide(proba, 0.1)) == ["none", "none", "discharge_only"]
+    assert list(_decide(proba, 0.5)) == ["turn_to_turn", "none", "discharge_only"]

@@ -30,7 +30,7 @@ from .units import si_unit
 __all__ = ["Channel", "Record", "SHOT_KINDS", "QUANTITIES", "MIN_SAMPLES"]
 
 #: Allowed values of ``meta['shot_kind']``.
-SHOT_KINDS = ("full", "reduced", "chopped", "switching")
+SHOT_KINDS = ("full", "reduced", "chopped", "reduced_chopped", "switching")
 #: Allowed channel quantities.
 QUANTITIES = ("voltage", "current")
 #: A record shorter than this cannot carry a front, a crest and a tail.

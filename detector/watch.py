@@ -3,7 +3,8 @@
 Layout: ``ROOT/<sequence folder>/<shot files>``. Each sub-folder of ``ROOT`` is one test sequence (its
 name becomes the unit/terminal label). A shot file is a ``.csv``, a ``.cff``, a ``.json`` record, or a
 ``.cfg`` with its ``.dat``. Its kind and level come from the record's metadata (``shot_kind``,
-``level_percent``) or, failing that, from its name (``..._reduced_75.csv``, ``shot04-chopped-115.cfg``).
+``level_percent``) or, failing that, from its name (``..._reduced_75.csv``, ``shot04-chopped-115.cfg``); a
+chopped shot below 80 % is a reduced-level chopped wave (kind ``reduced_chopped``).
 Within a folder, files are taken in name order, and only once they have stopped growing (size and
 modification time unchanged for ``settle_s``); a later file waits for an earlier one still being written.
 
@@ -31,7 +32,7 @@ from typing import Any
 
 from ._validation import ShotcheckError
 
-__all__ = ["Watcher", "shot_kind_from_name", "RESULT_SUFFIXES"]
+__all__ = ["Watcher", "shot_kind_from_name", "kind_and_level", "RESULT_SUFFIXES"]
 
 _log = logging.getLogger("shotcheck.watch")
 
@@ -40,7 +41,7 @@ RESULT_SUFFIXES = (".verdict.json", ".error.txt", ".report.html")
 _INPUT_SUFFIXES = (".csv", ".cff", ".cfg", ".json")
 _NAME_KIND = re.compile(r"(?:^|[_\-. ])(reduced|full|chopped)[_\-]?(\d{1,3}(?:\.\d+)?)(?:%|pc|pct)?(?=$|[_\-. ])",
                         re.IGNORECASE)
-_META_KINDS = {"reduced": "reduced", "full": "full", "chopped": "chopped"}
+_META_KINDS = {"reduced": "reduced", "full": "full", "chopped": "chopped", "reduced_chopped": "reduced_chopped"}
 
 
 def shot_kind_from_name(name: str) -> tuple[str, float] | None:
@@ -59,6 +60,44 @@ def shot_kind_from_name(name: str) -> tuple[str, float] | None:
         return None
     m = matches[-1]
     return m.group(1).lower(), float(m.group(2))
+
+
+def kind_and_level(record_meta: dict[str, Any], name: str) -> tuple[str, float]:
+    """Sequence shot kind and level [%] of a dropped file, from its metadata or else from its name.
+
+    A chopped shot below 80 % of the test level is a reduced-level chopped wave.
+
+    Raises
+    ------
+    ShotcheckError
+        Neither the metadata nor the name give kind and level.
+
+    Examples
+    --------
+    >>> kind_and_level({}, "T1_04_chopped_60.cfg")
+    ('reduced_chopped', 60.0)
+    >>> kind_and_level({"shot_kind": "full", "level_percent": 100}, "x.csv")
+    ('full', 100.0)
+    """
+    kind = _META_KINDS.get(str(record_meta.get("shot_kind", "")).lower())
+    level = record_meta.get("level_percent")
+    from_name = shot_kind_from_name(name)
+    if kind is None and from_name is not None:
+        kind = from_name[0]
+    if level is None and from_name is not None:
+        level = from_name[1]
+    if kind is None or level is None:
+        raise ShotcheckError(
+            f"{name}: kind and level unknown; put shot_kind and level_percent in the record's metadata or "
+            "name the file like 'shot03_chopped_115.cfg' (kinds: reduced, full, chopped)"
+        )
+    try:
+        level = float(level)
+    except (TypeError, ValueError):
+        raise ShotcheckError(f"{name}: level_percent must be a number, got {level!r}") from None
+    if kind == "chopped" and level < 80.0:  # a chopped wave at a reduced level
+        kind = "reduced_chopped"
+    return kind, level
 
 
 def _atomic_write(path: Path, text: str) -> None:
@@ -214,21 +253,6 @@ class Watcher:
             sid = view["id"]
         return sid
 
-    def _kind(self, record_meta: dict[str, Any], name: str) -> tuple[str, float]:
-        kind = _META_KINDS.get(str(record_meta.get("shot_kind", "")).lower())
-        level = record_meta.get("level_percent")
-        from_name = shot_kind_from_name(name)
-        if kind is None and from_name is not None:
-            kind = from_name[0]
-        if level is None and from_name is not None:
-            level = from_name[1]
-        if kind is None or level is None:
-            raise ShotcheckError(
-                f"{name}: kind and level unknown; put shot_kind and level_percent in the record's metadata or "
-                "name the file like 'shot03_chopped_115.cfg' (kinds: reduced, full, chopped)"
-            )
-        return kind, float(level)
-
     def _process(self, folder: Path, parts: list[Path], rel: str, digest: str) -> dict[str, Any]:
         from .service.engine import InputError
 
@@ -242,7 +266,7 @@ class Watcher:
                 raise ShotcheckError(f"{main.name}: cannot read the file ({exc.strerror or exc})") from None
             rec = self.store.put_record(files)
             record = self.engine.read(rec, field="record")
-            kind, level = self._kind(dict(record.meta), main.name)
+            kind, level = kind_and_level(dict(record.meta), main.name)
             sid = self._sequence_for(folder)
             shot, _ = self.engine.add_shot(sid, rec, kind=kind, level_percent=level, actor="watcher")
             _atomic_write(verdict_path, json.dumps(shot, indent=1))

@@ -9,8 +9,10 @@ from detector.sequence import (
     PLANS,
     Step,
     check_declared,
+    check_level,
     level_warning,
     parse_plan,
+    reference_of,
     role_for,
     summarize,
 )
@@ -37,6 +39,48 @@ def test_roles():
     assert add("reduced") == ("closing", "x0")
     with pytest.raises(ShotcheckError, match="no reference"):
         role_for("chopped", [])
+
+
+def test_a_reduced_chopped_wave_is_the_reference_of_the_chopped_shots():
+    shots = []
+
+    def add(kind):
+        role, ref = role_for(kind, shots)
+        shots.append({"id": f"x{len(shots)}", "kind": kind, "role": role})
+        return role, ref
+
+    assert add("reduced") == ("reference", None)
+    assert add("chopped") == ("test", "x0")  # no chopped reference yet: the opening full wave
+    assert add("full") == ("test", "x0")
+    assert add("reduced_chopped") == ("chopped_reference", "x0")  # itself checked against the opening one
+    assert add("chopped") == ("test", "x3")
+    assert add("full") == ("test", "x0")  # full shots keep the full reference
+    assert add("reduced_chopped") == ("chopped_check", "x3")
+    assert add("reduced") == ("closing", "x0")
+    # the stored shots give back the same references, shot by shot
+    assert [reference_of(s, shots) for s in shots] == [None, "x0", "x0", "x0", "x3", "x0", "x3", "x0"]
+    assert reference_of({"id": "nope", "kind": "full"}, shots) is None
+    with pytest.raises(ShotcheckError, match="no reference"):
+        role_for("reduced_chopped", [])
+
+
+def test_levels_of_the_reduced_chopped_wave():
+    assert check_level("reduced_chopped", 60.0) == 60.0
+    with pytest.raises(ShotcheckError, match="below 100"):
+        check_level("reduced_chopped", 110.0)
+    with pytest.raises(ShotcheckError, match="reduced_chopped"):
+        check_level("chopped", 60.0)  # the message names the kind to declare
+    check_declared("reduced_chopped", "lightning_chopped")
+    with pytest.raises(ShotcheckError, match="full lightning impulse"):
+        check_declared("reduced_chopped", "lightning_full")
+
+
+def test_plan_with_a_reduced_chopped_wave():
+    # IEC 60076-3 order with chopped waves (from memory): reduced full, full, reduced chopped, two
+    # chopped, two full; the project closes every plan with a reduced full wave
+    kinds = [s.kind for s in parse_plan("iec_chopped")]
+    assert kinds == ["reduced", "full", "reduced_chopped", "chopped", "chopped", "full", "full", "reduced"]
+    assert all(s.level_percent < 100 for s in PLANS["iec_chopped"] if s.kind in ("reduced", "reduced_chopped"))
 
 
 def test_declared_kind_checks():

@@ -20,7 +20,15 @@ import numpy as np
 
 from .._validation import ShotcheckError
 from ..record import Channel, Record
-from ..sequence import check_declared, check_level, level_warning, parse_plan, role_for, summarize
+from ..sequence import (
+    check_declared,
+    check_level,
+    level_warning,
+    parse_plan,
+    reference_of,
+    role_for,
+    summarize,
+)
 from ..store import Store, StoredRecord
 from ..units import parse_unit
 
@@ -508,8 +516,10 @@ class Engine:
         return self._shot_view(shot), created
 
     def _finish_shot(self, shot: dict[str, Any], opts: Mapping[str, str], actor: str) -> dict[str, Any]:
-        """Compare a stored shot with its sequence's reference and link the comparison to it."""
-        ref_shot = next((s for s in self.store.list_shots(shot["sequence_id"]) if s["role"] == "reference"), None)
+        """Compare a stored shot with its reference in the sequence and link the comparison to it."""
+        shots = self.store.list_shots(shot["sequence_id"])
+        ref_id = reference_of(shot, shots)
+        ref_shot = next((s for s in shots if s["id"] == ref_id), None)
         if ref_shot is None:
             return shot
         ref_rec = self.store.get_record(ref_shot["record_digest"])

@@ -92,7 +92,7 @@ class StepIn(BaseModel):
     """One planned shot."""
 
     model_config = ConfigDict(extra="forbid")
-    kind: Literal["reduced", "full", "chopped"]
+    kind: Literal["reduced", "full", "chopped", "reduced_chopped"]
     level_percent: float = Field(gt=0, le=200)
 
 
@@ -102,7 +102,7 @@ class SequenceIn(BaseModel):
     model_config = ConfigDict(extra="forbid")
     unit_id: str = Field(min_length=1, max_length=100, examples=["KR-2291-07"])
     terminal: str = Field(min_length=1, max_length=100, examples=["1U"])
-    plan: Literal["iec", "ieee"] | list[StepIn] = Field(
+    plan: Literal["iec", "iec_chopped", "ieee"] | list[StepIn] = Field(
         default="iec", description="a named order or a list of steps; 'iec' is reduced 75 %, full 100 %, "
         "chopped 115 % twice, full 100 %, reduced 75 %")
     meta: dict[str, Any] = Field(default_factory=dict)
@@ -118,7 +118,7 @@ class ShotOut(BaseModel):
     name: str
     kind: str
     level_percent: float
-    role: Literal["reference", "reduced_check", "test", "closing"]
+    role: Literal["reference", "reduced_check", "test", "closing", "chopped_reference", "chopped_check"]
     waveshape: dict[str, Any]
     comparison: dict[str, Any] | None
     warnings: list[str]

@@ -37,7 +37,8 @@ def impulse_record(n_samples: int = 20_000, *, level_percent: float = 100.0, kin
     lsb_v, lsb_i = 1.4e6 / 2**12, 400.0 / 2**12
     v = np.round((v + rng.normal(0, 0.5 * lsb_v, v.size)) / lsb_v) * lsb_v
     i = np.round((i + rng.normal(0, 0.5 * lsb_i, i.size)) / lsb_i) * lsb_i
-    meta = {"unit_id": "TX-0000-SVC", "terminal": "2V", "shot_kind": "reduced" if level_percent < 100 else kind,
+    shot_kind = kind if kind == "chopped" else ("reduced" if level_percent < 100 else kind)
+    meta = {"unit_id": "TX-0000-SVC", "terminal": "2V", "shot_kind": shot_kind,
             "level_percent": float(level_percent)}
     return Record(float(t[0]), dt_s, (Channel("U", "voltage", v, "kV"), Channel("I_N", "current", i, "A")),
                   meta=meta, source="svc-test")

@@ -60,6 +60,28 @@ def test_iec_sequence_roles_comparisons_and_summary(client, iec_files):
     assert summ["lasting_change"] == shots[5]["comparison"]["verdict"]["fault_indicated"]
 
 
+def test_chopped_shots_are_compared_with_the_reduced_chopped_wave(client, iec_files, tmp_path):
+    w, mk = svc_records.write_record, svc_records.impulse_record
+    rc = w(mk(8000, level_percent=75.0, kind="chopped", seed=31), tmp_path / "03_reduced_chopped_75.cff")
+    sid = _new(client, plan="iec_chopped")
+    order = [(iec_files[0][0], "reduced", 75), (iec_files[1][0], "full", 100), (rc, "reduced_chopped", 75),
+             (iec_files[2][0], "chopped", 115), (iec_files[4][0], "full", 100)]
+    shots = []
+    for paths, kind, level in order:
+        r = _shot(client, sid, paths, kind, level)
+        assert r.status_code == 201, r.text
+        shots.append(r.json())
+    assert [s["role"] for s in shots] == ["reference", "test", "chopped_reference", "test", "test"]
+    refs = [client.get(f"/v1/comparisons/{s['comparison']['id']}").json()["reference_name"] for s in shots[1:]]
+    assert refs == ["01_reduced_75.csv", "01_reduced_75.csv", "03_reduced_chopped_75.cff", "01_reduced_75.csv"]
+    summ = client.get(f"/v1/sequences/{sid}").json()["summary"]
+    assert summ["deviations"] == ["shot 5: full at 100 %, the plan has chopped at 115 %"]  # one chopped only
+    assert summ["shots_received"] == 5 and summ["status"] == "in_progress"
+    # a reduced chopped wave declared for a full wave's record is refused
+    r = _shot(client, sid, iec_files[5][0], "reduced_chopped", 75)
+    assert r.status_code == 422 and "chopped" in r.json()["detail"], r.text
+
+
 def test_full_level_shot_before_the_reference_is_409(client, iec_files):
     sid = _new(client)
     r = _shot(client, sid, iec_files[1][0], "full", 100)

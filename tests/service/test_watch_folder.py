@@ -13,6 +13,7 @@ from pathlib import Path
 import pytest
 import svc_records
 
+from detector._validation import ShotcheckError
 from detector.store import Store
 from detector.watch import Watcher, shot_kind_from_name
 
@@ -29,6 +30,19 @@ def test_kind_from_name():
     assert shot_kind_from_name("shot_full.cff") is None  # no level: not guessed
     assert shot_kind_from_name("fullscale100.cff") is None
     assert shot_kind_from_name("a_full_100pc.csv") == ("full", 100.0)
+
+
+def test_kind_and_level_from_metadata_or_name():
+    from detector.watch import kind_and_level
+
+    assert kind_and_level({}, "T1_03_chopped_60.cff") == ("reduced_chopped", 60.0)  # chopped below 80 %
+    assert kind_and_level({"shot_kind": "chopped", "level_percent": 115}, "x.cff") == ("chopped", 115.0)
+    assert kind_and_level({"shot_kind": "reduced_chopped", "level_percent": "70"}, "x.cff") == ("reduced_chopped",
+                                                                                                70.0)
+    with pytest.raises(ShotcheckError, match="kind and level unknown"):
+        kind_and_level({}, "shot.csv")
+    with pytest.raises(ShotcheckError, match="must be a number"):
+        kind_and_level({"shot_kind": "full", "level_percent": "high"}, "x.csv")
 
 
 def test_watcher_processes_once_writes_results_and_keeps_user_files(tmp_path, model_path, record_files):

@@ -57,7 +57,7 @@ async def get_sequence(sequence_id: str, request: Request, engine: EngineDep) ->
     responses={200: {"model": ShotOut, "description": "the same record was posted before"}, **_ERRORS},
     openapi_extra={"requestBody": {"required": True, "content": {"multipart/form-data": {"schema": MULTIPART_RECORD_SCHEMA(
         {"record": "the shot: a CSV, a .cff, or a .cfg and its .dat"},
-        {"kind": {"type": "string", "enum": ["reduced", "full", "chopped"]},
+        {"kind": {"type": "string", "enum": ["reduced", "full", "chopped", "reduced_chopped"]},
          "level_percent": {"type": "number", "exclusiveMinimum": 0, "maximum": 200},
          "voltage_channel": {"type": "string"}, "current_channel": {"type": "string"}})}}}},
 )

@@ -164,13 +164,15 @@ def compensated_difference(
     gain = 1.0 / w
     valid = gain <= max_gain
     span_idx = np.flatnonzero(valid & (k < n - max(8, n // 50))) if remove_tones else None
-    pred, diff, tones, kg2 = _prediction(rv, ri, tv, ti, w, n0, max_gain, dt, span_idx)
+    pred, diff, tones, kg2, spec = _prediction(rv, ri, tv, ti, w, n0, max_gain, dt, span_idx)
     if tones and n0 >= 16:
-        # the pre-trigger baselines were biased by the tones: correct them and predict again
+        # the pre-trigger baselines were biased by the tones: correct them and predict again (the
+        # spectra shift by offset x spectrum of the window)
         off = tone_aware_offsets(np.stack((rv, ri, tv, ti))[:, :n0], dt, [f for f, _ in tones])
         if off is not None:
             rv, ri, tv, ti = rv - off[0], ri - off[1], tv - off[2], ti - off[3]
-            pred, diff, tones, kg2 = _prediction(rv, ri, tv, ti, w, n0, max_gain, dt, span_idx)
+            spec = spec - off[:, None] * sfft.rfft(w, sfft.next_fast_len(2 * n, real=True))[None, :]
+            pred, diff, tones, kg2, spec = _prediction(rv, ri, tv, ti, w, n0, max_gain, dt, span_idx, spec=spec)
     peak_i = float(np.max(np.abs(ri))) or 1.0
     s0 = _robust_sigma(diff[:n0]) if n0 >= 8 else math.nan
     if not math.isfinite(s0):  # no pre-trigger: second differences of the test current
@@ -194,12 +196,14 @@ def compensated_difference(
 
 
 def _prediction(rv: np.ndarray, ri: np.ndarray, tv: np.ndarray, ti: np.ndarray, w: np.ndarray, n0: int,
-                max_gain: float, dt: float, tone_span: np.ndarray | None
-                ) -> tuple[np.ndarray, np.ndarray, list[tuple[float, float]], float]:
-    """Predicted test current, difference, removed tones and the prediction's noise gain (see caller)."""
+                max_gain: float, dt: float, tone_span: np.ndarray | None, *, spec: np.ndarray | None = None,
+                ) -> tuple[np.ndarray, np.ndarray, list[tuple[float, float]], float, np.ndarray]:
+    """Predicted test current, difference, removed tones, the prediction's noise gain and the four
+    windowed spectra (see the caller); ``spec`` if given holds those spectra already."""
     n = rv.size
     n_fft = sfft.next_fast_len(2 * n, real=True)
-    spec = sfft.rfft(np.stack((rv * w, ri * w, tv * w, ti * w)), n_fft, axis=-1)  # one call, four rows
+    if spec is None:
+        spec = sfft.rfft(np.stack((rv * w, ri * w, tv * w, ti * w)), n_fft, axis=-1)  # one call, four rows
     Vr, Ir, Vt, It = spec[0], spec[1], spec[2], spec[3]
     # noise power of the windowed reference voltage per bin: sigma^2 * sum(w^2)
     sv = _robust_sigma(rv[:n0]) if n0 >= 8 else _robust_sigma(np.diff(rv, 2)) / math.sqrt(6.0)
@@ -223,7 +227,7 @@ def _prediction(rv: np.ndarray, ri: np.ndarray, tv: np.ndarray, ti: np.ndarray, 
     # about 1 when both waves have one shape, larger when the test wave excites frequencies the
     # reference barely does (a chopped test shot)
     kg2 = float(np.mean(np.abs(K) ** 2) / max(np.mean(g * g), 1e-12))
-    return pred, diff, tones, kg2
+    return pred, diff, tones, kg2, spec
 
 
 def quantisation_step(samples: np.ndarray) -> float:

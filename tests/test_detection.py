@@ -104,6 +104,17 @@ def test_faults_are_located_roughly_along_the_winding():
     assert 0.5 * (errors[4] + errors[5]) < 0.2, [round(e, 3) for e in errors]
 
 
+def test_a_chopped_shot_against_a_full_reference_carries_the_sensitivity_warning():
+    from detector.compare import CHOPPED_AGAINST_FULL_WARNING
+
+    full_ref, _ = verdict(chop_test_s=4e-6)
+    chopped_ref, _ = verdict(chop_test_s=4e-6, chop_reference_s=4.15e-6)
+    both_full, _ = verdict()
+    assert CHOPPED_AGAINST_FULL_WARNING in full_ref.warnings
+    assert CHOPPED_AGAINST_FULL_WARNING not in chopped_ref.warnings
+    assert CHOPPED_AGAINST_FULL_WARNING not in both_full.warnings
+
+
 def test_breakdown_after_chopping_is_indicated():
     """A chopped test shot against a full reference: healthy gives no fault (see the benign cases), a
     turn-to-turn breakdown 22 us after the chop gives one. Its location and instant are less certain

@@ -26,12 +26,17 @@ def test_default_plan_is_the_order_of_issue_5():
     assert 50 <= PLANS["iec"][0].level_percent <= 75 and 50 <= PLANS["ieee"][0].level_percent <= 70
 
 
-def test_roles():
-    shots = []
+def _adder(shots):
+    """A function that posts a shot of a kind to ``shots`` and returns its (role, reference id)."""
     def add(kind):
         role, ref = role_for(kind, shots)
         shots.append({"id": f"x{len(shots)}", "kind": kind, "role": role})
         return role, ref
+    return add
+
+
+def test_roles():
+    add = _adder([])
     assert add("reduced") == ("reference", None)
     assert add("reduced") == ("reduced_check", "x0")
     assert add("full") == ("test", "x0")
@@ -43,12 +48,7 @@ def test_roles():
 
 def test_a_reduced_chopped_wave_is_the_reference_of_the_chopped_shots():
     shots = []
-
-    def add(kind):
-        role, ref = role_for(kind, shots)
-        shots.append({"id": f"x{len(shots)}", "kind": kind, "role": role})
-        return role, ref
-
+    add = _adder(shots)
     assert add("reduced") == ("reference", None)
     assert add("chopped") == ("test", "x0")  # no chopped reference yet: the opening full wave
     assert add("full") == ("test", "x0")

@@ -37,7 +37,7 @@ QUANTITIES = ("voltage", "current")
 MIN_SAMPLES = 16
 #: Metadata keys with a meaning; other keys are kept as they are.
 KNOWN_META = {
-    "shot_kind": "full | reduced | chopped | switching",
+    "shot_kind": "full | reduced | chopped | reduced_chopped | switching",
     "level_percent": "applied level in percent of the test level",
     "terminal": "terminal under test, e.g. '1U'",
     "unit_id": "identifier of the transformer under test",

@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from ._validation import ShotcheckError
+from .sequence import PLANS
 
 __all__ = ["add_subparsers", "add_subparser", "cmd_serve", "cmd_watch", "settings_from_args", "main"]
 
@@ -55,7 +56,7 @@ def add_subparsers(subparsers: Any) -> None:
     w.add_argument("folder", metavar="DIR", help="folder whose sub-folders are sequences")
     w.add_argument("--data", default=None, metavar="DIR", help="store folder (default DIR/.shotcheck)")
     w.add_argument("--model", default=None, metavar="PATH", help="model file (default: the bundled model)")
-    w.add_argument("--plan", default="iec", choices=("iec", "ieee"), help="shot order of new sequences")
+    w.add_argument("--plan", default="iec", choices=tuple(PLANS), help="shot order of new sequences")
     w.add_argument("--interval", type=float, default=1.0, metavar="S", help="seconds between scans (default 1)")
     w.add_argument("--settle", type=float, default=2.0, metavar="S",
                    help="a file is taken after its size stays the same this long (default 2 s)")

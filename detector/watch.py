@@ -39,7 +39,8 @@ _log = logging.getLogger("shotcheck.watch")
 #: Files the watcher writes; never taken as input.
 RESULT_SUFFIXES = (".verdict.json", ".error.txt", ".report.html")
 _INPUT_SUFFIXES = (".csv", ".cff", ".cfg", ".json")
-_NAME_KIND = re.compile(r"(?:^|[_\-. ])(reduced|full|chopped)[_\-]?(\d{1,3}(?:\.\d+)?)(?:%|pc|pct)?(?=$|[_\-. ])",
+_NAME_KIND = re.compile(r"(?:^|[_\-. ])(reduced[_\-]?chopped|reduced|full|chopped)[_\-]?(\d{1,3}(?:\.\d+)?)"
+                        r"(?:%|pc|pct)?(?=$|[_\-. ])",
                         re.IGNORECASE)
 _META_KINDS = {"reduced": "reduced", "full": "full", "chopped": "chopped", "reduced_chopped": "reduced_chopped"}
 
@@ -59,7 +60,10 @@ def shot_kind_from_name(name: str) -> tuple[str, float] | None:
     if not matches:
         return None
     m = matches[-1]
-    return m.group(1).lower(), float(m.group(2))
+    kind = m.group(1).lower()
+    if kind.startswith("reduced") and kind.endswith("chopped"):
+        kind = "reduced_chopped"
+    return kind, float(m.group(2))
 
 
 def kind_and_level(record_meta: dict[str, Any], name: str) -> tuple[str, float]:
@@ -89,7 +93,7 @@ def kind_and_level(record_meta: dict[str, Any], name: str) -> tuple[str, float]:
     if kind is None or level is None:
         raise ShotcheckError(
             f"{name}: kind and level unknown; put shot_kind and level_percent in the record's metadata or "
-            "name the file like 'shot03_chopped_115.cfg' (kinds: reduced, full, chopped)"
+            "name the file like 'shot03_chopped_115.cfg' (kinds: reduced, full, chopped, reduced_chopped)"
         )
     try:
         level = float(level)

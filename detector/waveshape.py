@@ -616,7 +616,7 @@ def evaluate_switching(
                                bits=bits, for_comparison=for_comparison, source=source)
 
 
-_META_KIND = {"chopped": "lightning_chopped", "switching": "switching"}
+_META_KIND = {"chopped": "lightning_chopped", "reduced_chopped": "lightning_chopped", "switching": "switching"}
 
 
 def evaluate_waveshape(

@@ -378,6 +378,8 @@ def test_full_kind_refuses_chopped_record():
     with pytest.raises(RecordError, match=r"collapses at t = (3\.99|4\.00)\d us"):
         evaluate_waveshape(record_of(t, v, shot_kind="full"), kind="lightning_full")
     assert evaluate_waveshape(record_of(t, v, shot_kind="full")).kind == "lightning_chopped"
+    # a reduced-level chopped wave declared in the metadata is evaluated as a chopped wave
+    assert evaluate_waveshape(record_of(t, v, shot_kind="reduced_chopped")).kind == "lightning_chopped"
 
 
 # ---------------------------------------------------------------------------------------------

@@ -104,7 +104,8 @@ class SequenceIn(BaseModel):
     terminal: str = Field(min_length=1, max_length=100, examples=["1U"])
     plan: Literal["iec", "iec_chopped", "ieee"] | list[StepIn] = Field(
         default="iec", description="a named order or a list of steps; 'iec' is reduced 75 %, full 100 %, "
-        "chopped 115 % twice, full 100 %, reduced 75 %")
+        "chopped 115 % twice, full 100 %, reduced 75 %; 'iec_chopped' is reduced 75 %, full 100 %, reduced "
+        "chopped 75 %, chopped 115 % twice, full 100 % twice, reduced 75 %")
     meta: dict[str, Any] = Field(default_factory=dict)
 
 

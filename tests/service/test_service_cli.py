@@ -22,6 +22,13 @@ def _parse(argv):
     return parser.parse_args(argv)
 
 
+def test_watch_takes_every_named_plan():
+    from detector.sequence import PLANS
+
+    for name in PLANS:
+        assert _parse(["watch", "/tmp/x", "--plan", name]).plan == name
+
+
 def test_serve_defaults_and_token_sources(tmp_path):
     args = _parse(["serve", "--data", str(tmp_path)])
     assert (args.host, args.port, args.workers) == ("127.0.0.1", 8750, 1)

@@ -30,6 +30,8 @@ def test_kind_from_name():
     assert shot_kind_from_name("shot_full.cff") is None  # no level: not guessed
     assert shot_kind_from_name("fullscale100.cff") is None
     assert shot_kind_from_name("a_full_100pc.csv") == ("full", 100.0)
+    assert shot_kind_from_name("S03_reduced_chopped_85.cff") == ("reduced_chopped", 85.0)
+    assert shot_kind_from_name("S03_reduced-chopped-70.cfg") == ("reduced_chopped", 70.0)
 
 
 def test_kind_and_level_from_metadata_or_name():

@@ -62,10 +62,12 @@ async def get_sequence(sequence_id: str, request: Request, engine: EngineDep) ->
          "voltage_channel": {"type": "string"}, "current_channel": {"type": "string"}})}}}},
 )
 async def add_shot(sequence_id: str, request: Request, engine: EngineDep, actor: Writer) -> Any:
-    """Post the next shot with its kind and level; it is compared with the sequence's reference shot.
+    """Post the next shot with its kind and level; it is compared with its reference in the sequence.
 
-    The opening reduced-level shot becomes the reference; full-level full and chopped shots are compared
-    with it, and a closing reduced-level shot is compared with the opening one.
+    The opening reduced-level full wave becomes the reference; full-level full shots are compared with
+    it, and a closing reduced-level shot is compared with the opening one. The first reduced-level
+    chopped wave is compared with the opening one and becomes the reference of the chopped shots after
+    it; without one, chopped shots are compared with the opening full wave.
     """
     sid = _check_id(sequence_id)
     files, form = await read_multipart(request, ("record",))

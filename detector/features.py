@@ -44,7 +44,7 @@ from .waveshape import WaveShape, evaluate_waveshape
 __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "10"
+SCHEMA_VERSION = "11"
 
 #: Detail levels of the wavelet difference kept as features (D1 finest .. D8), plus the approximation.
 WAVELET_LEVELS = 8
@@ -373,7 +373,7 @@ def extract(
         ref_c = td.ref_collapse.time_s if td.ref_collapse is not None else front_s
         cshift = 1e6 * (td.test_collapse.time_s - ref_c)
     f += [onset, vi, float(td.test_collapse is not None), float(td.ref_collapse is not None), cshift,
-          1e6 * (td.compared_until_s - front_s), float(test.meta.get("shot_kind") == "chopped")]
+          1e6 * (td.compared_until_s - front_s), float(test.meta.get("shot_kind") in ("chopped", "reduced_chopped"))]
     ov = tc.overall
     f += [ov.rho, ov.R, ov.rms_dB, ov.max_dB, ov.mean_dB]
     for b in ("low", "medium", "high"):

@@ -35,6 +35,10 @@ def test_chopped_example_against_full_example_is_compared_across_the_chop():
     d = a.as_dict()
     assert d["td_test_collapse"] == 1.0 and d["test_declared_chopped"] == 1.0
     assert np.isfinite(d["cd_compared_span_us"]) and d["cd_compared_span_us"] > 20.0
+    # a chopped wave declared as a reduced-level chopped wave is a declared chopped wave too
+    chopped = example_record("chopped", seed=2)
+    rc = chopped.replace(meta={**chopped.meta, "shot_kind": "reduced_chopped"})
+    assert extract(example_record("full", seed=1), rc).as_dict()["test_declared_chopped"] == 1.0
 
 
 @given(rate=st.sampled_from([0.002, 0.01, 0.05]), seed=st.integers(0, 10_000))

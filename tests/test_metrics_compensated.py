@@ -147,27 +147,30 @@ def test_tone_aware_offset_recovers_the_baseline_a_short_pretrigger_biases():
     assert tone_aware_offsets(pre, dt, [20e3]) is None  # 0.05 periods: cannot be told from an offset
 
 
-def test_interference_biased_voltage_baseline_leaves_no_ramp():
+@pytest.mark.parametrize("test_pre", [260, 400])
+def test_interference_biased_voltage_baseline_leaves_no_ramp(test_pre):
     # the same network and wave in both shots, the network with an inductive path to ground (a
     # 20 mH shunt, as a winding's magnetising branch); each recorder adds its own 200 kHz tone of
-    # 1 % of the peak to the voltage, and baselines are the means of 2.6 us of pre-trigger (0.52
-    # periods), as detector.preprocess takes them. Uncorrected, the voltage-baseline errors reach
-    # the difference as a slow ramp through the shunt (z 14-16 at the longest averages).
+    # 1 % of the peak to the voltage, and baselines are the means of each record's own pre-trigger
+    # (2.6 us = 0.52 periods for the reference; the test record has 2.6 or 4 us), as
+    # detector.preprocess takes them; the pair is then compared over the common 2.6 us. Uncorrected,
+    # the voltage-baseline errors reach the difference as a slow ramp through the shunt (z 14-16 at
+    # the longest averages).
     pre = 260
-    t = (np.arange(N) - pre) * DT
     rng = np.random.default_rng(4)
-    v = _wave(t)
-    i = _current(v, t)[0] + np.cumsum(v) * DT / 20e-3
-    scale = np.abs(i).max()
 
-    def shot(level, phase):
-        vv = level * (v + 1e-2 * np.sin(2 * np.pi * 200e3 * t + phase) + rng.normal(0, 3e-4, N))
-        ii = level * (i + rng.normal(0, 3e-4 * scale, N))
-        vv, ii = vv - vv[:pre].mean(), ii - ii[:pre].mean()
-        return vv / level, ii / level
+    def shot(level, phase, own_pre):
+        t = (np.arange(N + own_pre - pre) - own_pre) * DT
+        v = _wave(t)
+        i = _current(v, t)[0] + np.cumsum(v) * DT / 20e-3
+        scale = np.abs(i[own_pre:]).max()
+        vv = level * (v + 1e-2 * np.sin(2 * np.pi * 200e3 * t + phase) + rng.normal(0, 3e-4, t.size))
+        ii = level * (i + rng.normal(0, 3e-4 * scale, t.size))
+        vv, ii = vv - vv[:own_pre].mean(), ii - ii[:own_pre].mean()
+        return vv[own_pre - pre:] / level, ii[own_pre - pre:] / level  # aligned: fronts at sample `pre`
 
-    v_r, i_r = shot(0.6, 0.3)
-    v_t, i_t = shot(1.0, 2.2)
+    v_r, i_r = shot(0.6, 0.3, pre)
+    v_t, i_t = shot(1.0, 2.2, test_pre)
     cd = compensated_difference(v_r, i_r, v_t, i_t, DT, pretrigger_samples=pre)
     assert cd.tones and cd.tones[0][0] == pytest.approx(200e3, rel=0.02)
     z, _ = multiscale_z(cd, start=pre + 150, pretrigger_samples=pre)

@@ -356,12 +356,13 @@ def tone_aware_offsets(pretrigger: np.ndarray, dt: float, freqs_Hz: list[float],
     the tone) but not in a voltage channel: the impulse response turns a constant voltage error into
     a slowly growing current (the winding's inductance). Each channel's pre-trigger is fitted with a
     constant plus the given tones by least squares; where the tones explain significantly more than
-    a constant alone (F statistic above ``f_accept``), the fitted constant replaces the mean.
+    a constant alone (F statistic above ``f_accept``), the fitted constant is the channel's offset.
 
     Parameters
     ----------
     pretrigger : numpy.ndarray, shape (channels, samples)
-        Pre-trigger samples of each channel, baselines already removed by the mean (any unit).
+        Pre-trigger samples of each channel (any unit), for example of an aligned pair whose records
+        had their baselines removed over their own, possibly longer, pre-triggers.
     dt : float
         Sample interval [s].
     freqs_Hz : list of float
@@ -391,7 +392,7 @@ def tone_aware_offsets(pretrigger: np.ndarray, dt: float, freqs_Hz: list[float],
     rss0 = np.sum((pre - mean[:, None]) ** 2, axis=1)
     p = A.shape[1] - 1
     f_stat = (rss0 - rss1) / p / np.maximum(rss1 / (n0 - p - 1), 1e-300)
-    off = np.where(f_stat > f_accept, coef[0] - mean, 0.0)
+    off = np.where(f_stat > f_accept, coef[0], 0.0)
     return off if np.any(off != 0.0) else None
 
 

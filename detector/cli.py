@@ -250,6 +250,8 @@ def _cmd_sensitivity(args: argparse.Namespace) -> int:
     for k, r in res["per_turns"].items():
         print(f"  {k:>4}  ({100 * r['fraction_of_winding']:.1f} %)  {r['detected']:.3f} / {r['false_alarms']:.3f}  "
               f"n={r['n']}")
+        print("        " + "; ".join(f"{name} {b['detected']:.2f} of {b['n_faults']}"
+                                     for name, b in r.get("by_comparison", {}).items()))
     print(f"smallest short detected in 95 % of cases: {res['smallest_detected_95']} turn(s)")
     if args.json_out:
         save_report(res, args.json_out)

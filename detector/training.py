@@ -573,7 +573,9 @@ def sensitivity_turns(model: ShotModel, out_dir: str | Path, *, turns: Sequence[
     -------
     dict
         Per number of turns: ``fraction_of_winding``, ``detected`` (share of faulted pairs indicated),
-        ``false_alarms`` (share of healthy pairs indicated), ``n``; and ``smallest_detected_95`` (turns).
+        ``false_alarms`` (share of healthy pairs indicated), ``n``, ``by_comparison`` (detected share
+        and number of faulted pairs per kind of comparison, see :data:`COMPARISONS`); and
+        ``smallest_detected_95`` (turns).
     """
     import tomllib  # noqa: F401  (documented dependency of sensitivity_family)
 
@@ -597,8 +599,13 @@ def sensitivity_turns(model: ShotModel, out_dir: str | Path, *, turns: Sequence[
         fault = data.event != "none"
         det = float((pred[fault] != "none").mean()) if fault.any() else math.nan
         fa = float((pred[~fault] != "none").mean()) if (~fault).any() else math.nan
+        kind = np.array([COMPARISONS.get((str(r.get("reference_kind", "")), str(r.get("test_kind", ""))), "")
+                         for r in data.labels])
+        by = {name: {"n_faults": int((fault & (kind == name)).sum()),
+                     "detected": float((pred[fault & (kind == name)] != "none").mean())}
+              for name in COMPARISONS.values() if (fault & (kind == name)).any()}
         res["per_turns"][str(k)] = {"fraction_of_winding": k / 1000.0, "detected": det, "false_alarms": fa,
-                                    "n": int(data.X.shape[0])}
+                                    "n": int(data.X.shape[0]), "by_comparison": by}
         if smallest is None and det >= 0.95:
             smallest = k
     res["smallest_detected_95"] = smallest

@@ -104,3 +104,18 @@ def test_decide_uses_the_threshold_on_p_none():
     proba = np.array([[0.2, 0.5, 0.2, 0.1], [0.6, 0.1, 0.1, 0.2], [0.05, 0.1, 0.05, 0.8]])
     assert list(_decide(proba, 0.1)) == ["none", "none", "discharge_only"]
     assert list(_decide(proba, 0.5)) == ["turn_to_turn", "none", "discharge_only"]
+
+
+def test_sensitivity_study_reports_each_kind_of_comparison(tmp_path):
+    from detector.compare import default_model
+    from detector.training import sensitivity_turns
+
+    res = sensitivity_turns(default_model(), tmp_path, turns=(5,), cases=8, seed=3, workers=1)
+    r = res["per_turns"]["5"]
+    assert r["n"] == 8 and r["fraction_of_winding"] == 0.005
+    by = r["by_comparison"]
+    assert set(by) <= set(COMPARISONS.values())
+    n_faults = sum(b["n_faults"] for b in by.values())
+    assert n_faults == 4  # half of the pairs are faulted
+    # the overall rate is the faults-weighted mean of the per-comparison rates
+    assert r["detected"] == pytest.approx(sum(b["detected"] * b["n_faults"] for b in by.values()) / n_faults)

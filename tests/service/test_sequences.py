@@ -165,6 +165,34 @@ def test_a_shot_stored_without_its_comparison_is_finished_on_restart(settings, i
     assert "fault_indicated" in shots[1]["comparison"]["verdict"]
 
 
+def test_a_chopped_shot_finished_on_restart_is_compared_with_the_reduced_chopped_wave(settings, iec_files,
+                                                                                       tmp_path):
+    """The reference of a shot is found again from the shots before it, so a restart picks the same one."""
+    from fastapi.testclient import TestClient
+
+    from detector.service.app import create_app
+    from detector.store import Store
+
+    w, mk = svc_records.write_record, svc_records.impulse_record
+    rc = w(mk(8000, level_percent=75.0, kind="chopped", seed=32), tmp_path / "02_reduced_chopped_75.cff")
+    with TestClient(create_app(settings)) as c:
+        sid = _new(c, plan="iec_chopped")
+        assert _shot(c, sid, iec_files[0][0], "reduced", 75).status_code == 201
+        assert _shot(c, sid, rc, "reduced_chopped", 75).status_code == 201
+    st = Store(settings.data_dir)
+    try:  # a crash between committing the chopped shot and comparing it
+        rec = st.put_record([(p.name, p.read_bytes()) for p in iec_files[2][0]])
+        st.add_shot(sid, rec, kind="chopped", level_percent=115, role="test", waveshape={}, warnings=[],
+                    expect_position=3)
+    finally:
+        st.close()
+    with TestClient(create_app(settings)) as c:
+        shots = c.get(f"/v1/sequences/{sid}").json()["shots"]
+        comp = c.get(f"/v1/comparisons/{shots[2]['comparison']['id']}").json()
+    assert shots[2]["comparison"]["status"] == "done"
+    assert comp["reference_name"] == "02_reduced_chopped_75.cff"
+
+
 def test_creating_a_sequence_with_an_idempotency_key_is_idempotent(client):
     """A client that retries after a lost answer gets the first sequence back, not a second one."""
     body = {"unit_id": "TX-0000-SVC", "terminal": "3W", "plan": "iec"}

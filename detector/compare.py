@@ -125,13 +125,13 @@ class Verdict:
         }
 
 
+#: A chopped shot whose test voltage is at most this many times the full-wave reference's is taken for
+#: a reduced-level chopped wave (the future reference of the chopped shots), not for a test shot [1].
+REDUCED_CHOPPED_MAX_RATIO = 1.2
 #: Warning of a chopped test shot compared with a full-wave reference: the reference barely excites the
 #: frequencies of the collapse, so a fault near or after the chop changes less of what can be compared
 #: (README, "By kind of comparison": on the held-out set, turn-to-turn 0.74-0.75 against 0.89-0.91 with a
 #: chopped reference).
-#: A chopped shot whose test voltage is at most this many times the full-wave reference's is taken for
-#: a reduced-level chopped wave (the future reference of the chopped shots), not for a test shot [1].
-REDUCED_CHOPPED_MAX_RATIO = 1.2
 CHOPPED_AGAINST_FULL_WARNING = (
     "chopped test shot compared with a full-wave reference: faults near or after the chop are found less "
     "often than against a reduced-level chopped wave; compare with one where the test plan has it"

@@ -16,7 +16,7 @@ import json
 import math
 import os
 import time
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -371,6 +371,12 @@ COMPARISONS: dict[tuple[str, str], str] = {
 }
 
 
+def _comparison_kinds(labels: Sequence[Mapping[str, Any]]) -> np.ndarray:
+    """Name of each pair's kind of comparison (:data:`COMPARISONS`), '' where the labels do not say."""
+    return np.array([COMPARISONS.get((str(r.get("reference_kind", "")), str(r.get("test_kind", ""))), "")
+                     for r in labels])
+
+
 def _by_comparison(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
     """False alarms and detection rate per fault class for each kind of comparison (full or chopped shots).
 
@@ -379,8 +385,7 @@ def _by_comparison(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
     """
     if data.X.shape[0] == 0 or not data.labels:
         return {}
-    kind = np.array([COMPARISONS.get((str(r.get("reference_kind", "")), str(r.get("test_kind", ""))), "")
-                     for r in data.labels])
+    kind = _comparison_kinds(data.labels)
     _, pred = _predict(model, data.X)
     out: dict[str, Any] = {}
     for name in COMPARISONS.values():
@@ -599,8 +604,7 @@ def sensitivity_turns(model: ShotModel, out_dir: str | Path, *, turns: Sequence[
         fault = data.event != "none"
         det = float((pred[fault] != "none").mean()) if fault.any() else math.nan
         fa = float((pred[~fault] != "none").mean()) if (~fault).any() else math.nan
-        kind = np.array([COMPARISONS.get((str(r.get("reference_kind", "")), str(r.get("test_kind", ""))), "")
-                         for r in data.labels])
+        kind = _comparison_kinds(data.labels)
         by = {name: {"n_faults": int((fault & (kind == name)).sum()),
                      "detected": float((pred[fault & (kind == name)] != "none").mean())}
               for name in COMPARISONS.values() if (fault & (kind == name)).any()}

@@ -164,15 +164,17 @@ def compensated_difference(
     gain = 1.0 / w
     valid = gain <= max_gain
     span_idx = np.flatnonzero(valid & (k < n - max(8, n // 50))) if remove_tones else None
-    pred, diff, tones, kg2, spec = _prediction(rv, ri, tv, ti, w, n0, max_gain, dt, span_idx)
+    n_fft = sfft.next_fast_len(2 * n, real=True)
+    pred, diff, tones, kg2, spec = _prediction(rv, ri, tv, ti, w, gain, valid, n0, n_fft, dt, span_idx)
     if tones and n0 >= 16:
         # the pre-trigger baselines were biased by the tones: correct them and predict again (the
         # spectra shift by offset x spectrum of the window)
         off = tone_aware_offsets(np.stack((rv, ri, tv, ti))[:, :n0], dt, [f for f, _ in tones])
         if off is not None:
             rv, ri, tv, ti = rv - off[0], ri - off[1], tv - off[2], ti - off[3]
-            spec = spec - off[:, None] * sfft.rfft(w, sfft.next_fast_len(2 * n, real=True))[None, :]
-            pred, diff, tones, kg2, spec = _prediction(rv, ri, tv, ti, w, n0, max_gain, dt, span_idx, spec=spec)
+            spec = spec - off[:, None] * sfft.rfft(w, n_fft)[None, :]
+            pred, diff, tones, kg2, spec = _prediction(rv, ri, tv, ti, w, gain, valid, n0, n_fft, dt, span_idx,
+                                                       spec=spec)
     peak_i = float(np.max(np.abs(ri))) or 1.0
     s0 = _robust_sigma(diff[:n0]) if n0 >= 8 else math.nan
     if not math.isfinite(s0):  # no pre-trigger: second differences of the test current
@@ -195,13 +197,14 @@ def compensated_difference(
     return CompensatedDifference(pred, diff, sig, z, onset, tau, tuple(tones))
 
 
-def _prediction(rv: np.ndarray, ri: np.ndarray, tv: np.ndarray, ti: np.ndarray, w: np.ndarray, n0: int,
-                max_gain: float, dt: float, tone_span: np.ndarray | None, *, spec: np.ndarray | None = None,
+def _prediction(rv: np.ndarray, ri: np.ndarray, tv: np.ndarray, ti: np.ndarray, w: np.ndarray,
+                gain: np.ndarray, valid: np.ndarray, n0: int, n_fft: int, dt: float,
+                tone_span: np.ndarray | None, *, spec: np.ndarray | None = None,
                 ) -> tuple[np.ndarray, np.ndarray, list[tuple[float, float]], float, np.ndarray]:
     """Predicted test current, difference, removed tones, the prediction's noise gain and the four
-    windowed spectra (see the caller); ``spec`` if given holds those spectra already."""
+    windowed spectra (see the caller: ``w`` the window, ``gain`` = 1 / w, ``valid`` where the gain is
+    allowed); ``spec`` if given holds those spectra already."""
     n = rv.size
-    n_fft = sfft.next_fast_len(2 * n, real=True)
     if spec is None:
         spec = sfft.rfft(np.stack((rv * w, ri * w, tv * w, ti * w)), n_fft, axis=-1)  # one call, four rows
     Vr, Ir, Vt, It = spec[0], spec[1], spec[2], spec[3]
@@ -217,8 +220,7 @@ def _prediction(rv: np.ndarray, ri: np.ndarray, tv: np.ndarray, ti: np.ndarray, 
     K = np.conj(Vr) * Vt / (p_r + lam)
     back = sfft.irfft(np.stack((Ir * K, It * g)), n_fft, axis=-1)
     pred_w, ti_w = back[0, :n], back[1, :n]
-    gain = 1.0 / w
-    pred = np.where(gain <= max_gain, pred_w * gain, np.nan)
+    pred = np.where(valid, pred_w * gain, np.nan)
     diff = ti_w * gain - pred
     tones: list[tuple[float, float]] = []
     if tone_span is not None:

@@ -78,6 +78,36 @@ def test_changed_network_is_found_with_its_onset():
     assert np.nanmax(z) > 20.0
 
 
+def test_backtracked_onset_finds_where_a_growing_change_began():
+    # a change that starts at a known sample and grows linearly: the 6-sigma crossing comes late by the
+    # time to grow to 6 sigma, the backtracked onset by the time to grow past about one sigma
+    n, pre, k0 = 6000, 500, 3000
+    rng = np.random.default_rng(3)
+    sigma = 1e-3
+    d = rng.normal(0.0, sigma, n)
+    slope = 6 * sigma / 40  # 6 sigma after 40 samples
+    d[k0:] += slope * np.arange(n - k0)
+    nan = np.full(n, np.nan)
+    from detector.metrics.compensated import CompensatedDifference
+
+    cd = CompensatedDifference(predicted=nan, difference=d, sigma=np.full(n, sigma), z=d / sigma, onset_index=None,
+                              window_tau_s=0.0)
+    z, first, onset = multiscale_z(cd, start=pre + 100, scales=(1, 4), pretrigger_samples=pre,
+                                   return_onset=True)
+    # (seed 3: crossings 30 and 29 samples late; these bounds hold for seeds 0-7 as well)
+    assert first[0] - k0 >= 25  # the single-sample crossing lags by the time to grow to 6 sigma
+    assert 0 <= onset[0] - k0 <= 20 and first[0] - onset[0] >= 8  # noise dips below 1 sigma a while longer
+    assert 0 <= onset[1] - k0 <= 14  # the 4-sample average dips less
+    # a step of 40 sigma: the onset is the step's own sample
+    d2 = rng.normal(0.0, sigma, n)
+    d2[k0:] += 40 * sigma
+    cd2 = CompensatedDifference(predicted=nan, difference=d2, sigma=np.full(n, sigma), z=d2 / sigma,
+                               onset_index=None, window_tau_s=0.0)
+    _, _, onset2 = multiscale_z(cd2, start=pre + 100, scales=(1, 16), pretrigger_samples=pre, return_onset=True)
+    # (to within the few samples before it whose noise happens to exceed one sigma of the same sign)
+    assert -3 <= onset2[0] - k0 <= 0 and abs(onset2[1] - k0) <= 3
+
+
 def test_prediction_reproduces_the_current_for_a_scaled_wave():
     # linearity: a wave at another level (here 1/0.6) predicts the current scaled by the same factor
     t = (np.arange(N) - PRE) * DT

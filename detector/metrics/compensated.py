@@ -256,7 +256,8 @@ def quantisation_step(samples: np.ndarray) -> float:
 
 def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ...] = SCALES,
                  pretrigger_samples: int = 0, return_robust: bool = False,
-                 floor_sigma: float = 0.0, exclude: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
+                 floor_sigma: float = 0.0, exclude: np.ndarray | None = None,
+                 return_onset: bool = False) -> tuple[np.ndarray, ...]:
     """Largest noise-normalised compensated difference after centred moving averages of several lengths.
 
     Parameters
@@ -287,6 +288,12 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
     robust_z : numpy.ndarray
         Only with ``return_robust``: largest deviation of the averages from their median over the span,
         in units of their own MAD-based spread [1].
+    onset_index : numpy.ndarray
+        Only with ``return_onset`` (last output): where each scale's 6-sigma excursion began (-1 if never):
+        walking back from the first crossing to the last average whose signed value (sign of the
+        excursion) was below one sigma, the last sample of the next window. A change that grows from
+        zero crosses 6 sigma late by the time it needs to grow; this estimate is late only by the time
+        to grow past one sigma of the average (for a step larger than ``m`` sigma, the step's sample).
 
     Notes
     -----
@@ -318,6 +325,7 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
     out_z = np.full(len(scales), np.nan)
     out_zr = np.full(len(scales), np.nan)
     out_i = np.full(len(scales), -1, dtype=np.int64)
+    out_b = np.full(len(scales), -1, dtype=np.int64)
     for j, m in enumerate(scales):  # loop over a handful of scales, vectorised over samples
         if n - start < m:
             continue
@@ -342,10 +350,17 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
                 out_zr[j] = float(np.max(np.abs(md - centre)) / scale_m)
         hit = np.flatnonzero(z > 6.0)
         if hit.size:
-            out_i[j] = int(start + hit[0] + m // 2)
-    if return_robust:
-        return out_z, out_i, out_zr
-    return out_z, out_i
+            h = int(hit[0])
+            out_i[j] = start + h + m // 2
+            if return_onset:
+                # signed z of the windows before the crossing; the excursion began after the last one
+                # below 1 (windows [lo, lo + m): the first window past it ends on the onset sample)
+                s_z = np.sign(mean_d[h]) * mean_d[:h] / np.where(sig[:h] > 0, sig[:h], np.inf)
+                below = np.flatnonzero((s_z < 1.0) | ~ok[:h])
+                k = int(below[-1]) if below.size else -1
+                out_b[j] = start + k + m
+    out: tuple[np.ndarray, ...] = (out_z, out_i, out_zr) if return_robust else (out_z, out_i)
+    return (*out, out_b) if return_onset else out
 
 
 def tone_aware_offsets(pretrigger: np.ndarray, dt: float, freqs_Hz: list[float], *,

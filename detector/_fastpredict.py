@@ -132,7 +132,7 @@ def estimators_of(obj: Any) -> list[Any]:
                 walk(v, depth + 1)
             return
         for name in ("classifier", "locator", "timer", "members_", "calibrated_", "calibrated_classifiers_",
-                     "estimator", "model_"):
+                     "estimator", "model_", "chooser_"):
             walk(getattr(o, name, None), depth + 1)
 
     walk(obj, 0)
@@ -283,16 +283,26 @@ def score(model: Any, X: np.ndarray) -> tuple[np.ndarray, np.ndarray | None, np.
     if proba is None:
         proba = clf.predict_proba(X)
 
+    small = X.shape[0] <= SMALL_BATCH
+
     def regress(reg: Any) -> np.ndarray | None:
         if reg is None:
             return None
         est = getattr(reg, "model_", None)
         raw = None
-        if X.shape[0] <= SMALL_BATCH and X.shape[1] == getattr(reg, "n_features_in_", -1) and est is not None:
+        if small and X.shape[1] == getattr(reg, "n_features_in_", -1) and est is not None:
             raw = _raw(est, X)
         if raw is None:
             return reg.predict(X)
         y = est._loss.link.inverse(raw.ravel())
+        if hasattr(reg, "choose"):  # the instant: a detector's onset where the chooser names one
+            chooser = getattr(reg, "chooser_", None)
+            cp = None
+            if chooser is not None:
+                raw_c = _raw(chooser, X)
+                cp = (chooser.predict_proba(X) if raw_c is None
+                      else chooser._loss.predict_proba(raw_c.ravel() if raw_c.shape[1] == 1 else raw_c))
+            return reg.choose(X, y, cp)
         return y if reg._clip is None else np.clip(y, *reg._clip)
 
     return proba, regress(model.locator), regress(model.timer)

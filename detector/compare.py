@@ -222,9 +222,12 @@ def compare(
     loc = None
     if fault:
         sharp = float(sharp_onset_after_front_us(a.features)[0])
-        if math.isfinite(sharp):
+        chooses = m.timer is not None and m.timer.chooses
+        if t_pred is not None and math.isfinite(t_pred) and chooses:  # a detector's onset or the regression
+            t_fault = a.front_test_time_s + 1e-6 * t_pred
+        elif math.isfinite(sharp):
             t_fault = a.front_test_time_s + 1e-6 * sharp
-        elif t_pred is not None:
+        elif t_pred is not None and math.isfinite(t_pred):
             t_fault = a.front_test_time_s + 1e-6 * t_pred
         else:
             t_fault = a.to_test_time_s(_fault_time_pair_s(a))

@@ -21,6 +21,7 @@ from typing import Any
 
 import numpy as np
 
+from ._stats import agreeing_onset
 from ._validation import ShotcheckError
 from .metrics.compensated import (
     SCALES,
@@ -44,7 +45,7 @@ from .waveshape import WaveShape, evaluate_waveshape
 __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "11"
+SCHEMA_VERSION = "12"
 
 #: Detail levels of the wavelet difference kept as features (D1 finest .. D8), plus the approximation.
 WAVELET_LEVELS = 8
@@ -82,6 +83,7 @@ def _names() -> tuple[str, ...]:
     # trust and how late the effect reaches the terminals (propagation through the winding)
     n += [f"wv_{lab}_first_after_front_us" for lab in _WV_LABELS]
     n += [f"cd_scale{m}_first_after_front_us" for m in SCALES]
+    n += [f"cd_scale{m}_onset_after_front_us" for m in SCALES]
     n += ["td_i_onset_after_front_us", "td_v_onset_after_front_us", "td_collapse_after_front_us"]
     n += ["ws_front_time_change", "ws_time_to_half_change", "ws_test_voltage_ratio_change",
           "noise_i_ref_ppm", "noise_i_test_ppm", "sample_rate_MHz"]
@@ -222,13 +224,14 @@ def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s:
     energy = math.log10(max(float(np.sum(d[after] ** 2)) / pe, 1e-12)) if after.any() and pe > 0 else nan
     # onset: the earliest 6-sigma crossing of the compensated difference averaged over any of SCALES
     start = int(np.searchsorted(t, front_s + FRONT_WINDOW_S[1], side="right"))
-    ms_z, ms_i, ms_r = multiscale_z(cd, start=start, pretrigger_samples=pair.pretrigger_samples,
-                                    return_robust=True, floor_sigma=floor, exclude=in_chop)
+    ms_z, ms_i, ms_r, ms_b = multiscale_z(cd, start=start, pretrigger_samples=pair.pretrigger_samples,
+                                          return_robust=True, floor_sigma=floor, exclude=in_chop,
+                                          return_onset=True)
     hits = ms_i[ms_i >= 0]
     onset_s = float(t[hits.min()]) if hits.size else None
     onset_us = nan if onset_s is None else 1e6 * (onset_s - front_s)
     span_us = 1e6 * (float(t[np.flatnonzero(fin)[-1]]) - front_s) if fin.any() else nan
-    return [front_z, max_z, max_pct, energy, onset_us, span_us, onset_s, ms_z, ms_i, ms_r]
+    return [front_z, max_z, max_pct, energy, onset_us, span_us, onset_s, ms_z, ms_i, ms_r, ms_b]
 
 
 def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[float]:
@@ -387,6 +390,7 @@ def extract(
     f += _wavelet_features(wd, front_s)
     t_pair = pair.times_s
     f += [nan if i < 0 else 1e6 * (float(t_pair[i]) - front_s) for i in cd_f[8]]
+    f += [nan if i < 0 else 1e6 * (float(t_pair[min(i, t_pair.size - 1)]) - front_s) for i in cd_f[10]]
 
     def _rel(x: float | None) -> float:
         return nan if x is None else 1e6 * (x - front_s)
@@ -440,12 +444,26 @@ def sharp_onset_after_front_us(features: np.ndarray, *, agree_us: float = 0.05, 
     """
     X = np.atleast_2d(np.asarray(features, dtype=np.float64))
     cols = [FEATURE_NAMES.index(c) for c in SHARP_ONSET_FEATURES]
-    C = np.sort(X[:, cols], axis=1)  # NaN sort last
-    spread = C[:, count - 1:] - C[:, : C.shape[1] - count + 1]
-    ok = np.isfinite(spread) & (spread <= agree_us)
-    first = np.argmax(ok, axis=1)
-    out = np.where(ok.any(axis=1), C[np.arange(C.shape[0]), first], np.nan)
-    return out
+    return agreeing_onset(X[:, cols], agree_us=agree_us, count=count)
+
+
+#: Onset features the instant regressor chooses among (every detector's ``*_after_front_us``).
+INSTANT_CANDIDATE_FEATURES = tuple(n for n in FEATURE_NAMES if n.endswith("_after_front_us"))
+
+
+def instant_candidates() -> dict[str, tuple[int, ...]]:
+    """Column indices of the onset candidates, as :class:`detector.model.InstantRegressor` takes them.
+
+    Returns
+    -------
+    dict
+        ``candidate_columns`` (:data:`INSTANT_CANDIDATE_FEATURES`) and ``sharp_columns``
+        (:data:`SHARP_ONSET_FEATURES`) as column indices of :data:`FEATURE_NAMES`.
+    """
+    return {
+        "candidate_columns": tuple(FEATURE_NAMES.index(c) for c in INSTANT_CANDIDATE_FEATURES),
+        "sharp_columns": tuple(FEATURE_NAMES.index(c) for c in SHARP_ONSET_FEATURES),
+    }
 
 
 def describe(features: np.ndarray) -> dict[str, Any]:

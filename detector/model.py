@@ -32,6 +32,7 @@ from sklearn.utils.multiclass import unique_labels
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from . import _fastpredict
+from ._stats import agreeing_onset
 from ._validation import ShotcheckError, check_option
 
 __all__ = [
@@ -296,15 +297,158 @@ class LocationRegressor(RegressorMixin, BaseEstimator):
 
 
 class InstantRegressor(LocationRegressor):
-    """Gradient-boosting regressor of the fault instant relative to the voltage front [us].
+    """Fault instant relative to the voltage front [us]: an onset chosen among the detectors', or regressed.
 
     The onset a record shows lags the fault by the time its effect needs to travel through the winding
-    to the terminal or the neutral; the regressor learns from every detector's onset time (features
-    ``*_after_front_us``) when the fault most likely began. Same parameters as
-    :class:`LocationRegressor`; predictions are not clipped.
+    and to grow above the noise; which detector marks it best depends on the event and the records.
+    Given ``candidate_columns`` (the onset features, ``*_after_front_us``) a gradient-boosting classifier
+    learns which candidate lies nearest the true instant (within ``tolerance_us``), or that none does;
+    the instant is then that candidate's value, keeping the detector's own precision (a few samples),
+    else the regressor's prediction. Without candidates it is a plain regressor (the parameters of
+    :class:`LocationRegressor`; predictions are not clipped).
+
+    Parameters
+    ----------
+    candidate_columns : tuple of int, optional
+        Columns of ``X`` holding onset times [us after the front] (NaN where a detector saw nothing).
+    sharp_columns : tuple of int, optional
+        Columns whose earliest agreement of three within 0.05 us is one more candidate
+        (:func:`detector._stats.agreeing_onset`).
+    tolerance_us : float, default=0.3
+        A candidate counts as right when it lies this close to the true instant [us].
+    max_iter, learning_rate, max_leaf_nodes, loss, random_state
+        As :class:`LocationRegressor` (the chooser uses the same boosting settings).
+
+    Attributes
+    ----------
+    model_ : HistGradientBoostingRegressor
+        Regressor of the instant (used where no candidate is chosen).
+    chooser_ : HistGradientBoostingClassifier or None
+        Classifier over the candidate index (``n_candidates`` meaning "none: regress").
     """
 
     _clip = None
+    _constraints = {**LocationRegressor._constraints, "tolerance_us": (float, 0.0, None)}
+
+    def __init__(
+        self,
+        *,
+        candidate_columns: tuple[int, ...] | None = None,
+        sharp_columns: tuple[int, ...] | None = None,
+        tolerance_us: float = 0.3,
+        max_iter: int = 400,
+        learning_rate: float = 0.06,
+        max_leaf_nodes: int = 31,
+        loss: str = "absolute_error",
+        random_state: int | None = 0,
+    ):
+        super().__init__(max_iter=max_iter, learning_rate=learning_rate, max_leaf_nodes=max_leaf_nodes,
+                         loss=loss, random_state=random_state)
+        self.candidate_columns = candidate_columns
+        self.sharp_columns = sharp_columns
+        self.tolerance_us = tolerance_us
+
+    @property
+    def chooses(self) -> bool:
+        """Whether the instant is chosen among onset candidates (False: plain regression)."""
+        return bool(getattr(self, "candidate_columns", None) or getattr(self, "sharp_columns", None))
+
+    def candidates(self, X: np.ndarray) -> np.ndarray:
+        """Onset candidates of each row [us after the front], shape (n_samples, n_candidates)."""
+        X = np.atleast_2d(np.asarray(X, dtype=np.float64))
+        parts = [X[:, list(self.candidate_columns or ())]]
+        if self.sharp_columns:
+            parts.append(agreeing_onset(X[:, list(self.sharp_columns)])[:, None])
+        return np.concatenate(parts, axis=1)
+
+    def fit(self, X: Any, y: Any, sample_weight: Any = None) -> InstantRegressor:
+        """Fit on feature vectors of faulted pairs and their true instants [us after the front].
+
+        Returns
+        -------
+        self
+        """
+        super().fit(X, y, sample_weight=sample_weight)
+        self.chooser_ = None
+        if not self.chooses:
+            return self
+        Xv = np.asarray(validate_data(self, X, reset=False, ensure_all_finite="allow-nan"), dtype=np.float64)
+        cols = [*(self.candidate_columns or ()), *(self.sharp_columns or ())]
+        if any(not 0 <= int(c) < Xv.shape[1] for c in cols):
+            raise ShotcheckError(f"InstantRegressor: candidate columns {cols} do not all lie in the "
+                                 f"{Xv.shape[1]} feature columns")
+        C = self.candidates(Xv)
+        err = np.abs(C - np.asarray(y, dtype=np.float64)[:, None])
+        err = np.where(np.isfinite(err), err, np.inf)
+        K = C.shape[1]
+        label = self._labels(err)
+        # a candidate that is rarely the best one is left out (its rows go to the next best): every
+        # class costs trees, and a handful of examples teaches the chooser nothing
+        counts = np.bincount(label, minlength=K + 1)
+        rare = counts[:K] < self.MIN_CHOICES
+        if rare.any():
+            label = self._labels(np.where(rare[None, :], np.inf, err))
+        if np.unique(label).size < 2:  # every row the same choice: the rule needs no classifier
+            self.constant_choice_ = int(label[0])
+            return self
+        self.chooser_ = HistGradientBoostingClassifier(
+            max_iter=self.CHOOSER_ITERATIONS,
+            learning_rate=0.1,
+            max_leaf_nodes=self.CHOOSER_LEAVES,
+            early_stopping=False,
+            random_state=self.random_state,
+        ).fit(Xv, label, sample_weight=sample_weight)
+        return self
+
+    #: Rows a candidate must be the best for to stay a choice; boosting iterations and leaves of the chooser.
+    MIN_CHOICES = 20
+    CHOOSER_ITERATIONS = 50
+    CHOOSER_LEAVES = 15
+
+    def _labels(self, err: np.ndarray) -> np.ndarray:
+        """Index of the candidate nearest the truth if within tolerance, else ``n_candidates``."""
+        best = np.argmin(err, axis=1)
+        return np.where(err[np.arange(best.size), best] <= self.tolerance_us, best, err.shape[1])
+
+    def choose(self, X: np.ndarray, regressed: np.ndarray, choice_proba: np.ndarray | None) -> np.ndarray:
+        """Combine the regressed instants with the chooser's probabilities (see the class notes).
+
+        Parameters
+        ----------
+        X : numpy.ndarray, shape (n_samples, n_features)
+            Feature vectors.
+        regressed : numpy.ndarray, shape (n_samples,)
+            The regressor's instants [us after the front].
+        choice_proba : numpy.ndarray or None
+            The chooser's probabilities in ``chooser_.classes_`` order (None without a chooser).
+
+        Returns
+        -------
+        numpy.ndarray
+            Instant of each row [us after the front].
+        """
+        if not self.chooses:
+            return regressed
+        C = self.candidates(X)
+        K = C.shape[1]
+        full = np.zeros((C.shape[0], K + 1))
+        if choice_proba is None:
+            full[:, getattr(self, "constant_choice_", K)] = 1.0
+        else:
+            full[:, self.chooser_.classes_.astype(int)] = choice_proba
+        full[:, :K] = np.where(np.isfinite(C), full[:, :K], 0.0)  # a detector that saw nothing is no choice
+        full[:, K] = np.maximum(full[:, K], 1e-12)  # the regressor is always available
+        k = np.argmax(full, axis=1)
+        picked = C[np.arange(C.shape[0]), np.minimum(k, K - 1)]
+        return np.where(k < K, picked, regressed)
+
+    def predict(self, X: Any) -> np.ndarray:
+        """Fault instant of each row [us after the front]."""
+        check_is_fitted(self)
+        X = validate_data(self, X, reset=False, ensure_all_finite="allow-nan")
+        regressed = self.model_.predict(X)
+        chooser = getattr(self, "chooser_", None)
+        return self.choose(X, regressed, None if chooser is None else chooser.predict_proba(X))
 
 
 @dataclasses.dataclass

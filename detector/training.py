@@ -23,7 +23,13 @@ from typing import Any
 import numpy as np
 
 from ._validation import ShotcheckError
-from .features import FEATURE_NAMES, SCHEMA_VERSION, extract, sharp_onset_after_front_us
+from .features import (
+    FEATURE_NAMES,
+    SCHEMA_VERSION,
+    extract,
+    instant_candidates,
+    sharp_onset_after_front_us,
+)
 from .model import EVENT_CLASSES, FaultClassifier, InstantRegressor, LocationRegressor, ShotModel
 from .scoring import calibrate_thresholds, false_alarm_rate
 
@@ -254,7 +260,7 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
             ta = (y[tr] != "none") & np.isfinite(rel[tr])
             if ta.sum() >= 10:
                 inst[te] = data.front_us[te] + _instant(
-                    X[te], InstantRegressor(random_state=seed).fit(X[tr][ta], rel[tr][ta]))
+                    X[te], InstantRegressor(random_state=seed, **instant_candidates()).fit(X[tr][ta], rel[tr][ta]))
             clf = FaultClassifier(random_state=seed).fit(X[tr], y[tr])
             p = clf.predict_proba(X[te])
             for k, c in enumerate(clf.classes_):
@@ -274,7 +280,8 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     locator = LocationRegressor(random_state=seed).fit(X[fa], pos[fa]) if fa.sum() >= 10 else None
     rel = data.fault_time_us - data.front_us
     ta = (y != "none") & np.isfinite(rel)
-    timer = InstantRegressor(random_state=seed).fit(X[ta], rel[ta]) if ta.sum() >= 10 else None
+    timer = (InstantRegressor(random_state=seed, **instant_candidates()).fit(X[ta], rel[ta])
+             if ta.sum() >= 10 else None)
     card = {
         "name": "shotcheck synthetic model",
         "training_data": description,
@@ -404,7 +411,10 @@ def _by_comparison(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
 
 
 def _instant(X: np.ndarray, timer: InstantRegressor) -> np.ndarray:
-    """Fault instant after the front [us]: agreeing sharp onsets where there are, else the regressor."""
+    """Fault instant after the front [us]: the timer's, or for a timer without onset candidates (a model
+    file written before they existed) agreeing sharp onsets where there are, else its regression."""
+    if timer.chooses:
+        return timer.predict(X)
     sharp = sharp_onset_after_front_us(X)
     return np.where(np.isfinite(sharp), sharp, timer.predict(X))
 
@@ -482,10 +492,11 @@ def report_text(rep: dict[str, Any]) -> str:
     acc = rep.get("class_accuracy_on_detected")
     lines.append(f"class accuracy on detected     {'-' if acc is None else f'{acc:.3f}'}")
     for k, lab in (("location_error_median", "median location error"),
-                   ("fault_time_error_median_us", "median fault-instant error [us]"),
+                   ("fault_time_error_median_us", "median fault-instant error"),
                    ("roc_auc", "ROC AUC (fault vs none)")):
         v = rep.get(k)
-        lines.append(f"{lab:<31}{'-' if v is None else f'{v:.3f}'}")
+        unit = " us" if k.endswith("_us") and v is not None else ""
+        lines.append(f"{lab:<31}{'-' if v is None else f'{v:.3f}'}{unit}")
     byc = rep.get("by_comparison")
     if byc:
         classes = list(next(iter(byc.values()))["detection_rate"])

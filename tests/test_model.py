@@ -143,3 +143,62 @@ def test_not_a_model_file(tmp_path):
     with pytest.raises(ShotcheckError, match="model file not found"):
         load_model(tmp_path / "none.skops")
     assert zipfile.is_zipfile(q)
+
+
+def _instants(n=900, seed=1):
+    """Rows whose true instant one of three noisy detectors marks, which one told by a column.
+
+    Detector k is right (within 0.02 us) where column 3 says k, otherwise late by 1-3 us; column 4
+    holds the true instant with a 1 us error (what a regressor can learn).
+    """
+    rng = np.random.default_rng(seed)
+    truth = rng.uniform(0.5, 30.0, n)
+    which = rng.integers(0, 3, n)
+    X = np.zeros((n, 6))
+    late = truth[:, None] + rng.uniform(1.0, 3.0, (n, 3))
+    late[np.arange(n), which] = truth + rng.normal(0.0, 0.01, n)
+    X[:, :3] = late
+    X[:, 3] = which + rng.normal(0.0, 0.05, n)
+    X[:, 4] = truth + rng.normal(0.0, 1.0, n)
+    X[:, 5] = rng.normal(size=n)
+    return X, truth
+
+
+def test_instant_chooser_keeps_the_right_detectors_precision():
+    from detector.model import InstantRegressor
+
+    X, truth = _instants()
+    Xt, tt = _instants(seed=2)
+    plain = InstantRegressor(max_iter=100).fit(X, truth)
+    chosen = InstantRegressor(max_iter=100, candidate_columns=(0, 1, 2)).fit(X, truth)
+    err_plain = np.median(np.abs(plain.predict(Xt) - tt))
+    err_chosen = np.median(np.abs(chosen.predict(Xt) - tt))
+    assert err_chosen < 0.05  # a detector's own precision, not the regression's
+    assert err_plain > 4 * err_chosen
+    # a detector that saw nothing (NaN) is never chosen: the regression answers
+    Xn = Xt.copy()
+    Xn[:, :3] = np.nan
+    out = chosen.predict(Xn)
+    assert np.all(np.isfinite(out))
+    np.testing.assert_allclose(out, chosen.model_.predict(Xn))
+
+
+def test_instant_chooser_survives_the_model_file(tmp_path):
+    from detector.model import InstantRegressor
+
+    X, truth = _instants(300)
+    m, _ = _model()
+    m.timer = InstantRegressor(max_iter=30, candidate_columns=(0, 1, 2), sharp_columns=(0, 1, 2)).fit(X[:, :5],
+                                                                                                    truth)
+    p = tmp_path / "m.skops"
+    save_model(m, p)
+    m2 = load_model(p, expected_schema="test-1")
+    np.testing.assert_array_equal(m2.timer.predict(X[:, :5]), m.timer.predict(X[:, :5]))
+
+
+def test_instant_chooser_refuses_columns_outside_the_features():
+    from detector.model import InstantRegressor
+
+    X, truth = _instants(100)
+    with pytest.raises(ShotcheckError, match="candidate columns"):
+        InstantRegressor(max_iter=10, candidate_columns=(0, 9)).fit(X, truth)

@@ -31,7 +31,7 @@ def _data(n_per_class: int, seed: int) -> LabelledFeatures:
     rows, events, labels = [], [], []
     for k, ev in enumerate(EVENTS):
         x = rng.normal(0.0, 1.0, (n_per_class, len(FEATURE_NAMES)))
-        x[:, k] += 2.5  # each class shifted on its own column: separable, not perfectly
+        x[:, k] += 3.5  # each class shifted on its own column: separable, not perfectly
         rows.append(x)
         events += [ev] * n_per_class
         for j in range(n_per_class):

@@ -108,6 +108,28 @@ def test_backtracked_onset_finds_where_a_growing_change_began():
     assert -3 <= onset2[0] - k0 <= 0 and abs(onset2[1] - k0) <= 3
 
 
+@pytest.mark.parametrize("sign", [1.0, -1.0])
+def test_backtracked_onset_of_a_clean_step_is_its_sample_at_every_scale(sign):
+    from detector.metrics.compensated import CompensatedDifference
+
+    n, pre, k0 = 6000, 500, 3000
+    start = pre + 100
+
+    def onsets(d, exclude=None):
+        cd = CompensatedDifference(predicted=np.full(n, np.nan), difference=d, sigma=np.full(n, 1e-3),
+                                   z=d / 1e-3, onset_index=None, window_tau_s=0.0)
+        return multiscale_z(cd, start=start, pretrigger_samples=pre, exclude=exclude, return_onset=True)[2]
+
+    step = np.where(np.arange(n) >= k0, sign * 0.04, 0.0)
+    np.testing.assert_array_equal(onsets(step), k0)
+    # already under way where scoring starts: the first scored sample (it began there or earlier)
+    np.testing.assert_array_equal(onsets(np.full(n, sign * 0.04)), start)
+    # right after excluded samples (e.g. around a chop), or inside them: the first sample after them
+    ex = (np.arange(n) >= k0 - 100) & (np.arange(n) < k0)
+    np.testing.assert_array_equal(onsets(step, ex), k0)
+    np.testing.assert_array_equal(onsets(np.where(np.arange(n) >= k0 - 50, sign * 0.04, 0.0), ex), k0)
+
+
 def test_prediction_reproduces_the_current_for_a_scaled_wave():
     # linearity: a wave at another level (here 1/0.6) predicts the current scaled by the same factor
     t = (np.arange(N) - PRE) * DT

@@ -294,6 +294,8 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
         excursion) was below one sigma, the last sample of the next window. A change that grows from
         zero crosses 6 sigma late by the time it needs to grow; this estimate is late only by the time
         to grow past one sigma of the average (for a step larger than ``m`` sigma, the step's sample).
+        Where the excursion is already under way at ``start`` or right after excluded samples, the
+        first sample scored after them (the change began there or earlier).
 
     Notes
     -----
@@ -356,9 +358,13 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
                 # signed z of the windows before the crossing; the excursion began after the last one
                 # below 1 (windows [lo, lo + m): the first window past it ends on the onset sample)
                 s_z = np.sign(mean_d[h]) * mean_d[:h] / np.where(sig[:h] > 0, sig[:h], np.inf)
-                below = np.flatnonzero((s_z < 1.0) | ~ok[:h])
-                k = int(below[-1]) if below.size else -1
-                out_b[j] = start + k + m
+                quiet = (s_z < 1.0) & ok[:h]
+                stop = np.flatnonzero(quiet | ~ok[:h])
+                k = int(stop[-1]) if stop.size else -1
+                if k >= 0 and quiet[k]:
+                    out_b[j] = start + k + m
+                else:  # excursion already under way where scoring (re)starts: no later than there
+                    out_b[j] = start + k + 1
     out: tuple[np.ndarray, ...] = (out_z, out_i, out_zr) if return_robust else (out_z, out_i)
     return (*out, out_b) if return_onset else out
 

@@ -295,14 +295,16 @@ def score(model: Any, X: np.ndarray) -> tuple[np.ndarray, np.ndarray | None, np.
         if raw is None:
             return reg.predict(X)
         y = est._loss.link.inverse(raw.ravel())
-        if hasattr(reg, "choose"):  # the instant: a detector's onset where the chooser names one
+        if hasattr(reg, "choose"):  # the instant: a detector's onset where the scorer trusts one
             chooser = getattr(reg, "chooser_", None)
-            cp = None
-            if chooser is not None:
-                raw_c = _raw(chooser, X)
-                cp = (chooser.predict_proba(X) if raw_c is None
-                      else chooser._loss.predict_proba(raw_c.ravel() if raw_c.shape[1] == 1 else raw_c))
-            return reg.choose(X, y, cp)
+
+            def proba(rows: np.ndarray) -> np.ndarray:
+                raw_c = _raw(chooser, rows)  # at most SMALL_BATCH pairs reach here
+                if raw_c is None:
+                    return chooser.predict_proba(rows)
+                return chooser._loss.predict_proba(raw_c.ravel() if raw_c.shape[1] == 1 else raw_c)
+
+            return reg.choose(X, y, reg.candidate_scores(X, proba if chooser is not None else None))
         return y if reg._clip is None else np.clip(y, *reg._clip)
 
     return proba, regress(model.locator), regress(model.timer)

@@ -390,7 +390,7 @@ def extract(
     f += _wavelet_features(wd, front_s)
     t_pair = pair.times_s
     f += [nan if i < 0 else 1e6 * (float(t_pair[i]) - front_s) for i in cd_f[8]]
-    f += [nan if i < 0 else 1e6 * (float(t_pair[min(i, t_pair.size - 1)]) - front_s) for i in cd_f[10]]
+    f += [nan if i < 0 else 1e6 * (float(t_pair[i]) - front_s) for i in cd_f[10]]
 
     def _rel(x: float | None) -> float:
         return nan if x is None else 1e6 * (x - front_s)
@@ -425,8 +425,9 @@ def sharp_onset_after_front_us(features: np.ndarray, *, agree_us: float = 0.05, 
 
     A breakdown changes the current abruptly: the fine wavelet levels and the short averages of the
     compensated difference then cross their thresholds within a few samples of each other. The earliest
-    time at which ``count`` of them agree within ``agree_us`` is taken as the fault instant; where no such
-    cluster exists the instant regressor is used instead.
+    time at which ``count`` of them agree within ``agree_us`` is one candidate of the fault instant
+    (:class:`detector.model.InstantRegressor` scores it with the others); a model whose instant
+    regressor has no candidates takes it as the instant where it exists.
 
     Parameters
     ----------

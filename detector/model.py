@@ -29,7 +29,7 @@ from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostin
 from sklearn.frozen import FrozenEstimator
 from sklearn.model_selection import train_test_split
 from sklearn.utils.multiclass import unique_labels
-from sklearn.utils.validation import check_is_fitted, validate_data
+from sklearn.utils.validation import check_is_fitted, column_or_1d, validate_data
 
 from . import _fastpredict
 from ._stats import agreeing_onset
@@ -301,11 +301,13 @@ class InstantRegressor(LocationRegressor):
 
     The onset a record shows lags the fault by the time its effect needs to travel through the winding
     and to grow above the noise; which detector marks it best depends on the event and the records.
-    Given ``candidate_columns`` (the onset features, ``*_after_front_us``) a gradient-boosting classifier
-    learns which candidate lies nearest the true instant (within ``tolerance_us``), or that none does;
-    the instant is then that candidate's value, keeping the detector's own precision (a few samples),
-    else the regressor's prediction. Without candidates it is a plain regressor (the parameters of
-    :class:`LocationRegressor`; predictions are not clipped).
+    Given ``candidate_columns`` (the onset features, ``*_after_front_us``), a gradient-boosting
+    classifier scores every (pair, candidate): the probability that this candidate lies within
+    ``tolerance_us`` of the true instant, from the pair's features, which detector it is, its value,
+    how many other candidates agree with it and how it ranks among them. The instant is the
+    best-scored candidate if its probability reaches ``min_probability`` (keeping the detector's own
+    precision, a few samples), else the regressor's prediction. Without candidates it is a plain
+    regressor (the parameters of :class:`LocationRegressor`; predictions are not clipped).
 
     Parameters
     ----------
@@ -316,19 +318,27 @@ class InstantRegressor(LocationRegressor):
         (:func:`detector._stats.agreeing_onset`).
     tolerance_us : float, default=0.3
         A candidate counts as right when it lies this close to the true instant [us].
+    min_probability : float, default=0.05
+        Smallest score of the chosen candidate; below it the regressor answers [1].
     max_iter, learning_rate, max_leaf_nodes, loss, random_state
-        As :class:`LocationRegressor` (the chooser uses the same boosting settings).
+        As :class:`LocationRegressor` (the regressor's settings).
 
     Attributes
     ----------
     model_ : HistGradientBoostingRegressor
         Regressor of the instant (used where no candidate is chosen).
     chooser_ : HistGradientBoostingClassifier or None
-        Classifier over the candidate index (``n_candidates`` meaning "none: regress").
+        Scorer of (pair, candidate) rows (see :meth:`candidate_rows`); None without candidates, or
+        when in training no candidate was ever right (or always).
     """
 
     _clip = None
-    _constraints = {**LocationRegressor._constraints, "tolerance_us": (float, 0.0, None)}
+    _constraints = {**LocationRegressor._constraints, "tolerance_us": (float, 0.0, None),
+                    "min_probability": (float, 0.0, 1.0)}
+
+    #: Boosting iterations and leaves of the candidate scorer.
+    CHOOSER_ITERATIONS = 200
+    CHOOSER_LEAVES = 31
 
     def __init__(
         self,
@@ -336,6 +346,7 @@ class InstantRegressor(LocationRegressor):
         candidate_columns: tuple[int, ...] | None = None,
         sharp_columns: tuple[int, ...] | None = None,
         tolerance_us: float = 0.3,
+        min_probability: float = 0.05,
         max_iter: int = 400,
         learning_rate: float = 0.06,
         max_leaf_nodes: int = 31,
@@ -347,11 +358,13 @@ class InstantRegressor(LocationRegressor):
         self.candidate_columns = candidate_columns
         self.sharp_columns = sharp_columns
         self.tolerance_us = tolerance_us
+        self.min_probability = min_probability
 
     @property
     def chooses(self) -> bool:
         """Whether the instant is chosen among onset candidates (False: plain regression)."""
-        return bool(getattr(self, "candidate_columns", None) or getattr(self, "sharp_columns", None))
+        return bool(len(tuple(getattr(self, "candidate_columns", None) or ()))
+                    or len(tuple(getattr(self, "sharp_columns", None) or ())))
 
     def candidates(self, X: np.ndarray) -> np.ndarray:
         """Onset candidates of each row [us after the front], shape (n_samples, n_candidates)."""
@@ -360,6 +373,42 @@ class InstantRegressor(LocationRegressor):
         if self.sharp_columns:
             parts.append(agreeing_onset(X[:, list(self.sharp_columns)])[:, None])
         return np.concatenate(parts, axis=1)
+
+    def candidate_rows(self, X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The scorer's input: one row per (pair, candidate).
+
+        Parameters
+        ----------
+        X : numpy.ndarray, shape (n_samples, n_features)
+
+        Returns
+        -------
+        C : numpy.ndarray, shape (n_samples, n_candidates)
+            Candidates [us after the front].
+        finite : numpy.ndarray of bool, same shape
+            Where a detector saw an onset.
+        rows : numpy.ndarray, shape (n_samples * n_candidates, n_features + n_candidates + 4)
+            The pair's features, then which candidate it is (one indicator column per candidate), its
+            value [us], the number of candidates within ``tolerance_us`` of it (itself included), its
+            rank among the pair's candidates (0 earliest) and its distance from the earliest [us].
+        """
+        X = np.atleast_2d(np.asarray(X, dtype=np.float64))
+        C = self.candidates(X)
+        n, k = C.shape
+        fin = np.isfinite(C)
+        agree = np.sum(np.abs(C[:, :, None] - C[:, None, :]) <= self.tolerance_us, axis=2)  # NaN: False
+        order = np.where(fin, C, np.inf)
+        rank = np.argsort(np.argsort(order, axis=1, kind="stable"), axis=1, kind="stable")
+        earliest = np.min(order, axis=1, keepdims=True)
+        rows = np.column_stack([
+            np.repeat(X, k, axis=0),
+            np.tile(np.eye(k), (n, 1)),
+            C.ravel(),
+            agree.ravel().astype(np.float64),
+            rank.ravel().astype(np.float64),
+            np.where(fin, C - earliest, np.nan).ravel(),
+        ])
+        return C, fin, rows
 
     def fit(self, X: Any, y: Any, sample_weight: Any = None) -> InstantRegressor:
         """Fit on feature vectors of faulted pairs and their true instants [us after the front].
@@ -377,41 +426,24 @@ class InstantRegressor(LocationRegressor):
         if any(not 0 <= int(c) < Xv.shape[1] for c in cols):
             raise ShotcheckError(f"InstantRegressor: candidate columns {cols} do not all lie in the "
                                  f"{Xv.shape[1]} feature columns")
-        C = self.candidates(Xv)
-        err = np.abs(C - np.asarray(y, dtype=np.float64)[:, None])
-        err = np.where(np.isfinite(err), err, np.inf)
-        K = C.shape[1]
-        label = self._labels(err)
-        # a candidate that is rarely the best one is left out (its rows go to the next best): every
-        # class costs trees, and a handful of examples teaches the chooser nothing
-        counts = np.bincount(label, minlength=K + 1)
-        rare = counts[:K] < self.MIN_CHOICES
-        if rare.any():
-            label = self._labels(np.where(rare[None, :], np.inf, err))
-        if np.unique(label).size < 2:  # every row the same choice: the rule needs no classifier
-            self.constant_choice_ = int(label[0])
+        C, fin, rows = self.candidate_rows(Xv)
+        yv = column_or_1d(y).astype(np.float64)
+        right = (np.abs(C - yv[:, None]) <= self.tolerance_us).ravel()
+        keep = fin.ravel()
+        if np.unique(right[keep]).size < 2:  # no candidate ever right (or always): nothing to learn
             return self
+        sw = None if sample_weight is None else np.repeat(np.asarray(sample_weight, dtype=float), C.shape[1])[keep]
         self.chooser_ = HistGradientBoostingClassifier(
             max_iter=self.CHOOSER_ITERATIONS,
             learning_rate=0.1,
             max_leaf_nodes=self.CHOOSER_LEAVES,
             early_stopping=False,
             random_state=self.random_state,
-        ).fit(Xv, label, sample_weight=sample_weight)
+        ).fit(rows[keep], right[keep], sample_weight=sw)
         return self
 
-    #: Rows a candidate must be the best for to stay a choice; boosting iterations and leaves of the chooser.
-    MIN_CHOICES = 20
-    CHOOSER_ITERATIONS = 50
-    CHOOSER_LEAVES = 15
-
-    def _labels(self, err: np.ndarray) -> np.ndarray:
-        """Index of the candidate nearest the truth if within tolerance, else ``n_candidates``."""
-        best = np.argmin(err, axis=1)
-        return np.where(err[np.arange(best.size), best] <= self.tolerance_us, best, err.shape[1])
-
-    def choose(self, X: np.ndarray, regressed: np.ndarray, choice_proba: np.ndarray | None) -> np.ndarray:
-        """Combine the regressed instants with the chooser's probabilities (see the class notes).
+    def choose(self, X: np.ndarray, regressed: np.ndarray, scores: np.ndarray | None) -> np.ndarray:
+        """Combine the regressed instants with the scores of the candidates (see the class description).
 
         Parameters
         ----------
@@ -419,36 +451,47 @@ class InstantRegressor(LocationRegressor):
             Feature vectors.
         regressed : numpy.ndarray, shape (n_samples,)
             The regressor's instants [us after the front].
-        choice_proba : numpy.ndarray or None
-            The chooser's probabilities in ``chooser_.classes_`` order (None without a chooser).
+        scores : numpy.ndarray or None, shape (n_samples, n_candidates)
+            Probability that each candidate is right (0 where a detector saw nothing); None without a
+            scorer (the regressor answers).
 
         Returns
         -------
         numpy.ndarray
             Instant of each row [us after the front].
         """
-        if not self.chooses:
+        if not self.chooses or scores is None:
             return regressed
         C = self.candidates(X)
-        K = C.shape[1]
-        full = np.zeros((C.shape[0], K + 1))
-        if choice_proba is None:
-            full[:, getattr(self, "constant_choice_", K)] = 1.0
-        else:
-            full[:, self.chooser_.classes_.astype(int)] = choice_proba
-        full[:, :K] = np.where(np.isfinite(C), full[:, :K], 0.0)  # a detector that saw nothing is no choice
-        full[:, K] = np.maximum(full[:, K], 1e-12)  # the regressor is always available
-        k = np.argmax(full, axis=1)
-        picked = C[np.arange(C.shape[0]), np.minimum(k, K - 1)]
-        return np.where(k < K, picked, regressed)
+        s = np.where(np.isfinite(C), scores, -1.0)
+        j = np.argmax(s, axis=1)
+        r = np.arange(C.shape[0])
+        use = s[r, j] >= self.min_probability
+        return np.where(use, C[r, j], regressed)
+
+    def candidate_scores(self, X: np.ndarray, proba=None) -> np.ndarray | None:
+        """Probability that each candidate is right, shape (n_samples, n_candidates); None without a scorer.
+
+        ``proba`` (optional) maps the scorer's input rows to their class probabilities (the fast path
+        passes its own); by default the scorer's ``predict_proba``.
+        """
+        chooser = getattr(self, "chooser_", None)
+        if chooser is None:
+            return None
+        C, fin, rows = self.candidate_rows(X)
+        out = np.zeros(fin.size)
+        keep = fin.ravel()
+        if keep.any():
+            p = (proba or chooser.predict_proba)(rows[keep])
+            out[keep] = p[:, list(chooser.classes_).index(True)]
+        return out.reshape(C.shape)
 
     def predict(self, X: Any) -> np.ndarray:
         """Fault instant of each row [us after the front]."""
         check_is_fitted(self)
-        X = validate_data(self, X, reset=False, ensure_all_finite="allow-nan")
+        X = np.asarray(validate_data(self, X, reset=False, ensure_all_finite="allow-nan"), dtype=np.float64)
         regressed = self.model_.predict(X)
-        chooser = getattr(self, "chooser_", None)
-        return self.choose(X, regressed, None if chooser is None else chooser.predict_proba(X))
+        return self.choose(X, regressed, self.candidate_scores(X))
 
 
 @dataclasses.dataclass

@@ -130,14 +130,27 @@ def test_a_chopped_shot_against_a_full_reference_carries_the_sensitivity_warning
     assert CHOPPED_AGAINST_FULL_WARNING not in v.warnings
 
 
-def test_breakdown_after_chopping_is_indicated():
+@pytest.mark.parametrize("seed", [0, 1, 2])
+@pytest.mark.parametrize("kw", [{"fault": "turn_to_turn", "turns": 10}, {"fault": "to_ground"}],
+                         ids=["turn_to_turn_10_turns", "to_ground"])
+def test_breakdown_after_chopping_is_indicated(kw, seed):
     """A chopped test shot against a full reference: healthy gives no fault (see the benign cases), a
-    turn-to-turn breakdown 22 us after the chop gives one. Its location and instant are less certain
-    after a chop (the README lists the measured errors), so only the verdict is asserted here."""
-    v, c = verdict(fault="turn_to_turn", chop_test_s=3e-6)
-    assert c.fault_time_us is not None
+    breakdown about 20 us after the chop gives one, in every noise realisation: a short of 10 turns
+    (1 % of the winding) between turns, or a breakdown to ground. Its location and instant are less
+    certain after a chop (the README lists the measured errors), so only the verdict is asserted."""
+    v, c = verdict(chop_test_s=3e-6, seed=seed, **kw)
+    assert c.fault_time_us is not None and c.fault_time_us > 15.0
     assert v.fault_indicated, v.probabilities
-    assert v.event == "turn_to_turn", v.probabilities
+    assert v.event == kw["fault"], v.probabilities
+
+
+@pytest.mark.xfail(strict=False, reason="known shortfall: a 5-turn short (0.5 % of the winding) after the "
+                   "chop, against a full-wave reference, is found in about 60 % of cases (README, sensitivity "
+                   "table: chopped test shots against a full reference); compare with a reduced chopped wave")
+def test_five_turn_breakdown_after_chopping_is_indicated_in_every_realisation():
+    for seed in (0, 1, 2):
+        v, _ = verdict(fault="turn_to_turn", chop_test_s=3e-6, seed=seed)
+        assert v.fault_indicated, (seed, v.probabilities)
 
 
 def test_polarity_mirror_gives_the_same_verdict():

@@ -94,6 +94,31 @@ def test_score_equals_scikit_learn(calibration, n_classes):
         assert np.array_equal(t, timer.predict(x))
 
 
+def test_score_of_a_choosing_timer_equals_its_predict():
+    """A timer that picks among onset columns: the fast path gives the instants of its predict()."""
+    from detector.model import InstantRegressor
+
+    X, _ = _data(900)
+    rng = np.random.default_rng(3)
+    truth = rng.uniform(0.5, 20.0, X.shape[0])
+    # columns 0-2 are onsets: one of them right, which one told by column 3; NaN where unseen
+    which = np.digitize(np.nan_to_num(X[:, 3]), [-0.4, 0.4])
+    X[:, :3] = truth[:, None] + rng.uniform(1.0, 3.0, (X.shape[0], 3))
+    X[np.arange(X.shape[0]), which] = truth
+    X[:, 2] = np.where(rng.random(X.shape[0]) < 0.2, np.nan, X[:, 2])
+    timer = InstantRegressor(max_iter=30, candidate_columns=(0, 1, 2)).fit(X, truth)
+    assert timer.chooser_ is not None
+    clf = FaultClassifier(max_iter=10).fit(X, np.where(truth > 10, "turn_to_turn", "none"))
+    model = ShotModel(classifier=clf, locator=None, timer=timer, feature_names=[f"f{i}" for i in range(7)],
+                      schema_version="test")
+    chosen = 0
+    for x in [X[i:i + 1] for i in range(80)] + [X[:7], X]:
+        _, _, t = _fastpredict.score(model, x)
+        assert np.array_equal(t, timer.predict(x))
+        chosen += int(np.sum(np.isin(t, x[:, :3])))
+    assert chosen > 0.5 * (80 + 7 + X.shape[0])  # mostly a column's own value, not the regression
+
+
 def test_score_without_calibration_and_regressors():
     """A classifier fitted on too few samples keeps the raw booster (no calibration): still the same."""
     X, score_ = _data(40)

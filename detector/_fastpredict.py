@@ -285,7 +285,7 @@ def score(model: Any, X: np.ndarray) -> tuple[np.ndarray, np.ndarray | None, np.
 
     small = X.shape[0] <= SMALL_BATCH
 
-    def regress(reg: Any) -> np.ndarray | None:
+    def regress(reg: Any, X: np.ndarray = X) -> np.ndarray | None:
         if reg is None:
             return None
         est = getattr(reg, "model_", None)
@@ -307,4 +307,6 @@ def score(model: Any, X: np.ndarray) -> tuple[np.ndarray, np.ndarray | None, np.
             return reg.choose(X, y, reg.candidate_scores(X, proba if chooser is not None else None))
         return y if reg._clip is None else np.clip(y, *reg._clip)
 
-    return proba, regress(model.locator), regress(model.timer)
+    instant = regress(model.timer)
+    position = None if model.locator is None else regress(model.locator, model.locator_input(X, instant))
+    return proba, position, instant

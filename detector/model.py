@@ -486,6 +486,27 @@ class InstantRegressor(LocationRegressor):
             out[keep] = p[:, list(chooser.classes_).index(True)]
         return out.reshape(C.shape)
 
+    def timing_inputs(self, X: np.ndarray, instant_us: np.ndarray) -> np.ndarray:
+        """Feature rows extended by the instant and each candidate's delay after it, for the locator.
+
+        The delay between the fault and the moment each detector sees it grows with the distance the
+        effect travels through the winding, so it carries the fault's position.
+
+        Parameters
+        ----------
+        X : numpy.ndarray, shape (n_samples, n_features)
+        instant_us : numpy.ndarray, shape (n_samples,)
+            Fault instants [us after the front] (this regressor's, out of fold when training).
+
+        Returns
+        -------
+        numpy.ndarray, shape (n_samples, n_features + 1 + n_candidates)
+            ``X``, the instant [us], then every candidate minus the instant [us] (NaN where unseen).
+        """
+        X = np.atleast_2d(np.asarray(X, dtype=np.float64))
+        t = np.asarray(instant_us, dtype=np.float64).reshape(-1, 1)
+        return np.concatenate([X, t, self.candidates(X) - t], axis=1)
+
     def predict(self, X: Any) -> np.ndarray:
         """Fault instant of each row [us after the front]."""
         check_is_fitted(self)
@@ -527,6 +548,32 @@ class ShotModel:
     card: Mapping[str, Any] = dataclasses.field(default_factory=dict)
     timer: InstantRegressor | None = None
     none_threshold: float = 0.5
+
+    def locator_input(self, X: np.ndarray, instant_us: np.ndarray | None) -> np.ndarray:
+        """The rows the locator takes: the features, extended by the timing inputs if it was trained on them.
+
+        Parameters
+        ----------
+        X : numpy.ndarray, shape (n_samples, n_features)
+            Feature vectors.
+        instant_us : numpy.ndarray or None
+            The timer's fault instants [us after the front].
+
+        Returns
+        -------
+        numpy.ndarray
+            ``X`` or :meth:`InstantRegressor.timing_inputs` of it, whichever the locator was fitted on.
+        """
+        X = np.atleast_2d(np.asarray(X, dtype=np.float64))
+        n_in = getattr(self.locator, "n_features_in_", X.shape[1])
+        if n_in == X.shape[1]:
+            return X
+        if self.timer is not None and instant_us is not None:
+            Xt = self.timer.timing_inputs(X, instant_us)
+            if Xt.shape[1] == n_in:
+                return Xt
+        raise ShotcheckError(f"the locator takes {n_in} inputs; the features ({X.shape[1]}) and this model's "
+                             "timer do not give them")
 
 
 #: Types a model file may contain beyond skops' defaults. Anything else is refused on load.

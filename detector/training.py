@@ -258,16 +258,23 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
         rel = data.fault_time_us - data.front_us  # target of the instant regressor [us after the front]
         for tr, te in GroupKFold(n_splits=cv_folds).split(X, y, groups):
             ta = (y[tr] != "none") & np.isfinite(rel[tr])
+            timer_tr = None
             if ta.sum() >= 10:
-                inst[te] = data.front_us[te] + _instant(
-                    X[te], InstantRegressor(random_state=seed, **instant_candidates()).fit(X[tr][ta], rel[tr][ta]))
+                timer_tr = InstantRegressor(random_state=seed, **instant_candidates()).fit(X[tr][ta], rel[tr][ta])
+                inst[te] = data.front_us[te] + _instant(X[te], timer_tr)
             clf = FaultClassifier(random_state=seed).fit(X[tr], y[tr])
             p = clf.predict_proba(X[te])
             for k, c in enumerate(clf.classes_):
                 proba[te, EVENT_CLASSES.index(str(c))] = p[:, k]
             fa = (y[tr] != "none") & np.isfinite(pos[tr])
             if fa.sum() >= 10:
-                loc[te] = LocationRegressor(random_state=seed).fit(X[tr][fa], pos[tr][fa]).predict(X[te])
+                if timer_tr is not None:  # the locator learns from instants it did not see fitted
+                    oof = _out_of_fold_instants(X[tr], rel[tr], y[tr], groups[tr], seed, cv_folds)
+                    Xl_tr = timer_tr.timing_inputs(X[tr], oof)
+                    Xl_te = timer_tr.timing_inputs(X[te], _instant(X[te], timer_tr))
+                else:
+                    Xl_tr, Xl_te = X[tr], X[te]
+                loc[te] = LocationRegressor(random_state=seed).fit(Xl_tr[fa], pos[tr][fa]).predict(Xl_te)
         none_threshold = operating_point(proba[y == "none", 0], false_alarm_rate_target)
         pred = _decide(proba, none_threshold)
         report = _figures(data, proba, pred, loc, inst)
@@ -276,12 +283,15 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     benign = X[y == "none"]
     thresholds = calibrate_thresholds(benign, false_alarm_rate=false_alarm_rate_target) if benign.shape[0] >= 10 else {}
     clf = FaultClassifier(random_state=seed).fit(X, y)
-    fa = (y != "none") & np.isfinite(pos)
-    locator = LocationRegressor(random_state=seed).fit(X[fa], pos[fa]) if fa.sum() >= 10 else None
     rel = data.fault_time_us - data.front_us
     ta = (y != "none") & np.isfinite(rel)
     timer = (InstantRegressor(random_state=seed, **instant_candidates()).fit(X[ta], rel[ta])
              if ta.sum() >= 10 else None)
+    fa = (y != "none") & np.isfinite(pos)
+    Xl = X
+    if timer is not None and fa.sum() >= 10:  # the locator also takes the instant and each onset's delay
+        Xl = timer.timing_inputs(X, _out_of_fold_instants(X, rel, y, groups, seed, max(cv_folds or 0, 3)))
+    locator = LocationRegressor(random_state=seed).fit(Xl[fa], pos[fa]) if fa.sum() >= 10 else None
     card = {
         "name": "shotcheck synthetic model",
         "training_data": description,
@@ -297,6 +307,25 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     card["none_threshold"] = none_threshold
     model = ShotModel(clf, locator, FEATURE_NAMES, SCHEMA_VERSION, thresholds, card, timer, none_threshold)
     return model, report
+
+
+def _out_of_fold_instants(X: np.ndarray, rel: np.ndarray, y: np.ndarray, groups: np.ndarray, seed: int,
+                          folds: int) -> np.ndarray:
+    """Fault instants [us after the front] of every row from timers fitted without its winding design
+    (grouped folds), so that a locator trained on them sees instants as good as in use; NaN where a
+    fold had too few faults."""
+    from sklearn.model_selection import GroupKFold
+
+    out = np.full(X.shape[0], np.nan)
+    k = min(folds, np.unique(groups).size)
+    if k < 2:
+        return out
+    for tr, te in GroupKFold(n_splits=k).split(X, y, groups):
+        ta = (y[tr] != "none") & np.isfinite(rel[tr])
+        if ta.sum() >= 10:
+            out[te] = _instant(X[te], InstantRegressor(random_state=seed, **instant_candidates()).fit(
+                X[tr][ta], rel[tr][ta]))
+    return out
 
 
 def _decide(proba: np.ndarray, none_threshold: float = 0.5) -> np.ndarray:
@@ -471,8 +500,10 @@ def _evaluate_subset(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]
     if X.shape[0] == 0:
         return {"n_pairs": 0}
     proba, pred = _predict(model, X)
-    loc = model.locator.predict(X) if model.locator is not None else np.full(X.shape[0], np.nan)
-    inst = (data.front_us + _instant(X, model.timer)) if model.timer is not None else None
+    rel_inst = _instant(X, model.timer) if model.timer is not None else None
+    loc = (model.locator.predict(model.locator_input(X, rel_inst)) if model.locator is not None
+           else np.full(X.shape[0], np.nan))
+    inst = (data.front_us + rel_inst) if rel_inst is not None else None
     rep = _figures(sub, proba, pred, loc, inst)
     benign = X[sub.event == "none"]
     if model.thresholds and benign.shape[0]:

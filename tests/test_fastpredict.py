@@ -111,10 +111,14 @@ def test_score_of_a_choosing_timer_equals_its_predict():
     clf = FaultClassifier(max_iter=10).fit(X, np.where(truth > 10, "turn_to_turn", "none"))
     model = ShotModel(classifier=clf, locator=None, timer=timer, feature_names=[f"f{i}" for i in range(7)],
                       schema_version="test")
+    # and a locator fitted on the timing inputs (the instant, each onset's delay after it)
+    loc = LocationRegressor(max_iter=30).fit(timer.timing_inputs(X, timer.predict(X)), np.clip(truth / 20, 0, 1))
+    model.locator = loc
     chosen = 0
     for x in [X[i:i + 1] for i in range(80)] + [X[:7], X]:
-        _, _, t = _fastpredict.score(model, x)
+        _, pos, t = _fastpredict.score(model, x)
         assert np.array_equal(t, timer.predict(x))
+        assert np.array_equal(pos, loc.predict(timer.timing_inputs(x, timer.predict(x))))
         chosen += int(np.sum(np.isin(t, x[:, :3])))
     assert chosen > 0.5 * (80 + 7 + X.shape[0])  # mostly a column's own value, not the regression
 

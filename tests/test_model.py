@@ -202,3 +202,25 @@ def test_instant_chooser_refuses_columns_outside_the_features():
     X, truth = _instants(100)
     with pytest.raises(ShotcheckError, match="candidate columns"):
         InstantRegressor(max_iter=10, candidate_columns=(0, 9)).fit(X, truth)
+
+
+def test_locator_input_follows_what_the_locator_was_fitted_on():
+    from detector.model import InstantRegressor
+
+    X, truth = _instants(300)
+    timer = InstantRegressor(max_iter=30, candidate_columns=(0, 1, 2)).fit(X, truth)
+    inst = timer.predict(X)
+    ext = timer.timing_inputs(X, inst)
+    assert ext.shape == (X.shape[0], X.shape[1] + 1 + 3)
+    np.testing.assert_array_equal(ext[:, X.shape[1]], inst)
+    np.testing.assert_array_equal(ext[:, X.shape[1] + 1:], X[:, :3] - inst[:, None])  # each onset's delay
+    pos = np.clip(X[:, 5] * 0.1 + 0.5, 0, 1)
+    clf = FaultClassifier(max_iter=10).fit(X, np.where(truth > 15, "turn_to_turn", "none"))
+    timed = ShotModel(clf, LocationRegressor(max_iter=20).fit(ext, pos), [f"f{i}" for i in range(6)], "t",
+                      timer=timer)
+    np.testing.assert_array_equal(timed.locator_input(X, inst), ext)
+    plain = ShotModel(clf, LocationRegressor(max_iter=20).fit(X, pos), [f"f{i}" for i in range(6)], "t",
+                      timer=timer)
+    assert plain.locator_input(X, inst) is not None and plain.locator_input(X, inst).shape == X.shape
+    with pytest.raises(ShotcheckError, match="the locator takes 10 inputs"):
+        timed.locator_input(X, None)

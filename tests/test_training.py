@@ -93,6 +93,16 @@ def test_evaluation_counts_match_the_models_decisions(trained):
     assert "full reference, chopped test" in text and "confusion matrix" in text
 
 
+def test_the_locator_takes_the_instant_and_each_onsets_delay(trained):
+    from detector.features import INSTANT_CANDIDATE_FEATURES
+
+    model, cv = trained
+    assert model.timer is not None and model.timer.chooses
+    n_cand = len(INSTANT_CANDIDATE_FEATURES) + 1  # and the agreeing sharp onset
+    assert model.locator.n_features_in_ == len(FEATURE_NAMES) + 1 + n_cand
+    assert cv["location_error_median"] is not None
+
+
 def test_cross_validated_threshold_meets_its_false_alarm_target(trained):
     model, cv = trained
     assert cv["false_alarm_rate"] <= 0.01 + 1e-12

@@ -254,14 +254,14 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
         pred = np.empty(y.size, dtype=object)
         proba = np.zeros((y.size, len(EVENT_CLASSES)))
         loc = np.full(y.size, np.nan)
-        inst = np.full(y.size, np.nan)
+        inst_rel = np.full(y.size, np.nan)  # out-of-fold instants [us after the front]
         rel = data.fault_time_us - data.front_us  # target of the instant regressor [us after the front]
         for tr, te in GroupKFold(n_splits=cv_folds).split(X, y, groups):
             ta = (y[tr] != "none") & np.isfinite(rel[tr])
             timer_tr = None
             if ta.sum() >= 10:
                 timer_tr = InstantRegressor(random_state=seed, **instant_candidates()).fit(X[tr][ta], rel[tr][ta])
-                inst[te] = data.front_us[te] + _instant(X[te], timer_tr)
+                inst_rel[te] = _instant(X[te], timer_tr)
             clf = FaultClassifier(random_state=seed).fit(X[tr], y[tr])
             p = clf.predict_proba(X[te])
             for k, c in enumerate(clf.classes_):
@@ -271,13 +271,13 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
                 if timer_tr is not None:  # the locator learns from instants it did not see fitted
                     oof = _out_of_fold_instants(X[tr], rel[tr], y[tr], groups[tr], seed, cv_folds)
                     Xl_tr = timer_tr.timing_inputs(X[tr], oof)
-                    Xl_te = timer_tr.timing_inputs(X[te], _instant(X[te], timer_tr))
+                    Xl_te = timer_tr.timing_inputs(X[te], inst_rel[te])
                 else:
                     Xl_tr, Xl_te = X[tr], X[te]
                 loc[te] = LocationRegressor(random_state=seed).fit(Xl_tr[fa], pos[tr][fa]).predict(Xl_te)
         none_threshold = operating_point(proba[y == "none", 0], false_alarm_rate_target)
         pred = _decide(proba, none_threshold)
-        report = _figures(data, proba, pred, loc, inst)
+        report = _figures(data, proba, pred, loc, data.front_us + inst_rel)
         report["none_threshold"] = none_threshold
         report["cv_folds"] = cv_folds
     benign = X[y == "none"]
@@ -290,7 +290,9 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     fa = (y != "none") & np.isfinite(pos)
     Xl = X
     if timer is not None and fa.sum() >= 10:  # the locator also takes the instant and each onset's delay
-        Xl = timer.timing_inputs(X, _out_of_fold_instants(X, rel, y, groups, seed, max(cv_folds or 0, 3)))
+        # the cross-validation above made the same out-of-fold instants when it ran with 3 or more folds
+        oof = inst_rel if cv_folds and cv_folds >= 3 else _out_of_fold_instants(X, rel, y, groups, seed, 3)
+        Xl = timer.timing_inputs(X, oof)
     locator = LocationRegressor(random_state=seed).fit(Xl[fa], pos[fa]) if fa.sum() >= 10 else None
     card = {
         "name": "shotcheck synthetic model",

@@ -648,7 +648,7 @@ def wavelet_figure(verdict: Verdict) -> Figure:
     ax.set_xlabel("time on the test record [µs]", fontsize=_FONT_PT)
     ax.tick_params(axis="x", labelsize=_FONT_PT)
     cb = fig.colorbar(im, ax=ax, pad=0.01, fraction=0.05)
-    cb.set_label("|difference| / level σ [1]", fontsize=_FONT_PT)
+    cb.set_label("|difference| / local σ of the level [1]", fontsize=_FONT_PT)
     cb.ax.tick_params(labelsize=_FONT_PT - 1)
     cb.ax.axhline(WAVELET_K_SIGMA, color=OKABE_ITO["vermillion"], linewidth=1.5)
     ticks = [1.0, WAVELET_K_SIGMA] + [10.0**e for e in range(1, int(math.log10(vmax)) + 1)]

@@ -331,6 +331,9 @@ def wavelet_difference(
     k_sigma: float = 6.0,
     sigma_floor_rel: float = 1e-6,
     t0_s: float = 0.0,
+    noise_scale: np.ndarray | None = None,
+    scored: np.ndarray | None = None,
+    noise_segments: int = 1,
 ) -> WaveletDifference:
     """Per-level wavelet difference of two aligned currents.
 
@@ -361,6 +364,22 @@ def wavelet_difference(
         [1], so that noise-free records give finite numbers.
     t0_s : float
         Time of the first sample [s]; all returned times are on this axis.
+    noise_scale : array_like, optional
+        Relative noise standard deviation of the difference at each sample [1] (for example the
+        time-dependent sigma of a compensated difference, which grows along the record and holds model
+        tolerances at the front). The difference is divided by it before the map, the peaks, the noise
+        and the first times are taken, so that the map is in units of the local noise; samples where it
+        is not finite are set to zero. Energies stay those of the plain difference.
+    scored : array_like of bool, optional
+        Samples where peaks and first times are taken and the per-row noise is measured (default all);
+        e.g. the span after the front, without an intended chop.
+    noise_segments : int
+        With ``noise_scale`` or ``scored``: the scored samples are cut into this many consecutive parts
+        of equal count, each row's noise is measured (MAD) in each part and interpolated between the
+        parts' centres [1]. Noise that changes along the record differently per row (the test
+        record's own noise is stationary, the prediction's grows where the reference resolves the
+        frequencies, i.e. in the coarse rows only) is then followed row by row; the median still
+        ignores a few sparse events per part.
 
     Returns
     -------
@@ -385,7 +404,10 @@ def wavelet_difference(
     record (a shifted resonance) raises the MAD too, so judge it by ``energy_ratio``. The same holds for
     the approximation row, whose difference is dominated by small level-normalisation errors (a
     test-voltage value off by 0.05 % leaves 0.05 % of the current there): its ``peak_sigma`` is not a
-    noise-referenced quantity.
+    noise-referenced quantity. With ``noise_scale`` or ``scored`` the same estimates are taken from the
+    (scaled) map over the scored samples instead, every fourth coefficient, and with ``noise_segments``
+    per part of the record, interpolated between the parts (the map is then in units of the local
+    noise of each row, ``sigma`` holds the median over the parts).
 
     Stationary coefficients are shifted so that each is centred on the sample it describes (offsets
     from the response to a unit impulse); discrete coefficients are mapped the same way. The time of a
@@ -415,8 +437,21 @@ def wavelet_difference(
     x2 = np.stack((r, t - r))  # the transforms are linear: transform the difference directly
     # energies and noise from the orthogonal DWT (Parseval: the rows' energies add up to the signal's)
     rows = _dwt_rows(x2, w, lev, mode)
+    local = noise_scale is not None or scored is not None
+    xd = x2[1]
+    if noise_scale is not None:
+        s_n = np.asarray(noise_scale, dtype=np.float64)
+        if s_n.shape != (n,):
+            raise ShotcheckError(f"noise_scale must have one value per sample ({n}), got shape {s_n.shape}")
+        ok = np.isfinite(s_n) & (s_n > 0)
+        xd = np.where(ok, xd / np.where(ok, s_n, 1.0), 0.0)
+    mask = np.ones(n, dtype=bool) if scored is None else np.asarray(scored, dtype=bool)
+    if mask.shape != (n,):
+        raise ShotcheckError(f"scored must have one value per sample ({n}), got shape {mask.shape}")
     if method == "swt":
-        dmap_raw = np.abs(_swt_rows(x2[1], w, lev))
+        dmap_raw = np.abs(_swt_rows(xd, w, lev))
+    elif noise_scale is not None:
+        dmap_raw = np.abs(_dwt_map([c[0] for c in _dwt_rows(xd[None, :], w, lev, mode)], w, lev, mode, n))
     else:
         dmap_raw = np.abs(_dwt_map([c[1] for c in rows], w, lev, mode, n))
     counts = np.array([c.shape[-1] for c in rows])
@@ -426,8 +461,38 @@ def wavelet_difference(
     # detail coefficients of noise have zero median: MAD = median(|d|) (Donoho & Johnstone 1994);
     # the approximation is centred on its median first. Stationary coefficients of a level have the
     # same distribution as the decimated ones (same filters), so one sigma serves both.
-    mad = np.array([median1d(np.abs(c[1])) for c in rows[:-1]]
-                   + [median1d(np.abs(rows[-1][1] - median1d(rows[-1][1])))]) / MAD_NORMAL_CONSTANT
+    n_seg = int(check_range("noise_segments", noise_segments, 1, None))
+    if local and mask.sum() >= 16:
+        # noise of each row over the scored samples of the (locally scaled) map, per part; every 4th
+        # sample serves the median as well as all (neighbouring stationary coefficients are correlated).
+        # A row is cut into at most as many parts as leave 32 independent coefficients in each (coarse
+        # rows have few: one per 2**j samples).
+        idx = np.flatnonzero(mask)
+        mad = np.empty(lev + 1)
+        prof = None
+        for j in range(lev + 1):  # loop over rows
+            k_j = max(1, min(n_seg, idx.size // (32 * 2 ** min(j + 1, lev))))
+            parts = np.array_split(idx, k_j)
+            row = dmap_raw[j]
+            if j < lev:
+                m_p = np.array([median1d(row[part[::4]]) for part in parts])
+            else:
+                m_p = np.array([median1d(np.abs(row[part[::4]] - median1d(row[part[::4]]))) for part in parts])
+            m_p /= MAD_NORMAL_CONSTANT
+            mad[j] = float(np.median(m_p))
+            if k_j > 1:
+                if prof is None:
+                    prof = np.ones((lev + 1, n))
+                centres = np.array([float(np.mean(part)) for part in parts])
+                prof[j] = np.interp(np.arange(n), centres, m_p) / mad[j] if mad[j] > 0 else 1.0
+        if noise_scale is not None:  # the floor in the map's units
+            typical = s_n[mask & ok]
+            ref_rms = ref_rms / (float(np.median(typical)) if typical.size else 1.0)
+        if prof is not None:  # each row in units of its own local noise
+            dmap_raw = dmap_raw / np.maximum(prof, 1e-3)
+    else:
+        mad = np.array([median1d(np.abs(c[1])) for c in rows[:-1]]
+                       + [median1d(np.abs(rows[-1][1] - median1d(rows[-1][1])))]) / MAD_NORMAL_CONSTANT
     sigma = np.maximum(mad, sigma_floor_rel * ref_rms)
     sigma = np.where(sigma > 0.0, sigma, np.finfo(float).tiny)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -435,10 +500,11 @@ def wavelet_difference(
                                 np.where(dif_energy > 0.0, np.inf, 0.0))
     dmap = dmap_raw
     dmap /= sigma[:, None]
-    peak = dmap.max(axis=1)
+    scored_map = dmap if scored is None else np.where(mask[None, :], dmap, 0.0)
+    peak = scored_map.max(axis=1)
     j = np.arange(1, lev + 2)
     half_support = np.ceil((w.dec_len - 1) * (2.0 ** np.minimum(j, lev) - 1) / 2.0)
-    first_idx = _first_event_times(dmap, k_sigma, half_support)
+    first_idx = _first_event_times(scored_map, k_sigma, half_support)
     any_over = first_idx >= 0
     times = t0_s + np.arange(n) * dt
     first_time = np.where(any_over, times[np.maximum(first_idx, 0)], np.nan)

@@ -27,6 +27,8 @@ from .metrics.compensated import (
     SCALES,
     CompensatedDifference,
     compensated_difference,
+    core_term,
+    driven_fraction,
     multiscale_z,
     quantisation_step,
 )
@@ -45,7 +47,14 @@ from .waveshape import WaveShape, evaluate_waveshape
 __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "12"
+SCHEMA_VERSION = "13"
+
+#: Averaging lengths [samples] scored again after the core term is removed (it is slow).
+CORE_SCALES = (64, 256, 1024)
+
+#: Parts of the scored span in which the wavelet difference measures each level's noise (followed along
+#: the record: the test's own noise is stationary, the prediction's grows in the coarse levels).
+WAVELET_NOISE_SEGMENTS = 8
 
 #: Detail levels of the wavelet difference kept as features (D1 finest .. D8), plus the approximation.
 WAVELET_LEVELS = 8
@@ -84,6 +93,10 @@ def _names() -> tuple[str, ...]:
     n += [f"wv_{lab}_first_after_front_us" for lab in _WV_LABELS]
     n += [f"cd_scale{m}_first_after_front_us" for m in SCALES]
     n += [f"cd_scale{m}_onset_after_front_us" for m in SCALES]
+    # the compensated difference without a fitted change of the magnetising inductance (core effect)
+    n += ["cd_core_percent"] + [f"cd_core_scale{m}_z" for m in CORE_SCALES]
+    # the difference after its onset as a changed admittance's response to the voltage (a short) or not
+    n += ["cd_driven_fraction", "cd_driven_inductive_percent"]
     n += ["td_i_onset_after_front_us", "td_v_onset_after_front_us", "td_collapse_after_front_us"]
     n += ["ws_front_time_change", "ws_time_to_half_change", "ws_test_voltage_ratio_change",
           "noise_i_ref_ppm", "noise_i_test_ppm", "sample_rate_MHz"]
@@ -224,14 +237,29 @@ def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s:
     energy = math.log10(max(float(np.sum(d[after] ** 2)) / pe, 1e-12)) if after.any() and pe > 0 else nan
     # onset: the earliest 6-sigma crossing of the compensated difference averaged over any of SCALES
     start = int(np.searchsorted(t, front_s + FRONT_WINDOW_S[1], side="right"))
-    ms_z, ms_i, ms_r, ms_b = multiscale_z(cd, start=start, pretrigger_samples=pair.pretrigger_samples,
-                                          return_robust=True, floor_sigma=floor, exclude=in_chop,
-                                          return_onset=True)
+    # a change of the magnetising inductance between levels, fitted and removed: what is left at the
+    # long averaging lengths is not a core effect (scored in the same pass)
+    i_front = int(np.searchsorted(t, front_s))
+    a, cd_core = core_term(cd, pair.test_voltage_pu, pair.sample_interval_s, after, start=i_front)
+    ms_z, ms_i, ms_r, ms_b, core_z = multiscale_z(cd, start=start, pretrigger_samples=pair.pretrigger_samples,
+                                                  return_robust=True, floor_sigma=floor, exclude=in_chop,
+                                                  return_onset=True, extra=cd_core.difference,
+                                                  extra_scales=CORE_SCALES)
     hits = ms_i[ms_i >= 0]
     onset_s = float(t[hits.min()]) if hits.size else None
     onset_us = nan if onset_s is None else 1e6 * (onset_s - front_s)
     span_us = 1e6 * (float(t[np.flatnonzero(fin)[-1]]) - front_s) if fin.any() else nan
-    return [front_z, max_z, max_pct, energy, onset_us, span_us, onset_s, ms_z, ms_i, ms_r, ms_b]
+    core_end = 0.0
+    if after.any() and a != 0.0:
+        last = int(np.flatnonzero(after)[-1])
+        q_end = float(np.sum(pair.test_voltage_pu[i_front:last + 1])) * pair.sample_interval_s
+        core_end = 100.0 * a * q_end / peak_i  # the fitted core term at the end of the span [% of peak]
+    starts = ms_b[ms_b >= 0]
+    driven = [nan, nan]
+    if starts.size:
+        driven = list(driven_fraction(cd, pair.test_voltage_pu, pair.sample_interval_s, after, int(starts.min())))
+    return [front_z, max_z, max_pct, energy, onset_us, span_us, onset_s, ms_z, ms_i, ms_r, ms_b,
+            [core_end, *core_z.tolist(), *driven]]
 
 
 def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[float]:
@@ -354,13 +382,21 @@ def extract(
     clock("compensated")
 
     # wavelet difference of the test current against its compensated prediction, over the span where
-    # the prediction is valid
+    # the prediction is valid, in units of its own noise: divided by the compensated difference's
+    # time-dependent sigma (which holds the alignment tolerance on the front) and each level's noise
+    # followed along the record; scored after the front window and away from an intended chop, like the
+    # averaged compensated difference
     valid = np.flatnonzero(np.isfinite(cd.sigma))
     stop = int(valid[-1]) + 1 if valid.size else 0
     wd: WaveletDifference | None = None
     if stop >= 64:
+        t = pair.times_s[:stop]
+        scored = np.isfinite(cd.sigma[:stop]) & (t > front_s + FRONT_WINDOW_S[1])
+        if chop_s is not None:
+            scored &= ~((t >= chop_s + CHOP_WINDOW_S[0]) & (t <= chop_s + CHOP_WINDOW_S[1]))
         wd = wavelet_difference(cd.predicted[:stop], pair.test_current_pu[:stop], dt,
-                                t0_s=float(pair.times_s[0]))
+                                t0_s=float(pair.times_s[0]), noise_scale=cd.sigma[:stop], scored=scored,
+                                noise_segments=WAVELET_NOISE_SEGMENTS)
     clock("wavelet")
 
     f: list[float] = []
@@ -391,6 +427,7 @@ def extract(
     t_pair = pair.times_s
     f += [nan if i < 0 else 1e6 * (float(t_pair[i]) - front_s) for i in cd_f[8]]
     f += [nan if i < 0 else 1e6 * (float(t_pair[i]) - front_s) for i in cd_f[10]]
+    f += list(cd_f[11])
 
     def _rel(x: float | None) -> float:
         return nan if x is None else 1e6 * (x - front_s)

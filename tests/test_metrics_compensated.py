@@ -301,3 +301,26 @@ def test_driven_fraction_tells_a_changed_admittance_from_charge_pulses():
     explained_p, _ = driven_fraction(_flat_cd(pulses + noise, 1e-6), v, dt, scored, onset)
     assert explained_p < 0.2
     assert np.isnan(driven_fraction(_flat_cd(noise), v, dt, scored, n - 10)[0])  # too few samples
+
+
+def test_extra_trace_is_scored_as_a_second_call_would():
+    from detector.metrics.compensated import CompensatedDifference
+
+    rng = np.random.default_rng(23)
+    n = 6000
+    d = rng.normal(0, 1.0, n)
+    d[3000:4000] += 0.4  # a slow excursion
+    sigma = np.where(np.arange(n) < 5800, 1.0 + np.arange(n) / n, np.inf)
+    cd = CompensatedDifference(np.zeros(n), d, sigma, d / sigma, None, 1.0)
+    other = d - 0.3 * np.linspace(0, 1, n)
+    ex = np.zeros(n, bool)
+    ex[2000:2100] = True
+    first = multiscale_z(cd, start=500, pretrigger_samples=400, floor_sigma=0.01, exclude=ex, return_robust=True,
+                         return_onset=True, extra=other, extra_scales=(64, 1024))
+    second = multiscale_z(CompensatedDifference(np.zeros(n), other, sigma, other / sigma, None, 1.0), start=500,
+                          scales=(64, 1024), pretrigger_samples=400, floor_sigma=0.01, exclude=ex)[0]
+    np.testing.assert_array_equal(first[-1], second)  # bit for bit
+    np.testing.assert_array_equal(first[0], multiscale_z(cd, start=500, pretrigger_samples=400, floor_sigma=0.01,
+                                                         exclude=ex)[0])
+    with pytest.raises(ShotcheckError, match="extra_scales"):
+        multiscale_z(cd, start=500, extra=other, extra_scales=(100,))

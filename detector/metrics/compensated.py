@@ -324,21 +324,26 @@ def driven_fraction(cd: CompensatedDifference, test_voltage: np.ndarray, dt: flo
     if idx.size < 32:
         return math.nan, math.nan
     o = int(onset)
-    vv = np.where(np.arange(v.size) >= o, v, 0.0)
+    vv = np.zeros(v.size)
+    vv[o:] = v[o:]
     q = np.cumsum(vv) * dt
     dv = np.gradient(vv, dt)
     w = 1.0 / cd.sigma[idx]
-    d = np.nan_to_num(cd.difference[idx])
-    A = np.stack((q[idx], vv[idx], dv[idx]), axis=1)
-    scale = np.sqrt(np.sum((A * w[:, None]) ** 2, axis=0))
+    d = np.nan_to_num(cd.difference[idx]) * w
+    A = np.stack((q[idx], vv[idx], dv[idx])) * w  # (3, m), weighted
+    scale = np.sqrt(np.einsum("ij,ij->i", A, A))
     scale = np.where(scale > 0, scale, 1.0)
-    coef, *_ = np.linalg.lstsq(A * (w / 1.0)[:, None] / scale, d * w, rcond=None)
-    coef = coef / scale
-    tot = float(np.sum((d * w) ** 2))
+    A /= scale[:, None]
+    # normal equations of three well-scaled columns (lstsq's SVD of an m x 3 matrix costs more; einsum:
+    # no BLAS threads)
+    coef = np.linalg.lstsq(np.einsum("ik,jk->ij", A, A), np.einsum("ik,k->i", A, d), rcond=None)[0]
+    tot = float(np.einsum("i,i->", d, d))
     if tot <= 0:
         return math.nan, math.nan
-    res = float(np.sum(((d - A @ coef) * w) ** 2))
-    peak = float(np.max(np.abs(d))) or 1.0
+    r = d - np.einsum("i,ij->j", coef, A)
+    res = float(np.einsum("i,i->", r, r))
+    coef = coef / scale
+    peak = float(np.max(np.abs(cd.difference[idx]))) or 1.0
     return max(0.0, 1.0 - res / tot), 100.0 * float(coef[0] * q[idx[-1]]) / peak
 
 
@@ -367,7 +372,8 @@ def quantisation_step(samples: np.ndarray) -> float:
 def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ...] = SCALES,
                  pretrigger_samples: int = 0, return_robust: bool = False,
                  floor_sigma: float = 0.0, exclude: np.ndarray | None = None,
-                 return_onset: bool = False) -> tuple[np.ndarray, ...]:
+                 return_onset: bool = False, extra: np.ndarray | None = None,
+                 extra_scales: tuple[int, ...] = ()) -> tuple[np.ndarray, ...]:
     """Largest noise-normalised compensated difference after centred moving averages of several lengths.
 
     Parameters
@@ -398,8 +404,13 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
     robust_z : numpy.ndarray
         Only with ``return_robust``: largest deviation of the averages from their median over the span,
         in units of their own MAD-based spread [1].
+    extra_z : numpy.ndarray
+        Only with ``extra`` (last output): largest ``|mean|/sigma_m`` of that second difference trace
+        (same noise as ``cd``, e.g. ``cd.difference`` with a fitted term removed) at each of
+        ``extra_scales`` (a subset of ``scales``), scored exactly as ``max_z`` would score it; cheaper
+        than a second call, which repeats the running sums of the noise.
     onset_index : numpy.ndarray
-        Only with ``return_onset`` (last output): where each scale's 6-sigma excursion began (-1 if never):
+        Only with ``return_onset``: where each scale's 6-sigma excursion began (-1 if never):
         walking back from the first crossing to the last average whose signed value (sign of the
         excursion) was below one sigma, the last sample of the next window. A change that grows from
         zero crosses 6 sigma late by the time it needs to grow; this estimate is late only by the time
@@ -414,6 +425,8 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
     ``m0 var(mean_m0) / var`` with ``m0 = 8`` (at least 1). The systematic parts of ``sigma`` (timing and
     level tolerance) are averaged like noise, which is why the front is excluded by ``start``.
     """
+    if not set(extra_scales) <= set(scales):
+        raise ShotcheckError(f"multiscale_z: extra_scales {extra_scales} must be among scales {scales}")
     d = np.nan_to_num(cd.difference, nan=0.0)
     fin = np.isfinite(cd.sigma)
     if exclude is not None:
@@ -422,16 +435,15 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
     n = d.size
     var = np.where(fin, cd.sigma, 0.0) ** 2
     n0 = int(pretrigger_samples)
-    c = 1.0
-    if n0 >= 64:
-        seg = d[:n0] - np.mean(d[:n0])
-        m0 = 8
-        k = n0 // m0
-        means = seg[: k * m0].reshape(k, m0).mean(axis=1)
-        v1 = float(np.var(seg))
-        if v1 > 0:
-            c = float(np.clip(m0 * np.var(means) / v1, 1.0, m0))
+    c = _correlation_length(d, n0)
     cs_d = np.concatenate(([0.0], np.cumsum(d)))
+    out_x = np.full(len(extra_scales), np.nan)
+    if extra is not None:
+        d2 = np.nan_to_num(extra, nan=0.0)
+        if exclude is not None:
+            d2 = np.where(fin, d2, 0.0)
+        c2 = _correlation_length(d2, n0)
+        cs_d2 = np.concatenate(([0.0], np.cumsum(d2)))
     cs_v = np.concatenate(([0.0], np.cumsum(var)))
     cs_f = np.concatenate(([0], np.cumsum(fin.astype(np.int64))))
     out_z = np.full(len(scales), np.nan)
@@ -449,6 +461,12 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
         with np.errstate(divide="ignore", invalid="ignore"):
             z = np.where(ok & (sig > 0), np.abs(mean_d) / sig, 0.0)
         out_z[j] = float(z.max()) if z.size else np.nan
+        if extra is not None and m in extra_scales:
+            mean_2 = (cs_d2[start + m:] - cs_d2[start:n - m + 1]) / m
+            sig_2 = sig if c2 == c else np.sqrt(mean_v * min(c2, m) / m + floor_sigma * floor_sigma)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                z_2 = np.where(ok & (sig_2 > 0), np.abs(mean_2) / sig_2, 0.0)
+            out_x[extra_scales.index(m)] = float(z_2.max()) if z_2.size else np.nan
         # the same averages against their own typical size over the span (MAD): blind to a change that
         # lasts most of the span, but immune to noise that does not average down (interference, drift)
         # (averages over m samples barely change from one sample to the next: every (m // 8)-th serves
@@ -476,7 +494,24 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
                 else:  # excursion already under way where scoring (re)starts: no later than there
                     out_b[j] = start + k + 1
     out: tuple[np.ndarray, ...] = (out_z, out_i, out_zr) if return_robust else (out_z, out_i)
-    return (*out, out_b) if return_onset else out
+    if return_onset:
+        out = (*out, out_b)
+    return (*out, out_x) if extra is not None else out
+
+
+def _correlation_length(d: np.ndarray, n0: int) -> float:
+    """Correlation length of the noise in samples from the pre-trigger: ``m0 var(mean_m0) / var``
+    with ``m0 = 8``, within 1..8 (1 with fewer than 64 pre-trigger samples)."""
+    c = 1.0
+    if n0 >= 64:
+        seg = d[:n0] - np.mean(d[:n0])
+        m0 = 8
+        k = n0 // m0
+        means = seg[: k * m0].reshape(k, m0).mean(axis=1)
+        v1 = float(np.var(seg))
+        if v1 > 0:
+            c = float(np.clip(m0 * np.var(means) / v1, 1.0, m0))
+    return c
 
 
 def tone_aware_offsets(pretrigger: np.ndarray, dt: float, freqs_Hz: list[float], *,

@@ -47,8 +47,23 @@ FAULT_TIME_LEVELS = 2
 METHODS = {"swt": "stationary (undecimated) transform, pywt.swt", "dwt": "discrete transform, pywt.wavedec"}
 
 
+#: Samples per block over which the local noise of a row (``noise_segments``) is held constant.
+_PROFILE_BLOCK = 64
+
+
 class BoundaryEffectWarning(UserWarning):
     """The requested level is so deep that every coefficient feels the record ends."""
+
+
+@functools.lru_cache(maxsize=1)
+def _discrete_names() -> frozenset[str]:
+    return frozenset(pywt.wavelist(kind="discrete"))
+
+
+@functools.lru_cache(maxsize=16)
+def _wavelet(name: str) -> pywt.Wavelet:
+    """The wavelet of a name, made once (building it costs more than a comparison's transforms' setup)."""
+    return pywt.Wavelet(name)
 
 
 def resolve_wavelet(wavelet: str | pywt.Wavelet) -> pywt.Wavelet:
@@ -70,9 +85,9 @@ def resolve_wavelet(wavelet: str | pywt.Wavelet) -> pywt.Wavelet:
     """
     if isinstance(wavelet, pywt.Wavelet):
         return wavelet
+    if isinstance(wavelet, str) and wavelet in _discrete_names():
+        return _wavelet(wavelet)
     names = pywt.wavelist(kind="discrete")
-    if isinstance(wavelet, str) and wavelet in names:
-        return pywt.Wavelet(wavelet)
     close = difflib.get_close_matches(str(wavelet), names, n=3)
     hint = f" Did you mean {', '.join(repr(c) for c in close)}?" if close else ""
     raise ShotcheckError(
@@ -371,8 +386,9 @@ def wavelet_difference(
         and the first times are taken, so that the map is in units of the local noise; samples where it
         is not finite are set to zero. Energies stay those of the plain difference.
     scored : array_like of bool, optional
-        Samples where peaks and first times are taken and the per-row noise is measured (default all);
-        e.g. the span after the front, without an intended chop.
+        Samples where peaks are taken and the per-row noise is measured (default all), e.g. the span
+        after the front without an intended chop; first times too unless ``noise_scale`` is given (the
+        map is then in units of the local noise everywhere, and a change on the front is found there).
     noise_segments : int
         With ``noise_scale`` or ``scored``: the scored samples are cut into this many consecutive parts
         of equal count, each row's noise is measured (MAD) in each part and interpolated between the
@@ -462,34 +478,38 @@ def wavelet_difference(
     # the approximation is centred on its median first. Stationary coefficients of a level have the
     # same distribution as the decimated ones (same filters), so one sigma serves both.
     n_seg = int(check_range("noise_segments", noise_segments, 1, None))
+    prof: np.ndarray | None = None
     if local and mask.sum() >= 16:
         # noise of each row over the scored samples of the (locally scaled) map, per part; every 4th
         # sample serves the median as well as all (neighbouring stationary coefficients are correlated).
         # A row is cut into at most as many parts as leave 32 independent coefficients in each (coarse
         # rows have few: one per 2**j samples).
-        idx = np.flatnonzero(mask)
+        idx4 = np.flatnonzero(mask)[::4]
         mad = np.empty(lev + 1)
-        prof = None
-        for j in range(lev + 1):  # loop over rows
-            k_j = max(1, min(n_seg, idx.size // (32 * 2 ** min(j + 1, lev))))
-            parts = np.array_split(idx, k_j)
-            row = dmap_raw[j]
-            if j < lev:
-                m_p = np.array([median1d(row[part[::4]]) for part in parts])
-            else:
-                m_p = np.array([median1d(np.abs(row[part[::4]] - median1d(row[part[::4]]))) for part in parts])
+        k_rows = np.array([max(1, min(n_seg, 4 * idx4.size // (32 * 2 ** min(j + 1, lev)))) for j in range(lev + 1)])
+        for k_j in np.unique(k_rows):  # loop over a few part counts; rows with one count at once
+            rows_j = np.flatnonzero(k_rows == k_j)
+            L = idx4.size // k_j
+            M = idx4[: k_j * L].reshape(k_j, L)  # the parts, as sample indices
+            vals = dmap_raw[rows_j[:, None, None], M[None, :, :]]  # (rows, parts, L), no copy of whole rows
+            approx = rows_j == lev
+            m_p = np.median(vals, axis=-1)
+            if approx.any():  # the approximation is centred on its median first
+                va = vals[approx]
+                m_p[approx] = np.median(np.abs(va - np.median(va, axis=-1, keepdims=True)), axis=-1)
             m_p /= MAD_NORMAL_CONSTANT
-            mad[j] = float(np.median(m_p))
+            mad[rows_j] = np.median(m_p, axis=-1)
             if k_j > 1:
-                if prof is None:
-                    prof = np.ones((lev + 1, n))
-                centres = np.array([float(np.mean(part)) for part in parts])
-                prof[j] = np.interp(np.arange(n), centres, m_p) / mad[j] if mad[j] > 0 else 1.0
+                if prof is None:  # relative noise per block of _PROFILE_BLOCK samples
+                    prof = np.ones((lev + 1, -(-n // _PROFILE_BLOCK)))
+                centres = (np.arange(prof.shape[1]) + 0.5) * _PROFILE_BLOCK
+                rel = m_p / np.where(mad[rows_j] > 0, mad[rows_j], 1.0)[:, None]
+                c_p = M.mean(axis=1)
+                # linear interpolation between the parts' centres (held beyond them)
+                prof[rows_j] = [np.interp(centres, c_p, r_p) for r_p in rel]
         if noise_scale is not None:  # the floor in the map's units
             typical = s_n[mask & ok]
-            ref_rms = ref_rms / (float(np.median(typical)) if typical.size else 1.0)
-        if prof is not None:  # each row in units of its own local noise
-            dmap_raw = dmap_raw / np.maximum(prof, 1e-3)
+            ref_rms = ref_rms / (median1d(typical) if typical.size else 1.0)
     else:
         mad = np.array([median1d(np.abs(c[1])) for c in rows[:-1]]
                        + [median1d(np.abs(rows[-1][1] - median1d(rows[-1][1])))]) / MAD_NORMAL_CONSTANT
@@ -499,12 +519,22 @@ def wavelet_difference(
         energy_ratio = np.where(ref_energy > 0.0, dif_energy / np.where(ref_energy > 0, ref_energy, 1.0),
                                 np.where(dif_energy > 0.0, np.inf, 0.0))
     dmap = dmap_raw
-    dmap /= sigma[:, None]
+    if prof is not None:  # each row in units of its own local noise, block by block
+        np.maximum(prof, 1e-3, out=prof)
+        prof *= sigma[:, None]
+        nf = n // _PROFILE_BLOCK
+        dmap[:, : nf * _PROFILE_BLOCK].reshape(lev + 1, nf, _PROFILE_BLOCK)[...] /= prof[:, :nf, None]
+        if nf < prof.shape[1]:
+            dmap[:, nf * _PROFILE_BLOCK:] /= prof[:, nf:]
+    else:
+        dmap /= sigma[:, None]
     scored_map = dmap if scored is None else np.where(mask[None, :], dmap, 0.0)
     peak = scored_map.max(axis=1)
     j = np.arange(1, lev + 2)
     half_support = np.ceil((w.dec_len - 1) * (2.0 ** np.minimum(j, lev) - 1) / 2.0)
-    first_idx = _first_event_times(scored_map, k_sigma, half_support)
+    # in local noise units the map is comparable everywhere, so the first significant difference is
+    # looked for over the whole record (a fault on the front is found there); peaks stay on the scored span
+    first_idx = _first_event_times(dmap if noise_scale is not None else scored_map, k_sigma, half_support)
     any_over = first_idx >= 0
     times = t0_s + np.arange(n) * dt
     first_time = np.where(any_over, times[np.maximum(first_idx, 0)], np.nan)

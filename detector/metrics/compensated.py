@@ -35,6 +35,7 @@ N. Wiener, Extrapolation, Interpolation and Smoothing of Stationary Time Series,
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 
 import numpy as np
@@ -581,6 +582,14 @@ def _fit_tone(x: np.ndarray, t: np.ndarray, f: float, B: np.ndarray | None = Non
     return float(np.hypot(coef[0], coef[1])), float(np.arctan2(coef[1], coef[0])), coef
 
 
+@functools.lru_cache(maxsize=8)
+def _hann(m: int) -> np.ndarray:
+    """``np.hanning(m)``, made once per length (read-only)."""
+    w = np.hanning(m)
+    w.flags.writeable = False
+    return w
+
+
 def remove_stationary_tones(
     d: np.ndarray, dt: float, span: np.ndarray, pretrigger_samples: int, *, max_tones: int = 3,
     min_periods: float = 2.0, stationarity: float = 0.35,
@@ -626,7 +635,7 @@ def remove_stationary_tones(
     f_min = min_periods / (third * dt)
     tones: list[tuple[float, float]] = []
     n_fft = sfft.next_fast_len(2 * m, real=True)
-    win = np.hanning(m)
+    win = _hann(m)
     freqs = sfft.rfftfreq(n_fft, dt)
     for _ in range(max_tones):  # loop over a few tones
         mag = np.abs(sfft.rfft((x - x.mean()) * win, n_fft))
@@ -648,11 +657,13 @@ def remove_stationary_tones(
         amps = np.array([q[0] for q in parts])
         phases = np.array([q[1] for q in parts])
         dphase = float(np.max(np.abs(np.angle(np.exp(1j * (phases - ph))))))
+        # interference: the same amplitude and phase in every third of the span (checked first: it is
+        # cheap, and a record without interference fails it), and significant against the noise
+        if not (np.all(np.abs(amps - amp) <= stationarity * amp) and dphase < 0.6):
+            break
         resid = x - coef @ B
         noise = _robust_sigma(np.diff(resid)) / math.sqrt(2.0)
-        significant = amp > 4.0 * noise * math.sqrt(2.0 / m) * 3.0
-        # interference: the same amplitude and phase in every third of the span
-        if not (significant and np.all(np.abs(amps - amp) <= stationarity * amp) and dphase < 0.6):
+        if not amp > 4.0 * noise * math.sqrt(2.0 / m) * 3.0:
             break
         tone = coef[0] * np.cos(2 * np.pi * f * np.arange(out.size) * dt) + coef[1] * np.sin(
             2 * np.pi * f * np.arange(out.size) * dt)

@@ -145,7 +145,7 @@ def test_breakdown_after_chopping_is_indicated(kw, seed):
 
 
 @pytest.mark.xfail(strict=False, reason="known shortfall: a 5-turn short (0.5 % of the winding) after the "
-                   "chop, against a full-wave reference, is found in 60-70 % of cases (README, sensitivity "
+                   "chop, against a full-wave reference, is found in 60-75 % of cases (README, sensitivity "
                    "table: chopped test shots against a full reference); compare with a reduced chopped wave")
 def test_five_turn_breakdown_after_chopping_is_indicated_in_every_realisation():
     for seed in (0, 1, 2):

@@ -44,8 +44,8 @@ import scipy.fft as sfft
 from .._stats import median1d
 from .._validation import ShotcheckError, check_range
 
-__all__ = ["CompensatedDifference", "compensated_difference", "core_term", "driven_fraction", "multiscale_z", "quantisation_step",
-           "remove_stationary_tones", "tone_aware_offsets", "SCALES"]
+__all__ = ["CompensatedDifference", "compensated_difference", "core_term", "driven_fraction", "multiscale_z",
+           "quantisation_step", "remove_stationary_tones", "tone_aware_offsets", "SCALES"]
 
 #: Averaging lengths of :func:`multiscale_z` [samples]: a slow change of a few per mille of the peak
 #: current lies in the noise sample by sample but stands out once averaged over microseconds.

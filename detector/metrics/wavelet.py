@@ -464,12 +464,17 @@ def wavelet_difference(
     mask = np.ones(n, dtype=bool) if scored is None else np.asarray(scored, dtype=bool)
     if mask.shape != (n,):
         raise ShotcheckError(f"scored must have one value per sample ({n}), got shape {mask.shape}")
+
+    def map_rows() -> list[np.ndarray]:
+        """DWT rows of the difference the map is made of (scaled by the local noise if asked)."""
+        if noise_scale is None:
+            return [c[1] for c in rows]
+        return [c[0] for c in _dwt_rows(xd[None, :], w, lev, mode)]
+
     if method == "swt":
         dmap_raw = np.abs(_swt_rows(xd, w, lev))
-    elif noise_scale is not None:
-        dmap_raw = np.abs(_dwt_map([c[0] for c in _dwt_rows(xd[None, :], w, lev, mode)], w, lev, mode, n))
     else:
-        dmap_raw = np.abs(_dwt_map([c[1] for c in rows], w, lev, mode, n))
+        dmap_raw = np.abs(_dwt_map(map_rows(), w, lev, mode, n))
     counts = np.array([c.shape[-1] for c in rows])
     ref_energy = np.array([np.einsum("i,i->", c[0], c[0]) for c in rows])  # einsum: no BLAS threads
     dif_energy = np.array([np.einsum("i,i->", c[1], c[1]) for c in rows])
@@ -486,7 +491,8 @@ def wavelet_difference(
         # rows have few: one per 2**j samples).
         idx4 = np.flatnonzero(mask)[::4]
         mad = np.empty(lev + 1)
-        k_rows = np.array([max(1, min(n_seg, 4 * idx4.size // (32 * 2 ** min(j + 1, lev)))) for j in range(lev + 1)])
+        k_rows = np.array([max(1, min(n_seg, 4 * idx4.size // (32 * 2 ** min(j + 1, lev))))
+                           for j in range(lev + 1)])
         for k_j in np.unique(k_rows):  # loop over a few part counts; rows with one count at once
             rows_j = np.flatnonzero(k_rows == k_j)
             L = idx4.size // k_j
@@ -507,12 +513,13 @@ def wavelet_difference(
                 c_p = M.mean(axis=1)
                 # linear interpolation between the parts' centres (held beyond them)
                 prof[rows_j] = [np.interp(centres, c_p, r_p) for r_p in rel]
-        if noise_scale is not None:  # the floor in the map's units
-            typical = s_n[mask & ok]
-            ref_rms = ref_rms / (median1d(typical) if typical.size else 1.0)
-    else:
-        mad = np.array([median1d(np.abs(c[1])) for c in rows[:-1]]
-                       + [median1d(np.abs(rows[-1][1] - median1d(rows[-1][1])))]) / MAD_NORMAL_CONSTANT
+    else:  # from the DWT rows of the difference the map is made of
+        d_rows = map_rows()
+        mad = np.array([median1d(np.abs(c)) for c in d_rows[:-1]]
+                       + [median1d(np.abs(d_rows[-1] - median1d(d_rows[-1])))]) / MAD_NORMAL_CONSTANT
+    if noise_scale is not None:  # the floor in the map's units
+        typical = s_n[mask & ok]
+        ref_rms = ref_rms / (median1d(typical) if typical.size else 1.0)
     sigma = np.maximum(mad, sigma_floor_rel * ref_rms)
     sigma = np.where(sigma > 0.0, sigma, np.finfo(float).tiny)
     with np.errstate(invalid="ignore", divide="ignore"):

@@ -71,24 +71,30 @@ class _FlatForest:
 
     def add_to(self, X: np.ndarray, raw: np.ndarray) -> None:
         """Add the leaf values of every tree for the rows of ``X`` to ``raw`` (n_samples, n_outputs)."""
-        # each node's decision for each row at once (NaN: the side learned for missing values), then
-        # the walk from the roots is one lookup per level
-        xv = X[:, self.feature]
-        with np.errstate(invalid="ignore"):
-            go_left = (xv <= self.threshold) | (np.isnan(xv) & self.missing_left)
-        nxt = np.where(go_left, self.left, self.right)
         if X.shape[0] == 1:
+            # each node's decision at once (NaN: the side learned for missing values), then the walk
+            # from the roots is one lookup per level
+            xv = X[0, self.feature]
+            with np.errstate(invalid="ignore"):
+                go_left = (xv <= self.threshold) | (np.isnan(xv) & self.missing_left)
+            step = np.where(go_left, self.left, self.right)
             node = self.roots
-            step = nxt[0]
             for _ in range(self.depth):
                 node = step[node]
             values = self.value[node][None, :]
         else:
-            node = np.broadcast_to(self.roots, (X.shape[0], self.roots.size))
-            rows = np.arange(X.shape[0])[:, None]
+            # several rows (the onset candidates of a pair): deciding every node for every row costs
+            # more than deciding, level by level, only the nodes the rows are at
+            n, n_features = X.shape
+            flat = X.ravel()
+            node = np.tile(self.roots, n)
+            offset = np.repeat(np.arange(n, dtype=np.intp) * n_features, self.roots.size)
             for _ in range(self.depth):
-                node = nxt[rows, node]
-            values = self.value[node]
+                xv = flat[offset + self.feature[node]]
+                with np.errstate(invalid="ignore"):
+                    go_left = (xv <= self.threshold[node]) | (np.isnan(xv) & self.missing_left[node])
+                node = np.where(go_left, self.left[node], self.right[node])
+            values = self.value[node].reshape(n, self.roots.size)
         for k, trees in enumerate(self.trees_of):
             # running sum from the current value, tree by tree: the same additions as scikit-learn's loop
             seq = np.concatenate([raw[:, k : k + 1], values[:, trees]], axis=1)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -15,6 +16,7 @@ from detector.metrics.timedomain import (
     noise_floor,
     time_domain_metrics,
     voltage_collapse,
+    voltage_steps,
     voltage_windows,
     window_deviations,
 )
@@ -191,3 +193,60 @@ def test_collapse_instant_of_a_slow_noisy_chop():
         t_true = (n_lead - 1) * dt  # last sample at the crest level: the ramp starts there
         assert abs(c.time_s - t_true) < 2.5 * dt, (seed, c)
         assert 0.0 < c.fall_time_s < 2 * n_fall * dt
+
+
+def test_noise_under_one_code_uses_the_rms_not_a_zero_mad():
+    """Pre-trigger noise smaller than one recorder code: most samples sit on one code, the MAD is 0 and
+    the sigma used must come from the rms (it once fell to the 1e-5 floor, overstating every voltage
+    deviation in noise units about 70-fold). Difference of two independent records: the rms add in power."""
+    rng = np.random.default_rng(3)
+    code = 2e-3  # of the voltage amplitude
+    recs = []
+    for amp, seed in ((300e3, 1), (600e3, 2)):
+        rec = make_record(amplitude_V=amp, seed=seed)
+        q = code * amp
+        v = np.round((rec.voltage.samples + rng.normal(0.0, 0.3 * q, rec.n_samples)) / q) * q
+        chans = tuple(c.with_samples(v) if c is rec.voltage else c for c in rec.channels)
+        recs.append(dataclasses.replace(rec, channels=chans))
+    pair = align_pair(*recs)
+    assert pair.ref_noise.voltage_mad_pu == 0.0 and pair.test_noise.voltage_mad_pu == 0.0
+    m = time_domain_metrics(pair)
+    expected = math.hypot(pair.ref_noise.voltage_rms_pu, pair.test_noise.voltage_rms_pu)
+    assert m.voltage_sigma_pu == pytest.approx(expected)
+    assert m.voltage_sigma_pu > 1e-4  # far above the 1e-5 floor
+    assert m.voltage["all"].max_sigma < 10.0  # healthy pair: a few sigma, not hundreds
+
+
+@pytest.mark.parametrize("L_samples", [4, 16, 64])
+def test_voltage_step_score_follows_the_two_sample_mean_statistic(L_samples):
+    """A step of height A in white noise sigma: the difference of the means of L samples after and before
+    has standard deviation sigma*sqrt(2/L) (variance of a difference of two independent means; any
+    statistics textbook), so the score at the step is A / (sigma sqrt(2/L)); on noise alone the largest
+    score over 10 000 samples stays below the threshold of 6."""
+    rng = np.random.default_rng(L_samples)
+    n, k0, sigma = 10000, 6000, 1e-3
+    ref = np.zeros(n)  # flat reference: no level or timing tolerance
+    noise = rng.normal(0.0, sigma, n)
+    ((z0, i0),) = voltage_steps(noise, ref, sigma, DT, scales_s=(L_samples * DT,), start=0, stop=n)
+    assert z0 < 6.0 and i0 == -1
+    A = 12.0 * sigma * math.sqrt(2.0 / L_samples)
+    dv = noise + A * (np.arange(n) >= k0)
+    ((z, i),) = voltage_steps(dv, ref, sigma, DT, scales_s=(L_samples * DT,), start=0, stop=n)
+    assert 9.0 < z < 16.0  # 12 expected, noise of the two means adds about +-1 (and the max a little)
+    assert k0 - L_samples <= i <= k0
+
+
+def test_voltage_steps_tolerate_level_and_timing_errors():
+    """The reference wave itself, scaled by 1.0005 and shifted by 1 ns (within the tolerances of 0.1 %
+    and 2 ns), scores below the threshold; the same plus a 1 % step at 30 us scores above it there."""
+    t = np.arange(20000) * DT
+    v = double_exponential(t, 1.0, 2e-6)
+    sigma = 1e-4
+    rng = np.random.default_rng(0)
+    shifted = 1.0005 * double_exponential(t - 1e-9, 1.0, 2e-6) + rng.normal(0.0, sigma, t.size)
+    dv = shifted - v
+    scores = voltage_steps(dv, v, sigma, DT, scales_s=(40e-9, 160e-9), start=150, stop=19000)
+    assert all(z < 6.0 and i == -1 for z, i in scores)
+    dv2 = dv - 0.01 * (t >= 30e-6)
+    scores2 = voltage_steps(dv2, v, sigma, DT, scales_s=(40e-9, 160e-9), start=150, stop=19000)
+    assert all(z > 6.0 and abs(i * DT - 30e-6) < 0.2e-6 for z, i in scores2)

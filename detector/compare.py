@@ -35,6 +35,7 @@ from .features import (
 from .model import EVENT_CLASSES, ShotModel, load_model
 from .record import Record
 from .scoring import exceeded
+from .waveshape import WaveShape
 
 __all__ = ["Verdict", "compare", "default_model", "DEFAULT_MODEL_PATH"]
 
@@ -167,6 +168,7 @@ def compare(
     test: Record,
     *,
     model: ShotModel | str | Path | None = None,
+    reference_shape: WaveShape | None = None,
 ) -> Verdict:
     """Compare a test shot with its reference shot.
 
@@ -178,6 +180,9 @@ def compare(
         Full-level full or chopped wave (voltage and neutral current).
     model : ShotModel or path, optional
         Model to use; default the bundled model.
+    reference_shape : WaveShape, optional
+        ``evaluate_waveshape(reference)`` if the caller has it already (a service comparing many shots
+        with one reference keeps it); default: evaluated here. The verdict is the same either way.
 
     Returns
     -------
@@ -193,7 +198,7 @@ def compare(
     m = model if isinstance(model, ShotModel) else default_model(model)
     if tuple(m.feature_names) != FEATURE_NAMES:
         raise ShotcheckError("the model's feature names differ from this shotcheck's; retrain the model")
-    a = extract(reference, test)
+    a = extract(reference, test, reference_shape=reference_shape)
     x = a.features.reshape(1, -1)
     # one sample: all trees walked at once, without per-tree calls (see detector._fastpredict)
     proba_all, loc_all, t_all = _fastpredict.score(m, x)

@@ -7,6 +7,7 @@ commit the verdict, and only then return. The HTTP routes and :mod:`detector.wat
 
 from __future__ import annotations
 
+import collections
 import functools
 import hashlib
 import json
@@ -200,7 +201,7 @@ def _thread_controller() -> Any:
     return controller
 
 
-def _single_threaded_compare(reference: Record, test: Record, model: Any) -> Any:
+def _single_threaded_compare(reference: Record, test: Record, model: Any, reference_shape: Any = None) -> Any:
     """``detector.compare.compare`` with OpenMP limited to one thread in the calling thread.
 
     BLAS is already single-threaded in a service process (:func:`_thread_controller`); OpenMP thread
@@ -209,7 +210,12 @@ def _single_threaded_compare(reference: Record, test: Record, model: Any) -> Any
     from ..compare import compare
 
     with _thread_controller().limit(limits=1, user_api="openmp"):
-        return compare(reference, test, model=model)
+        return compare(reference, test, model=model, reference_shape=reference_shape)
+
+
+#: Reference records (read, and their IEC 60060-1 evaluation) kept per process: every full-level shot
+#: of a sequence is compared with the same reference.
+REFERENCE_CACHE_SIZE = 8
 
 
 def _finite_or_none(obj: Any) -> Any:
@@ -242,6 +248,41 @@ class Engine:
         self.model_id = _model_id(model_path, getattr(model, "card", {}))
         self._seq_locks: dict[str, threading.Lock] = {}
         self._seq_guard = threading.Lock()
+        self._references: collections.OrderedDict[tuple[Any, ...], tuple[Record, Any]] = collections.OrderedDict()
+        self._references_guard = threading.Lock()
+
+    def reference(self, rec: StoredRecord, *, field: str = "reference", voltage_channel: str | None = None,
+                  current_channel: str | None = None) -> tuple[Record, Any]:
+        """A stored reference record read, with its wave shape (None if it cannot be evaluated).
+
+        Kept for the next comparisons with the same reference (the last :data:`REFERENCE_CACHE_SIZE`).
+        Stored records never change (their digest is their content), so the key is the digest, the
+        client's file name (it appears in messages) and the channel choice.
+
+        Raises
+        ------
+        InputError
+            As :meth:`read` (failures are not kept).
+        """
+        from ..waveshape import evaluate_waveshape
+
+        key = (rec.digest, rec.name, field, voltage_channel, current_channel)
+        with self._references_guard:
+            hit = self._references.get(key)
+            if hit is not None:
+                self._references.move_to_end(key)
+                return hit
+        r = self.read(rec, field=field, voltage_channel=voltage_channel, current_channel=current_channel)
+        try:
+            shape = evaluate_waveshape(r)
+        except ShotcheckError:
+            shape = None  # compare() evaluates it again and says why in its warnings
+        with self._references_guard:
+            self._references[key] = (r, shape)
+            self._references.move_to_end(key)
+            while len(self._references) > REFERENCE_CACHE_SIZE:
+                self._references.popitem(last=False)
+        return r, shape
 
     # ---- records --------------------------------------------------------------------------------
     def read(self, rec: StoredRecord, *, field: str, voltage_channel: str | None = None,
@@ -330,9 +371,9 @@ class Engine:
     def _run(self, cid: str, reference: StoredRecord, test: StoredRecord, opts: Mapping[str, str],
              actor: str) -> dict[str, Any]:
         try:
-            ref = self.read(reference, field="reference", **opts)
+            ref, ref_shape = self.reference(reference, field="reference", **opts)
             tst = self.read(test, field="test", **opts)
-            verdict = _finite_or_none(_single_threaded_compare(ref, tst, self.model).to_dict())
+            verdict = _finite_or_none(_single_threaded_compare(ref, tst, self.model, ref_shape).to_dict())
         except InputError as exc:
             self.store.fail_comparison(cid, exc.to_dict(), actor=actor)
             raise
@@ -351,9 +392,9 @@ class Engine:
         ref_rec = self.store.get_record(row["reference_digest"])
         test_rec = self.store.get_record(row["test_digest"])
         assert ref_rec is not None and test_rec is not None
-        ref = self.read(ref_rec, field="reference", **row["options"])
+        ref, ref_shape = self.reference(ref_rec, field="reference", **row["options"])
         tst = self.read(test_rec, field="test", **row["options"])
-        return _single_threaded_compare(ref, tst, self.model), row
+        return _single_threaded_compare(ref, tst, self.model, ref_shape), row
 
     def recover(self) -> int:
         """Finish what a crash left undone: pending comparisons, and shots stored without their comparison.

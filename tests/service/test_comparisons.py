@@ -69,6 +69,48 @@ def test_multipart_comparison_is_the_domain_verdict_and_is_stored(client, record
     assert st.integrity_check() == "ok"
 
 
+def test_a_second_shot_against_one_reference_reuses_its_evaluation_with_the_same_verdict(
+        client, record_files, model_path, monkeypatch, tmp_path):
+    """Every full-level shot of a sequence is compared with one reference: the process keeps the read
+    reference and its IEC 60060-1 evaluation (stored records never change) and the verdict stays the
+    domain API's. A copy of the reference under another file name is read anew (its name appears in
+    the messages)."""
+    import shutil
+
+    import detector.waveshape as ws
+
+    calls: list[str] = []
+    real = ws.evaluate_waveshape
+
+    def counting(record, *a, **k):
+        calls.append(str(record.source))
+        return real(record, *a, **k)
+
+    import detector.features as features
+
+    monkeypatch.setattr(ws, "evaluate_waveshape", counting)
+    monkeypatch.setattr(features, "evaluate_waveshape", counting)
+    ref = record_files["reduced_csv"]
+    bodies = []
+    for test in (record_files["full_cfg"], record_files["full_cff"]):
+        r = _post_pair(client, ref, test)
+        assert r.status_code == 201, r.text
+        bodies.append(r.json())
+    # the reference is evaluated once for both comparisons, each test shot once (inside compare)
+    assert calls.count(ref[0].name) == 1, calls
+    assert calls.count(record_files["full_cfg"][0].name) == 1 and calls.count(record_files["full_cff"][0].name) == 1
+    with threadpool_limits(limits=1, user_api="openmp"):
+        direct = compare(read(ref[0]), read(record_files["full_cff"][0]), model=load_model(model_path)).to_dict()
+    direct = json.loads(json.dumps(direct).replace("NaN", "null"))
+    diffs = _differences({k: bodies[1][k] for k in VERDICT_KEYS}, direct)
+    assert not diffs, "\n".join(diffs)
+    renamed = tmp_path / "TX_01_reduced_75_copy.csv"
+    shutil.copyfile(ref[0], renamed)
+    r = _post_pair(client, [renamed], record_files["chopped_cff"])  # a new pair (the same one would be a re-post)
+    assert r.status_code == 201, r.text
+    assert r.json()["reference_name"] == renamed.name and calls.count(renamed.name) == 1
+
+
 def test_reposting_the_same_content_is_idempotent(client, record_files, settings):
     ref, test = record_files["reduced_csv"], record_files["full_cff"]
     first = _post_pair(client, ref, test)

@@ -214,8 +214,14 @@ def _single_threaded_compare(reference: Record, test: Record, model: Any, refere
 
 
 #: Reference records (read, and their IEC 60060-1 evaluation) kept per process: every full-level shot
-#: of a sequence is compared with the same reference.
+#: of a sequence is compared with the same reference. At most this many, and at most
+#: :data:`REFERENCE_CACHE_BYTES` of samples (uploads may be large).
 REFERENCE_CACHE_SIZE = 8
+REFERENCE_CACHE_BYTES = 256 * 2**20
+
+
+def _record_bytes(record: Record) -> int:
+    return sum(int(c.samples.nbytes) for c in record.channels)
 
 
 def _finite_or_none(obj: Any) -> Any:
@@ -255,7 +261,8 @@ class Engine:
                   current_channel: str | None = None) -> tuple[Record, Any]:
         """A stored reference record read, with its wave shape (None if it cannot be evaluated).
 
-        Kept for the next comparisons with the same reference (the last :data:`REFERENCE_CACHE_SIZE`).
+        Kept for the next comparisons with the same reference (the last :data:`REFERENCE_CACHE_SIZE`,
+        within :data:`REFERENCE_CACHE_BYTES` of samples; a larger record is not kept).
         Stored records never change (their digest is their content), so the key is the digest, the
         client's file name (it appears in messages) and the channel choice.
 
@@ -277,11 +284,13 @@ class Engine:
             shape = evaluate_waveshape(r)
         except ShotcheckError:
             shape = None  # compare() evaluates it again and says why in its warnings
-        with self._references_guard:
-            self._references[key] = (r, shape)
-            self._references.move_to_end(key)
-            while len(self._references) > REFERENCE_CACHE_SIZE:
-                self._references.popitem(last=False)
+        if _record_bytes(r) <= REFERENCE_CACHE_BYTES:
+            with self._references_guard:
+                self._references[key] = (r, shape)
+                self._references.move_to_end(key)
+                while (len(self._references) > REFERENCE_CACHE_SIZE
+                       or sum(_record_bytes(v[0]) for v in self._references.values()) > REFERENCE_CACHE_BYTES):
+                    self._references.popitem(last=False)
         return r, shape
 
     # ---- records --------------------------------------------------------------------------------

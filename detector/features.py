@@ -47,7 +47,7 @@ from .waveshape import WaveShape, evaluate_waveshape
 __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "14"
+SCHEMA_VERSION = "15"
 
 #: Averaging lengths [samples] scored again after the core term is removed (it is slow).
 CORE_SCALES = (64, 256, 1024)
@@ -108,7 +108,7 @@ def _names() -> tuple[str, ...]:
     n += ["td_i_onset_after_front_us", "td_v_onset_after_front_us", "td_collapse_after_front_us"]
     # abrupt steps of the voltage difference: a breakdown changes the generator's load at once
     n += [f"vs_{_ns(s)}ns_z" for s in VOLTAGE_STEP_SCALES_S]
-    n += [f"vs_{_ns(s)}ns_first_after_front_us" for s in VOLTAGE_STEP_SCALES_S]
+    n += [f"vs_{_ns(s)}ns_step_after_front_us" for s in VOLTAGE_STEP_SCALES_S]
     n += ["ws_front_time_change", "ws_time_to_half_change", "ws_test_voltage_ratio_change",
           "noise_i_ref_ppm", "noise_i_test_ppm", "sample_rate_MHz"]
     return tuple(n)
@@ -448,8 +448,8 @@ def extract(
     steps = voltage_steps(td.dv_pu, pair.ref_voltage_pu, td.voltage_sigma_pu, dt, scales_s=VOLTAGE_STEP_SCALES_S,
                           start=int(np.searchsorted(t_pair, front_s + FRONT_WINDOW_S[0])),
                           stop=int(np.searchsorted(t_pair, td.compared_until_s, side="right")))
-    f += [z for z, _ in steps]
-    f += [nan if i < 0 else 1e6 * (float(t_pair[i]) - front_s) for _, i in steps]
+    f += [st.max_score for st in steps]
+    f += [nan if st.step_index < 0 else 1e6 * (float(t_pair[st.step_index]) - front_s) for st in steps]
     peak_i = float(np.max(np.abs(pair.ref_current_pu))) or 1.0
     f += [
         _ratio_change(_get(ws_r, "front_time_s"), _get(ws_t, "front_time_s")),

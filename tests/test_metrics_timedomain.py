@@ -217,6 +217,63 @@ def test_noise_under_one_code_uses_the_rms_not_a_zero_mad():
     assert m.voltage["all"].max_sigma < 10.0  # healthy pair: a few sigma, not hundreds
 
 
+def _steps_by_loops(dv, vr, sigma, dt, L, start, stop, k_sigma=6.0, tt=2e-9, lt=1e-3):
+    """The statistic of voltage_steps written out sample by sample (means of the two windows; the
+    derivative as the backward difference, zero at the first sample)."""
+    d = np.concatenate(([0.0], np.diff(vr))) / dt
+    ks = list(range(max(start, L), min(stop, dv.size) - L + 1))
+    scores = []
+    for k in ks:
+        h = np.mean(dv[k:k + L]) - np.mean(dv[k - L:k])
+        hv = lt * (np.mean(vr[k:k + L]) - np.mean(vr[k - L:k]))
+        hs = tt * (np.mean(d[k:k + L]) - np.mean(d[k - L:k]))
+        scores.append(abs(h) / math.sqrt(sigma ** 2 * 2.0 / L + hv ** 2 + hs ** 2))
+    return ks, np.array(scores)
+
+
+@pytest.mark.parametrize("L_samples", [2, 5, 16])
+def test_voltage_steps_equal_the_statistic_written_out(L_samples):
+    """The cumulative-sum form gives the same scores, first crossing and step position as the two
+    window means computed sample by sample, on a steep non-flat reference with noise, a level and a
+    timing error, and a step (the tolerance terms matter on the front)."""
+    rng = np.random.default_rng(L_samples)
+    t = np.arange(3000) * DT
+    vr = double_exponential(t, 1.0, 2e-6)
+    sigma = 3e-4
+    dv = 2e-3 * vr + 0.05 * np.gradient(vr) + rng.normal(0.0, sigma, t.size) + 8e-3 * (t >= 20e-6)
+    start, stop = 150, 2800
+    (res,) = voltage_steps(dv, vr, sigma, DT, scales_s=(L_samples * DT,), start=start, stop=stop)
+    ks, scores = _steps_by_loops(dv, vr, sigma, DT, L_samples, start, stop)
+    assert res.max_score == pytest.approx(scores.max(), rel=1e-9)
+    over = np.flatnonzero(scores > 6.0)
+    assert over.size and res.first_index == ks[over[0]]
+    j = over[0]
+    assert res.step_index == ks[j + int(np.argmax(scores[j:j + L_samples]))]
+
+
+def test_a_step_after_the_compared_span_is_not_scored():
+    """Samples from ``stop`` on (a chop) never enter either window: a large step at ``stop`` scores
+    nothing, the same step L samples inside the span is found there."""
+    n, L, sigma = 4000, 64, 1e-3
+    rng = np.random.default_rng(5)
+    noise = rng.normal(0.0, sigma, n)
+    flat = np.zeros(n)
+    stop = 3000
+    dv = noise + 0.5 * (np.arange(n) >= stop)
+    (res,) = voltage_steps(dv, flat, sigma, DT, scales_s=(L * DT,), start=0, stop=stop)
+    assert res.max_score < 6.0 and res.first_index == -1 and res.step_index == -1
+    dv_in = noise + 0.5 * (np.arange(n) >= stop - L)
+    (res_in,) = voltage_steps(dv_in, flat, sigma, DT, scales_s=(L * DT,), start=0, stop=stop)
+    assert res_in.step_index == stop - L
+
+
+def test_voltage_steps_refuse_bad_traces():
+    with pytest.raises(ShotcheckError, match="one length"):
+        voltage_steps(np.zeros(10), np.zeros(11), 1.0, DT, scales_s=(2 * DT,), start=0, stop=10)
+    with pytest.raises(ShotcheckError, match="finite"):
+        voltage_steps(np.full(10, np.nan), np.zeros(10), 1.0, DT, scales_s=(2 * DT,), start=0, stop=10)
+
+
 @pytest.mark.parametrize("L_samples", [4, 16, 64])
 def test_voltage_step_score_follows_the_two_sample_mean_statistic(L_samples):
     """A step of height A in white noise sigma: the difference of the means of L samples after and before
@@ -227,13 +284,14 @@ def test_voltage_step_score_follows_the_two_sample_mean_statistic(L_samples):
     n, k0, sigma = 10000, 6000, 1e-3
     ref = np.zeros(n)  # flat reference: no level or timing tolerance
     noise = rng.normal(0.0, sigma, n)
-    ((z0, i0),) = voltage_steps(noise, ref, sigma, DT, scales_s=(L_samples * DT,), start=0, stop=n)
+    ((z0, i0, _),) = voltage_steps(noise, ref, sigma, DT, scales_s=(L_samples * DT,), start=0, stop=n)
     assert z0 < 6.0 and i0 == -1
     A = 12.0 * sigma * math.sqrt(2.0 / L_samples)
     dv = noise + A * (np.arange(n) >= k0)
-    ((z, i),) = voltage_steps(dv, ref, sigma, DT, scales_s=(L_samples * DT,), start=0, stop=n)
+    ((z, i, step),) = voltage_steps(dv, ref, sigma, DT, scales_s=(L_samples * DT,), start=0, stop=n)
     assert 9.0 < z < 16.0  # 12 expected, noise of the two means adds about +-1 (and the max a little)
     assert k0 - L_samples <= i <= k0
+    assert abs(step - k0) <= max(1, L_samples // 8)  # the peak sits at the step
 
 
 def test_voltage_steps_tolerate_level_and_timing_errors():
@@ -246,7 +304,7 @@ def test_voltage_steps_tolerate_level_and_timing_errors():
     shifted = 1.0005 * double_exponential(t - 1e-9, 1.0, 2e-6) + rng.normal(0.0, sigma, t.size)
     dv = shifted - v
     scores = voltage_steps(dv, v, sigma, DT, scales_s=(40e-9, 160e-9), start=150, stop=19000)
-    assert all(z < 6.0 and i == -1 for z, i in scores)
+    assert all(z < 6.0 and i == -1 for z, i, _ in scores)
     dv2 = dv - 0.01 * (t >= 30e-6)
     scores2 = voltage_steps(dv2, v, sigma, DT, scales_s=(40e-9, 160e-9), start=150, stop=19000)
-    assert all(z > 6.0 and abs(i * DT - 30e-6) < 0.2e-6 for z, i in scores2)
+    assert all(z > 6.0 and abs(i * DT - 30e-6) < 0.2e-6 and abs(k * DT - 30e-6) <= 2 * DT for z, i, k in scores2)

@@ -44,6 +44,7 @@ __all__ = [
     "difference_traces",
     "noise_floor",
     "time_domain_metrics",
+    "VoltageStep",
     "voltage_steps",
     "voltage_collapse",
     "voltage_windows",
@@ -97,6 +98,26 @@ def _difference_sigma(rms_ref: float, mad_ref: float, rms_test: float, mad_test:
     return math.hypot(one(rms_ref, mad_ref), one(rms_test, mad_test))
 
 
+class VoltageStep(NamedTuple):
+    """Result of :func:`voltage_steps` at one time scale.
+
+    Attributes
+    ----------
+    max_score : float
+        Largest score in the scored span [1] (0 if the span is empty).
+    first_index : int
+        First sample whose score exceeds the threshold (-1 if none).
+    step_index : int
+        Where the step is: the largest score within ``L`` samples from ``first_index`` (the statistic
+        peaks with the step midway between its two windows; the first crossing comes earlier the larger
+        the step), -1 if none.
+    """
+
+    max_score: float
+    first_index: int
+    step_index: int
+
+
 def voltage_steps(
     dv: np.ndarray,
     ref_voltage: np.ndarray,
@@ -109,18 +130,17 @@ def voltage_steps(
     k_sigma: float = 6.0,
     timing_tolerance_s: float = 2e-9,
     level_tolerance: float = 1e-3,
-) -> list[tuple[float, int]]:
+) -> list[VoltageStep]:
     """Abrupt changes of the voltage difference: a Haar step detector at several time scales.
 
     A breakdown in the winding changes the load on the generator at once, so the test voltage steps
     away from the scaled reference at the fault instant (strongly for a fault near the line end, whose
     effect on the neutral current is delayed by the travel through the winding). Benign differences
     (a level or timing error of the normalisation) are smooth. At each scale of ``L`` samples the
-    statistic is the mean of ``dv`` over the ``L`` samples from ``k`` on minus the mean over the ``L``
-    samples before ``k``, divided by its standard deviation under white noise, ``sigma sqrt(2/L)``, with
-    the same statistic of a level error (``level_tolerance * v_ref``) and of a timing error
-    (``timing_tolerance_s * dv_ref/dt``, the derivative as the sample-to-sample difference over ``dt``)
-    added in quadrature.
+    statistic at sample ``k`` is the mean of ``dv[k:k+L]`` minus the mean of ``dv[k-L:k]``, divided by
+    its standard deviation under white noise, ``sigma sqrt(2/L)``, with the same statistic of a level
+    error (``level_tolerance * v_ref``) and of a timing error (``timing_tolerance_s * dv_ref/dt``, the
+    derivative as the backward difference over ``dt``) added in quadrature.
 
     Parameters
     ----------
@@ -133,9 +153,12 @@ def voltage_steps(
     dt : float
         Sample interval [s].
     scales_s : tuple of float
-        Averaging lengths [s] (at least 2 samples each).
+        Averaging lengths [s]; ``L = round(scale / dt)`` samples, at least 2 (so at a low sample rate
+        the shortest scales coincide).
     start, stop : int
-        Samples scored (a step at ``start <= k < stop``).
+        The compared span: a step is scored at ``k >= start``, and both of its windows lie before
+        ``stop`` (``k + L <= stop``; samples from ``stop`` on, e.g. a chop, never enter) and in the
+        record (``k >= L``).
     k_sigma : float
         Threshold of the first time [1].
     timing_tolerance_s, level_tolerance : float
@@ -143,38 +166,52 @@ def voltage_steps(
 
     Returns
     -------
-    list of (float, int)
-        Per scale: the largest score in the scored span [1] (0 if it is empty) and the first index whose
-        score exceeds ``k_sigma`` (-1 if none).
+    list of VoltageStep
+        One per scale.
+
+    Raises
+    ------
+    ShotcheckError
+        Traces of unequal length, or not finite.
 
     Notes
     -----
     With the cumulative sum ``C`` of a trace, the statistic at ``k`` is
-    ``(C[k+L] - 2 C[k] + C[k-L]) / L``; for the timing term the derivative's cumulative sum is the
-    reference itself, ``(v[k+L-1] - 2 v[k-1] + v[k-L-1]) / (L dt)``.
+    ``(C[k+L] - 2 C[k] + C[k-L]) / L``; for the timing term the cumulative sum of the backward
+    difference is the reference itself shifted by one sample, ``(v[k+L-1] - 2 v[k-1] + v[k-L-1]) /
+    (L dt)``.
     """
     sigma = check_range("sigma", sigma, 0.0, None, low_inclusive=False)
     dt = check_range("dt", dt, 0.0, None, low_inclusive=False, unit="s")
     dv = np.asarray(dv, dtype=np.float64)
     vr = np.asarray(ref_voltage, dtype=np.float64)
+    if dv.ndim != 1 or vr.shape != dv.shape:
+        raise ShotcheckError(f"voltage_steps: the voltage difference ({dv.shape}) and the reference "
+                             f"({vr.shape}) must be 1-D traces of one length")
+    if not (np.isfinite(dv).all() and np.isfinite(vr).all()):
+        raise ShotcheckError("voltage_steps: the voltage traces must be finite")
     n = dv.size
     c_dv = np.concatenate(([0.0], np.cumsum(dv)))
     c_v = np.concatenate(([0.0], np.cumsum(vr)))
-    v0 = np.concatenate(([vr[0]], vr))  # v0[k] = v[k-1]: the derivative's cumulative sum, up to a constant
+    v0 = np.concatenate((vr[:1], vr))  # v0[k] = v[k-1]: the derivative's cumulative sum, up to a constant
     k2 = k_sigma * k_sigma
-    out: list[tuple[float, int]] = []
+    out: list[VoltageStep] = []
     for s in scales_s:
         L = max(2, int(round(s / dt)))
-        a, b = max(int(start), L), min(int(stop), n - L + 1)
+        a, b = max(int(start), L), min(int(stop), n) - L + 1
         if b <= a:
-            out.append((0.0, -1))
+            out.append(VoltageStep(0.0, -1, -1))
             continue
         h = (c_dv[a + L : b + L] - 2.0 * c_dv[a:b] + c_dv[a - L : b - L]) / L
         hv = (c_v[a + L : b + L] - 2.0 * c_v[a:b] + c_v[a - L : b - L]) * (level_tolerance / L)
         hs = (v0[a + L : b + L] - 2.0 * v0[a:b] + v0[a - L : b - L]) * (timing_tolerance_s / (L * dt))
         r = h * h / (sigma * sigma * 2.0 / L + hv * hv + hs * hs)  # score squared
         hit = np.flatnonzero(r > k2)
-        out.append((math.sqrt(float(np.max(r))), int(a + hit[0]) if hit.size else -1))
+        if hit.size:
+            j = int(hit[0])
+            out.append(VoltageStep(math.sqrt(float(np.max(r))), a + j, a + j + int(np.argmax(r[j : j + L]))))
+        else:
+            out.append(VoltageStep(math.sqrt(float(np.max(r))), -1, -1))
     return out
 
 
@@ -466,8 +503,9 @@ class TimeDomainMetrics:
     voltage_noise, current_noise : NoiseFloor
         Noise of the difference traces from the two pre-triggers.
     voltage_sigma_pu, current_sigma_pu : float
-        Noise standard deviation actually used (the MAD-based one, not below ``sigma_floor_rel`` of
-        the reference peak) [p.u.], [A/V].
+        Noise standard deviation actually used (from each record's MAD, or its rms where the MAD is
+        zero, see ``_difference_sigma``; not below ``sigma_floor_rel`` of the reference peak) [p.u.],
+        [A/V].
     windows : mapping of str to (float, float)
         Start and end time of each window on the pair's time axis [s].
     voltage, current : mapping of str to WindowDeviation

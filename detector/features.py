@@ -447,7 +447,7 @@ def extract(
           _rel(None if td.test_collapse is None else td.test_collapse.time_s)]
     steps = voltage_steps(td.dv_pu, pair.ref_voltage_pu, td.voltage_sigma_pu, dt, scales_s=VOLTAGE_STEP_SCALES_S,
                           start=int(np.searchsorted(t_pair, front_s + FRONT_WINDOW_S[0])),
-                          stop=int(np.searchsorted(t_pair, td.compared_until_s, side="right")))
+                          stop=td.compared_stop)
     f += [st.max_score for st in steps]
     f += [nan if st.step_index < 0 else 1e6 * (float(t_pair[st.step_index]) - front_s) for st in steps]
     peak_i = float(np.max(np.abs(pair.ref_current_pu))) or 1.0

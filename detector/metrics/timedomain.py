@@ -516,6 +516,8 @@ class TimeDomainMetrics:
         Voltage collapse of each record (times on the pair's time axis).
     compared_until_s : float
         End of the compared span [s, pair time axis].
+    compared_stop : int
+        Index one past the compared span's last sample (``compared_until_s`` is its time) [samples].
     """
 
     dv_pu: np.ndarray
@@ -533,6 +535,7 @@ class TimeDomainMetrics:
     ref_collapse: Collapse | None
     test_collapse: Collapse | None
     compared_until_s: float
+    compared_stop: int
 
 
 def _shift_collapse(c: Collapse | None, t0: float) -> Collapse | None:
@@ -618,4 +621,5 @@ def time_domain_metrics(
         ref_collapse=_shift_collapse(c_ref, float(t[0])),
         test_collapse=_shift_collapse(c_test, float(t[0])),
         compared_until_s=float(t[stop - 1]),
+        compared_stop=int(stop),
     )

@@ -13,6 +13,7 @@ from detector._validation import ShotcheckError
 from detector.metrics.wavelet import (
     DEFAULT_MAX_LEVEL,
     BoundaryEffectWarning,
+    burst_counts,
     level_bands_Hz,
     resolve_level,
     resolve_wavelet,
@@ -111,6 +112,36 @@ def test_discharges_show_in_fine_levels_winding_change_in_coarse(method):
     # the fault instant is the first pulse (front starts 2 us into the reference record)
     assert wd.fault_time_s == pytest.approx(2e-6 + PULSES_S[0], abs=50e-9)
     assert wq.fault_time_s is None
+
+
+def test_bursts_count_the_discharge_pulses_and_not_a_winding_change():
+    """Each discharge pulse is one burst in the fine levels that hold it (D3, D4: 3-12 MHz for these 15 ns
+    pulses at 100 MS/s; the pulses are 15 us apart); a change of the winding's inductance gives none there
+    (it stays in the coarse levels)."""
+    pulses = gaussian_pulses(PULSES_S, (40e-9,) * len(PULSES_S), width_s=15e-9)
+    dis, wind = _pair(extra_current=pulses), _pair(branches=FAULTY)
+    for p, expected in ((dis, len(PULSES_S)), (wind, 0)):
+        w = wavelet_difference(p.ref_current_pu, p.test_current_pu, p.sample_interval_s, t0_s=p.times_s[0])
+        counts, spans = burst_counts(w.difference_map[2:4], np.ones(p.n_samples, dtype=bool), p.sample_interval_s)
+        assert counts.tolist() == [expected, expected]
+        if expected:
+            # first to last pulse, within the spread of a pulse over the level's wavelet support
+            np.testing.assert_allclose(spans, PULSES_S[-1] - PULSES_S[0], atol=0.3e-6)
+
+
+def test_burst_counts_gap_and_scored_samples():
+    row = np.zeros((1, 1000))
+    row[0, [100, 101, 110, 400, 900]] = 9.0
+    every = np.ones(1000, dtype=bool)
+    assert burst_counts(row, every, 1e-8)[0].tolist() == [3]  # 100-110 within the 200 ns gap
+    assert burst_counts(row, every, 1e-8, gap_s=50e-9)[0].tolist() == [4]
+    assert burst_counts(row, every, 1e-8, k_sigma=9.0)[0].tolist() == [0]  # strictly above
+    not_900 = every.copy()
+    not_900[850:] = False
+    counts, spans = burst_counts(row, not_900, 1e-8)
+    assert counts.tolist() == [2] and spans[0] == pytest.approx(3e-6)
+    with pytest.raises(ShotcheckError, match="one value per sample"):
+        burst_counts(row, every[:10], 1e-8)
 
 
 def test_level_choice_and_bands():

@@ -20,7 +20,7 @@ from .transfer import (
     compare_transfer,
     transfer_function,
 )
-from .wavelet import BoundaryEffectWarning, WaveletDifference, wavelet_difference
+from .wavelet import BoundaryEffectWarning, WaveletDifference, burst_counts, wavelet_difference
 
 __all__ = [
     "DLT911_BANDS_HZ",
@@ -30,6 +30,7 @@ __all__ = [
     "TransferComparison",
     "TransferFunction",
     "WaveletDifference",
+    "burst_counts",
     "compare_transfer",
     "time_domain_metrics",
     "transfer_function",

@@ -39,7 +39,7 @@ from .metrics.transfer import (
     compare_transfer,
     transfer_function,
 )
-from .metrics.wavelet import WaveletDifference, wavelet_difference
+from .metrics.wavelet import WaveletDifference, burst_counts, wavelet_difference
 from .preprocess import AlignedPair, align_pair
 from .record import Record
 from .waveshape import WaveShape, evaluate_waveshape
@@ -47,7 +47,7 @@ from .waveshape import WaveShape, evaluate_waveshape
 __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "15"
+SCHEMA_VERSION = "16"
 
 #: Averaging lengths [samples] scored again after the core term is removed (it is slow).
 CORE_SCALES = (64, 256, 1024)
@@ -58,6 +58,13 @@ WAVELET_NOISE_SEGMENTS = 8
 
 #: Detail levels of the wavelet difference kept as features (D1 finest .. D8), plus the approximation.
 WAVELET_LEVELS = 8
+
+#: Finest wavelet levels whose separate bursts are counted (:func:`detector.metrics.burst_counts`), the
+#: threshold of the strong bursts counted in D1/D2 together [noise units], and the gap that separates
+#: two bursts [s].
+BURST_LEVELS = 3
+BURST_STRONG_SIGMA = 10.0
+BURST_GAP_S = 200e-9
 
 #: Log-spaced bands for the signed mean dB difference of the transfer functions [Hz].
 LOG_BANDS_HZ: tuple[tuple[float, float], ...] = tuple(
@@ -111,6 +118,13 @@ def _names() -> tuple[str, ...]:
     n += [f"vs_{_ns(s)}ns_step_after_front_us" for s in VOLTAGE_STEP_SCALES_S]
     n += ["ws_front_time_change", "ws_time_to_half_change", "ws_test_voltage_ratio_change",
           "noise_i_ref_ppm", "noise_i_test_ppm", "sample_rate_MHz"]
+    # time each current spends at a clipping limit (those samples are not compared): a healthy chopped
+    # shot may clip in the oscillation after the chop, a large fault current anywhere
+    n += ["clip_ref_current_us", "clip_test_current_us"]
+    # separate bursts of the finest wavelet levels (a discharge train) and the time they spread over
+    n += [f"wv_D{k}_bursts" for k in range(1, BURST_LEVELS + 1)]
+    n += [f"wv_D{k}_burst_span_us" for k in range(1, BURST_LEVELS + 1)]
+    n += ["wv_fine_bursts_strong"]
     return tuple(n)
 
 
@@ -237,6 +251,9 @@ def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s:
     if chop_s is not None:
         in_chop = (t >= chop_s + CHOP_WINDOW_S[0]) & (t <= chop_s + CHOP_WINDOW_S[1])
         in_front |= in_chop  # scored with the front: the least predictable parts
+    # samples at (or next to) a recorder's clipping limit were not measured: never scored
+    in_front &= ~pair.clipped
+    in_chop = in_chop | pair.clipped
     after = fin & (t > front_s + FRONT_WINDOW_S[1]) & ~in_chop
     nan = math.nan
     front_z = float(z[in_front & fin].max()) if (in_front & fin).any() else nan
@@ -373,15 +390,6 @@ def extract(
     clock("time_domain")
     front_s = _front_time_s(pair)
 
-    # transfer functions over the whole records: valid across chopping (see metrics.transfer)
-    # frequencies where either current is within its noise (snr 3) carry no information on the winding
-    tf_r = transfer_function(pair.ref_voltage_pu, pair.ref_current_pu, dt, pretrigger_samples=pair.pretrigger_samples,
-                             snr_current=3.0)
-    tf_t = transfer_function(pair.test_voltage_pu, pair.test_current_pu, dt,
-                             pretrigger_samples=pair.pretrigger_samples, snr_current=3.0)
-    tc = compare_transfer(tf_r.H_S, tf_t.H_S, tf_r.frequency_Hz)
-    clock("transfer")
-
     # wave-shape-compensated current difference: valid across chopping and generator drift
     cd = compensated_difference(pair.ref_voltage_pu, pair.ref_current_pu, pair.test_voltage_pu,
                                 pair.test_current_pu, dt, pretrigger_samples=pair.pretrigger_samples)
@@ -390,7 +398,21 @@ def extract(
     if td.test_collapse is not None:
         chop_s = td.test_collapse.time_s
     cd_f = _compensated_features(cd, pair, front_s, floor, chop_s)
+    # the test current where a recorder clipped is unknown: the transfer function and the wavelet
+    # difference take the healthy winding's prediction there (no difference where nothing was measured)
+    test_current = pair.test_current_pu
+    if pair.clipped.any():
+        test_current = np.where(pair.clipped & np.isfinite(cd.predicted), cd.predicted, test_current)
     clock("compensated")
+
+    # transfer functions over the whole records: valid across chopping (see metrics.transfer)
+    # frequencies where either current is within its noise (snr 3) carry no information on the winding
+    tf_r = transfer_function(pair.ref_voltage_pu, pair.ref_current_pu, dt, pretrigger_samples=pair.pretrigger_samples,
+                             snr_current=3.0)
+    tf_t = transfer_function(pair.test_voltage_pu, test_current, dt,
+                             pretrigger_samples=pair.pretrigger_samples, snr_current=3.0)
+    tc = compare_transfer(tf_r.H_S, tf_t.H_S, tf_r.frequency_Hz)
+    clock("transfer")
 
     # wavelet difference of the test current against its compensated prediction, over the span where
     # the prediction is valid, in units of its own noise: divided by the compensated difference's
@@ -400,14 +422,20 @@ def extract(
     valid = np.flatnonzero(np.isfinite(cd.sigma))
     stop = int(valid[-1]) + 1 if valid.size else 0
     wd: WaveletDifference | None = None
+    bursts = [math.nan] * (2 * BURST_LEVELS + 1)
     if stop >= 64:
         t = pair.times_s[:stop]
         scored = np.isfinite(cd.sigma[:stop]) & (t > front_s + FRONT_WINDOW_S[1])
         if chop_s is not None:
             scored &= ~((t >= chop_s + CHOP_WINDOW_S[0]) & (t <= chop_s + CHOP_WINDOW_S[1]))
-        wd = wavelet_difference(cd.predicted[:stop], pair.test_current_pu[:stop], dt,
+        scored &= ~pair.clipped[:stop]
+        wd = wavelet_difference(cd.predicted[:stop], test_current[:stop], dt,
                                 t0_s=float(pair.times_s[0]), noise_scale=cd.sigma[:stop], scored=scored,
                                 noise_segments=WAVELET_NOISE_SEGMENTS)
+        counts, spans = burst_counts(wd.difference_map[:BURST_LEVELS], scored, dt, gap_s=BURST_GAP_S)
+        strong, _ = burst_counts(np.max(wd.difference_map[:2], axis=0)[None, :], scored, dt,
+                                 k_sigma=BURST_STRONG_SIGMA, gap_s=BURST_GAP_S)
+        bursts = [*counts.astype(float).tolist(), *(1e6 * spans).tolist(), float(strong[0])]
     clock("wavelet")
 
     f: list[float] = []
@@ -445,7 +473,8 @@ def extract(
 
     f += [_rel(td.current_onset_s), _rel(td.voltage_onset_s),
           _rel(None if td.test_collapse is None else td.test_collapse.time_s)]
-    steps = voltage_steps(td.dv_pu, pair.ref_voltage_pu, td.voltage_sigma_pu, dt, scales_s=VOLTAGE_STEP_SCALES_S,
+    dv_measured = np.where(pair.clipped, 0.0, td.dv_pu) if pair.clipped.any() else td.dv_pu
+    steps = voltage_steps(dv_measured, pair.ref_voltage_pu, td.voltage_sigma_pu, dt, scales_s=VOLTAGE_STEP_SCALES_S,
                           start=int(np.searchsorted(t_pair, front_s + FRONT_WINDOW_S[0])),
                           stop=td.compared_stop)
     f += [st.max_score for st in steps]
@@ -458,6 +487,9 @@ def extract(
         1e6 * pair.ref_noise.current_mad_pu / peak_i,
         1e6 * pair.test_noise.current_mad_pu / peak_i,
         1e-6 / dt,
+        1e6 * pair.ref_clipped_current_s,
+        1e6 * pair.test_clipped_current_s,
+        *bursts,
     ]
     vec = np.asarray(f, dtype=np.float64)
     if vec.size != len(FEATURE_NAMES):  # a programming error, never a user's

@@ -17,7 +17,7 @@ from detection_cases import make_case, mirrored
 
 from detector.cli import main
 from detector.compare import compare, default_model
-from detector.features import extract
+from detector.features import FEATURE_NAMES, extract
 from detector.formats import write
 
 pytestmark = pytest.mark.slow
@@ -49,7 +49,29 @@ BENIGN = {
     "test chopped at 4 us, reference full": {"chop_test_s": 4e-6},
     "both chopped, 0.15 us chopping-time scatter": {"chop_test_s": 4e-6, "chop_reference_s": 4.15e-6},
     "another noise realisation": {"seed": 5},
+    "test chopped at 4 us, its current recorder clipping on the tail (range 20 A of a 34 A peak)": {
+        "chop_test_s": 4e-6, "test_recorder": {"current_range_A": 20.0}},
 }
+
+
+def test_clipped_samples_are_not_compared():
+    """A recorder driven beyond its range does not measure: the samples at its limit are left out of the
+    comparison (a clipped current differs from its prediction by up to ~50 noise units here), so the
+    features of a healthy chopped pair whose test current clips match those of the same pair recorded on
+    a range that does not clip."""
+    names = ("cd_max_z", "cd_scale64_z", "wv_fine_peak_sigma", "wv_coarse_peak_sigma")
+    free = extract(case(chop_test_s=4e-6, test_recorder={"current_range_A": 40.0}).reference,
+                   case(chop_test_s=4e-6, test_recorder={"current_range_A": 40.0}).test)
+    c = case(chop_test_s=4e-6, test_recorder={"current_range_A": 20.0})
+    clipped = extract(c.reference, c.test)
+    assert not free.pair.clipped.any() and clipped.pair.clipped.sum() > 500
+    assert clipped.features[FEATURE_NAMES.index("clip_test_current_us")] > 5.0
+    assert free.features[FEATURE_NAMES.index("clip_test_current_us")] == 0.0
+    z_clipped = float(abs(clipped.compensated.z[clipped.pair.clipped]).max())
+    for n in names:
+        a, b = (float(x.features[FEATURE_NAMES.index(n)]) for x in (free, clipped))
+        assert b == pytest.approx(a, rel=0.25), n
+        assert z_clipped > 3.0 * b, n  # what the clipped samples would have scored
 
 
 @pytest.mark.parametrize("name", list(BENIGN))

@@ -55,6 +55,24 @@ def test_noise_only_pair_stays_below_threshold():
     assert m.onset_s is None
 
 
+def test_clipped_samples_are_not_scored():
+    """A test current clipped at 70 % of its peak differs from the reference by ~30 % there; those
+    samples were not measured, so they neither raise the deviations nor set an onset (the trace itself
+    keeps them, for the figures)."""
+    ref = make_record(amplitude_V=300e3, noise_v=NOISE, noise_i=NOISE, seed=1)
+    test = make_record(amplitude_V=600e3, noise_v=NOISE, noise_i=NOISE, seed=2)
+    i = test.current.samples
+    test = test.replace(channels=(test.voltage, test.current.with_samples(np.minimum(i, 0.7 * i.max()))))
+    p = align_pair(ref, test)
+    assert p.clipped.any()
+    m = time_domain_metrics(p)
+    assert np.abs(m.di_pu[p.clipped]).max() > 100 * m.current_sigma_pu
+    assert m.current["all"].max_sigma < 6 and m.onset_s is None
+    # the same pair with the mask cleared: the clipped samples dominate
+    unmasked = time_domain_metrics(dataclasses.replace(p, clipped=None))
+    assert unmasked.current["all"].max_sigma > 100 and unmasked.onset_s is not None
+
+
 def test_winding_change_shows_in_the_current_not_the_voltage():
     m = time_domain_metrics(_pair(branches=FAULTY))
     assert m.current["all"].max_sigma > 50

@@ -15,8 +15,12 @@ from scipy import stats
 
 from detector._validation import RecordError, ShotcheckError
 from detector.preprocess import (
+    CLIP_GUARD_S,
+    CLIP_GUARD_SAMPLES,
     MAD_NORMAL_CONSTANT,
     align_pair,
+    clipped_near,
+    clipped_samples,
     clipping_warning,
     common_grid,
     detect_pretrigger_samples,
@@ -262,6 +266,41 @@ def test_warning_current_clipping():
     p = align_pair(ref, test)
     assert any("test current 'I' looks clipped" in w for w in p.warnings)
     assert clipping_warning(ref.current.samples, "x") is None
+
+
+def test_clipped_samples_are_flagged_on_the_aligned_grid():
+    """The samples at a clipping limit, and only those (within the guard), are flagged on the aligned
+    grid, also when the test record starts at another time and is shifted by a fraction of a sample."""
+    ref, test = _base_pair(start_time_s=-0.337e-6)
+    i = test.current.samples
+    limit = 0.7 * i.max()
+    test = test.replace(channels=(test.voltage, test.current.with_samples(np.minimum(i, limit))))
+    raw = clipped_samples(test.current.samples)
+    assert raw.sum() == np.count_nonzero(i >= limit)
+    assert not clipped_samples(ref.current.samples).any()
+    p = align_pair(ref, test)
+    # brute force: an aligned sample is flagged when a raw clipped sample lies within the guard of its
+    # time on the test record's axis (away from the guard's edge, where rounding decides)
+    t_raw = test.start_time_s + np.arange(i.size) * test.sample_interval_s
+    guard = max(CLIP_GUARD_S, CLIP_GUARD_SAMPLES * test.sample_interval_s)
+    dist = np.abs(np.subtract.outer(p.test_times_s, t_raw[raw])).min(axis=1)
+    assert p.clipped[dist < guard - 1e-12].all()
+    assert not p.clipped[dist > guard + 1e-12].any()
+    assert 0 < p.clipped.sum() < p.n_samples
+    assert p.test_clipped_current_s == pytest.approx(raw.sum() * test.sample_interval_s)
+    assert p.ref_clipped_current_s == 0.0
+    # an unclipped pair flags nothing
+    assert not align_pair(*_base_pair()).clipped.any()
+
+
+def test_clipped_near_counts_neighbours():
+    mask = np.zeros(20, dtype=bool)
+    mask[[5, 6]] = True
+    # record samples at 1 + 0.1 k s; queried times on the same axis
+    t = 1.0 + 0.1 * np.array([2.0, 2.9, 3.0, 4.5, 6.0, 7.9, 8.0, 8.1, 19.0, -3.0, 40.0])
+    got = clipped_near(mask, 1.0, 0.1, t, 0.2)
+    assert got.tolist() == [False, False, True, True, True, True, True, False, False, False, False]
+    assert not clipped_near(np.zeros(20, dtype=bool), 1.0, 0.1, t, 0.2).any()
 
 
 def test_quantised_crest_is_not_clipping():

@@ -598,10 +598,14 @@ def time_domain_metrics(
     wins = voltage_windows(pair.ref_voltage_pu, pretrigger_samples=pair.pretrigger_samples, stop=stop)
     win_times = {k: (float(t[s.start]) if s.stop > s.start else float("nan"),
                      float(t[s.stop - 1]) if s.stop > s.start else float("nan")) for k, s in wins.items()}
-    dev_v = window_deviations(dv, sv, pk_v, wins, t)
-    dev_i = window_deviations(di, si, pk_i, wins, t)
-    ov = deviation_onset(dv, sv, dt, k_sigma=k_sigma, min_duration_s=min_duration_s, stop=stop)
-    oi = deviation_onset(di, si, dt, k_sigma=k_sigma, min_duration_s=min_duration_s, stop=stop)
+    # samples at a recorder's clipping limit were not measured: scored as no difference
+    clip = pair.clipped
+    dv_s = np.where(clip, 0.0, dv) if clip.any() else dv
+    di_s = np.where(clip, 0.0, di) if clip.any() else di
+    dev_v = window_deviations(dv_s, sv, pk_v, wins, t)
+    dev_i = window_deviations(di_s, si, pk_i, wins, t)
+    ov = deviation_onset(dv_s, sv, dt, k_sigma=k_sigma, min_duration_s=min_duration_s, stop=stop)
+    oi = deviation_onset(di_s, si, dt, k_sigma=k_sigma, min_duration_s=min_duration_s, stop=stop)
     ov_s = None if ov is None else float(t[ov])
     oi_s = None if oi is None else float(t[oi])
     onsets = [x for x in (ov_s, oi_s) if x is not None]

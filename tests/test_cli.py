@@ -6,13 +6,12 @@ import json
 
 import numpy as np
 import pytest
+from test_formats_errors import CASES, MALFORMED
 
 from detector import __version__
 from detector.cli import main
 from detector.formats import write
 from detector.record import Channel, Record
-
-from test_formats_errors import CASES, MALFORMED
 
 # 1.2/50 us double exponential (Kuffel, Zaengl & Kuffel, High Voltage Engineering: Fundamentals, 2nd ed.,
 # table of impulse wave constants; recalled): tau1 = 68.22 us, tau2 = 0.405 us. With the standard's

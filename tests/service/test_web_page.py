@@ -7,7 +7,6 @@ to docs/img/service_page.png for the README when SHOTCHECK_UPDATE_DOCS=1 is set.
 from __future__ import annotations
 
 import os
-
 import shutil
 from pathlib import Path
 

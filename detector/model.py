@@ -15,8 +15,10 @@ a model file can never run code the way an unpickled file can.
 
 from __future__ import annotations
 
+import copy
 import dataclasses
 import datetime as _dt
+import types
 import zipfile
 from collections.abc import Mapping, Sequence
 from pathlib import Path
@@ -636,7 +638,37 @@ def save_model(model: ShotModel, path: str | Path) -> None:
         "none_threshold": float(model.none_threshold),
     }
     with _fastpredict.detached(model):  # the file holds scikit-learn's estimators as they are
+        parts = copy.deepcopy({"classifier": model.classifier, "locator": model.locator, "timer": model.timer})
+        _strip_training_statistics(parts)
+        payload.update(parts)
         sio.dump(payload, Path(path), compression=zipfile.ZIP_DEFLATED, compresslevel=9)
+
+
+#: Fields of a fitted tree's nodes that prediction never reads: the split gain and the training-sample
+#: count of every node (kept by scikit-learn for inspection and partial dependence).
+_TRAINING_ONLY_NODE_FIELDS = ("gain", "count")
+
+
+def _strip_training_statistics(parts: Mapping[str, Any]) -> None:
+    """Zero, in place, what the trees of ``parts`` hold but never read when predicting.
+
+    A prediction walks each tree from its root by ``feature_idx``/``num_threshold`` (and
+    ``missing_go_to_left``, ``left``, ``right``, ``is_leaf``) and returns the leaf's ``value``. The
+    split gains, node counts, the values of inner nodes and the split fields of leaves are training
+    statistics; zeroed, they compress to almost nothing, which makes a model file about a quarter
+    smaller with the same predictions (tested bit for bit). ``depth`` is kept: the flat walk of
+    :mod:`detector._fastpredict` reads it.
+    """
+    for est in _fastpredict.estimators_of(types.SimpleNamespace(**parts)):
+        for iteration in est._predictors:
+            for predictor in iteration:
+                nodes = predictor.nodes
+                leaf = nodes["is_leaf"].astype(bool)
+                for f in _TRAINING_ONLY_NODE_FIELDS:
+                    nodes[f] = 0
+                nodes["value"][~leaf] = 0.0
+                nodes["num_threshold"][leaf] = 0.0
+                nodes["feature_idx"][leaf] = 0
 
 
 def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotModel:

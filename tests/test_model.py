@@ -110,6 +110,28 @@ def test_round_trip_keeps_predictions_and_card(tmp_path):
     assert m2.card["training"] == "toy" and "sklearn_version" in m2.card
 
 
+def test_model_file_leaves_out_training_statistics(tmp_path):
+    """The file's trees carry no split gains or node counts (prediction never reads them; the round trip
+    above shows the predictions bit for bit), and saving does not change the model in memory."""
+    from detector._fastpredict import estimators_of
+
+    m, X = _model()
+    before = [p.nodes.copy() for est in estimators_of(m) for it in est._predictors for p in it]
+    save_model(m, tmp_path / "m.skops")
+    after = [p.nodes for est in estimators_of(m) for it in est._predictors for p in it]
+    assert all(np.array_equal(a, b) for a, b in zip(before, after, strict=True))
+    assert any(n["gain"].any() for n in before)
+    loaded = [p.nodes for est in estimators_of(load_model(tmp_path / "m.skops", expected_schema="test-1"))
+              for it in est._predictors for p in it]
+    assert len(loaded) == len(before)
+    for n, ref in zip(loaded, before, strict=True):
+        assert not n["gain"].any() and not n["count"].any()
+        leaf = ref["is_leaf"].astype(bool)
+        np.testing.assert_array_equal(n["value"][leaf], ref["value"][leaf])
+        np.testing.assert_array_equal(n["num_threshold"][~leaf], ref["num_threshold"][~leaf])
+        np.testing.assert_array_equal(n["depth"], ref["depth"])
+
+
 def test_schema_mismatch_refused(tmp_path):
     m, _ = _model()
     save_model(m, tmp_path / "m.skops")

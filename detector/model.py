@@ -657,7 +657,9 @@ def _strip_training_statistics(parts: Mapping[str, Any]) -> None:
     split gains, node counts, the values of inner nodes and the split fields of leaves are training
     statistics; zeroed, they compress to almost nothing, which makes a model file about a quarter
     smaller with the same predictions (tested bit for bit). ``depth`` is kept: the flat walk of
-    :mod:`detector._fastpredict` reads it.
+    :mod:`detector._fastpredict` reads it. A loaded model therefore cannot serve scikit-learn's
+    ``partial_dependence`` by its tree-recursion method (which weighs by the node counts); use
+    ``method="brute"``.
     """
     for est in _fastpredict.estimators_of(types.SimpleNamespace(**parts)):
         for iteration in est._predictors:

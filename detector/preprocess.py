@@ -272,7 +272,7 @@ def _clip_runs(samples: np.ndarray) -> list[tuple[str, float, np.ndarray, int]]:
     return out
 
 
-def clipping_warning(samples: np.ndarray, label: str, *, unit: str = "") -> str | None:
+def clipping_warning(samples: np.ndarray, label: str, *, unit: str = "", quantity: str = "") -> str | None:
     """Return a warning if a channel sits at its extreme value for several samples in a row.
 
     Parameters
@@ -283,6 +283,8 @@ def clipping_warning(samples: np.ndarray, label: str, *, unit: str = "") -> str 
         Name used in the message (e.g. ``"test current 'I1'"``).
     unit : str
         Unit printed with the value.
+    quantity : {"", "current", "voltage"}
+        What the channel measures; the message says what that means for the comparison.
 
     Returns
     -------
@@ -302,12 +304,17 @@ def clipping_warning(samples: np.ndarray, label: str, *, unit: str = "") -> str 
     if not runs:
         return None
     name, value, _, run = runs[0]
-    return (
-        f"{label} looks clipped: {run} samples in a row at its {name} {value:.6g} {unit}".rstrip()
-        + "; the recorder range was probably exceeded: the samples at the limit are left out of the "
-        "compensated, wavelet and transfer-function comparisons, the plain time-domain differences near "
-        "them are not reliable"
-    )
+    head = f"{label} looks clipped: {run} samples in a row at its {name} {value:.6g} {unit}".rstrip()
+    head += "; the recorder range was probably exceeded"
+    if quantity == "voltage":
+        # the voltage is the yardstick of the whole comparison: leaving its clipped samples out does not
+        # repair the level normalisation or the current predicted from it
+        return head + (": the samples at the limit are left out of the scores, but the test voltage value, "
+                       "the alignment and the predicted current rest on the voltage, so the verdict is not "
+                       "reliable; repeat the shot on a larger range")
+    return head + (": the samples at the limit are left out of the scores (the transfer function takes the "
+                   "predicted current there where there is one); the differences next to them are less "
+                   "certain")
 
 
 def clipped_samples(samples: np.ndarray) -> np.ndarray:
@@ -833,7 +840,8 @@ def align_pair(
         rec.current  # raises RecordError naming the file if there is none  # noqa: B018
         masks = []
         for ch in (rec.voltage, rec.current):
-            w = clipping_warning(ch.samples, f"{label} {ch.quantity} {ch.name!r}", unit=ch.unit)
+            w = clipping_warning(ch.samples, f"{label} {ch.quantity} {ch.name!r}", unit=ch.unit,
+                                 quantity=ch.quantity)
             if w:
                 warnings.append(w)
             masks.append(clipped_samples(ch.samples) if w else np.zeros(ch.samples.size, dtype=bool))

@@ -293,6 +293,33 @@ def test_clipped_samples_are_flagged_on_the_aligned_grid():
     assert not align_pair(*_base_pair()).clipped.any()
 
 
+def test_clipping_mask_follows_resampling_and_a_fractional_shift():
+    """The test record at 250 MS/s against a 100 MS/s reference, its trigger offset by a non-integer number
+    of samples: every aligned sample that the clipping changed (against the same record not clipped,
+    aligned the same way) is flagged, and nothing well below the limit is."""
+    ref = make_record(amplitude_V=300e3, seed=1)
+    test = make_record(amplitude_V=600e3, seed=2, rate_Hz=250e6, n=50000, start_time_s=-0.3373e-6,
+                       pretrigger_s=2.0037e-6)
+    i = test.current.samples
+    limit = 0.7 * i.max()
+    clipped = test.replace(channels=(test.voltage, test.current.with_samples(np.minimum(i, limit))))
+    a, b = align_pair(ref, test), align_pair(ref, clipped)
+    assert abs(a.delay_s / a.sample_interval_s - round(a.delay_s / a.sample_interval_s)) > 0.05  # fractional
+    np.testing.assert_array_equal(a.test_times_s, b.test_times_s)
+    changed = np.abs(b.test_current_pu - a.test_current_pu) > 1e-3 * np.abs(a.test_current_pu).max()
+    assert changed.any() and b.clipped[changed].all()
+    limit_pu = limit / a.test_test_voltage_V
+    assert np.all(a.test_current_pu[b.clipped] > 0.9 * limit_pu)
+
+
+def test_clipped_voltage_warns_that_the_verdict_is_not_reliable():
+    ref, test = _base_pair()
+    v = test.voltage.samples
+    test = test.replace(channels=(test.voltage.with_samples(np.minimum(v, 0.97 * v.max())), test.current))
+    w = [m for m in align_pair(ref, test).warnings if "looks clipped" in m]
+    assert len(w) == 1 and "test voltage 'U'" in w[0] and "verdict is not reliable" in w[0]
+
+
 def test_clipped_near_counts_neighbours():
     mask = np.zeros(20, dtype=bool)
     mask[[5, 6]] = True

@@ -251,9 +251,11 @@ def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s:
     if chop_s is not None:
         in_chop = (t >= chop_s + CHOP_WINDOW_S[0]) & (t <= chop_s + CHOP_WINDOW_S[1])
         in_front |= in_chop  # scored with the front: the least predictable parts
-    # samples at (or next to) a recorder's clipping limit were not measured: never scored
-    in_front &= ~pair.clipped
-    in_chop = in_chop | pair.clipped
+    # samples at (or next to) a recorder's clipping limit were not measured: never scored (a clipped
+    # voltage also spoils the predicted current there)
+    unmeasured = pair.clipped | pair.voltage_clipped
+    in_front &= ~unmeasured
+    in_chop = in_chop | unmeasured
     after = fin & (t > front_s + FRONT_WINDOW_S[1]) & ~in_chop
     nan = math.nan
     front_z = float(z[in_front & fin].max()) if (in_front & fin).any() else nan
@@ -399,10 +401,12 @@ def extract(
         chop_s = td.test_collapse.time_s
     cd_f = _compensated_features(cd, pair, front_s, floor, chop_s)
     # the test current where a recorder clipped is unknown: the transfer function and the wavelet
-    # difference take the healthy winding's prediction there (no difference where nothing was measured)
+    # difference take the healthy winding's prediction there (no difference where nothing was measured);
+    # beyond the span the prediction covers, the reference current (per unit: the same when healthy)
     test_current = pair.test_current_pu
     if pair.clipped.any():
-        test_current = np.where(pair.clipped & np.isfinite(cd.predicted), cd.predicted, test_current)
+        fill = np.where(np.isfinite(cd.predicted), cd.predicted, pair.ref_current_pu)
+        test_current = np.where(pair.clipped, fill, test_current)
     clock("compensated")
 
     # transfer functions over the whole records: valid across chopping (see metrics.transfer)
@@ -428,7 +432,7 @@ def extract(
         scored = np.isfinite(cd.sigma[:stop]) & (t > front_s + FRONT_WINDOW_S[1])
         if chop_s is not None:
             scored &= ~((t >= chop_s + CHOP_WINDOW_S[0]) & (t <= chop_s + CHOP_WINDOW_S[1]))
-        scored &= ~pair.clipped[:stop]
+        scored &= ~(pair.clipped | pair.voltage_clipped)[:stop]
         wd = wavelet_difference(cd.predicted[:stop], test_current[:stop], dt,
                                 t0_s=float(pair.times_s[0]), noise_scale=cd.sigma[:stop], scored=scored,
                                 noise_segments=WAVELET_NOISE_SEGMENTS)
@@ -473,7 +477,7 @@ def extract(
 
     f += [_rel(td.current_onset_s), _rel(td.voltage_onset_s),
           _rel(None if td.test_collapse is None else td.test_collapse.time_s)]
-    dv_measured = np.where(pair.clipped, 0.0, td.dv_pu) if pair.clipped.any() else td.dv_pu
+    dv_measured = np.where(pair.voltage_clipped, 0.0, td.dv_pu) if pair.voltage_clipped.any() else td.dv_pu
     steps = voltage_steps(dv_measured, pair.ref_voltage_pu, td.voltage_sigma_pu, dt, scales_s=VOLTAGE_STEP_SCALES_S,
                           start=int(np.searchsorted(t_pair, front_s + FRONT_WINDOW_S[0])),
                           stop=td.compared_stop)

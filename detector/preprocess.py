@@ -715,10 +715,13 @@ class AlignedPair:
         Everything done or seen that the user should know about.
     clipped : numpy.ndarray of bool
         Aligned samples within ``CLIP_GUARD_S`` (at least ``CLIP_GUARD_SAMPLES`` of the record's own
-        samples) of a sample where a voltage or current channel of either record sits at a limit it is
-        clipped at (:func:`clipped_samples`): not measured, so not compared. All False by default.
+        samples) of a sample where the current channel of either record sits at a limit it is clipped
+        at (:func:`clipped_samples`): not measured, so not compared. All False by default.
+    voltage_clipped : numpy.ndarray of bool
+        The same for the voltage channels. A clipped voltage also spoils what rests on it (the test
+        voltage value, the alignment, the current predicted from it); the clipping warning says so.
     ref_clipped_current_s, test_clipped_current_s : float
-        Time each record's current channel spends at a clipping limit [s].
+        Time each record's current channel spends at a clipping limit within the aligned span [s].
     """
 
     times_s: np.ndarray
@@ -740,19 +743,22 @@ class AlignedPair:
     clipped: np.ndarray | None = None
     ref_clipped_current_s: float = 0.0
     test_clipped_current_s: float = 0.0
+    voltage_clipped: np.ndarray | None = None
 
     def __post_init__(self) -> None:
-        """Store the arrays as read-only float64 (the clipping mask as read-only bool)."""
+        """Store the arrays as read-only float64 (the clipping masks as read-only bool)."""
         for f in ("times_s", "test_times_s", "ref_voltage_pu", "test_voltage_pu", "ref_current_pu",
                   "test_current_pu"):
             a = np.asarray(getattr(self, f), dtype=np.float64)
             a.flags.writeable = False
             object.__setattr__(self, f, a)
-        c = np.zeros(self.times_s.size, dtype=bool) if self.clipped is None else np.asarray(self.clipped, dtype=bool)
-        if c.shape != self.times_s.shape:
-            raise ShotcheckError(f"AlignedPair: clipped has {c.size} flags for {self.times_s.size} samples")
-        c.flags.writeable = False
-        object.__setattr__(self, "clipped", c)
+        for f in ("clipped", "voltage_clipped"):
+            v = getattr(self, f)
+            c = np.zeros(self.times_s.size, dtype=bool) if v is None else np.array(v, dtype=bool)
+            if c.shape != self.times_s.shape:
+                raise ShotcheckError(f"AlignedPair: {f} has {c.size} flags for {self.times_s.size} samples")
+            c.flags.writeable = False
+            object.__setattr__(self, f, c)
 
     @property
     def n_samples(self) -> int:
@@ -894,11 +900,14 @@ def align_pair(
     times = ref.start_time_s + idx * dt
     test_times = tst.start_time_s + (idx + k + frac) * dt
     pre = max(0, min(npre_r - m0, npre_t - k - m0))
-    clipped = np.zeros(times.size, dtype=bool)
-    for rec, masks, tt in ((raw[0], clip_masks[0], times), (raw[1], clip_masks[1], test_times)):
+    flags = np.zeros((2, times.size), dtype=bool)  # voltage, current
+    clipped_s = [0.0, 0.0]  # each record's current at a limit within the aligned span [s]
+    for j, (rec, masks, tt) in enumerate(((raw[0], clip_masks[0], times), (raw[1], clip_masks[1], test_times))):
         guard = max(CLIP_GUARD_S, CLIP_GUARD_SAMPLES * rec.sample_interval_s)
-        for mk in masks:
-            clipped |= clipped_near(mk, rec.start_time_s, rec.sample_interval_s, tt, guard)
+        for q, mk in enumerate(masks):
+            flags[q] |= clipped_near(mk, rec.start_time_s, rec.sample_interval_s, tt, guard)
+        own_t = rec.start_time_s + np.flatnonzero(masks[1]) * rec.sample_interval_s
+        clipped_s[j] = float(np.count_nonzero((own_t >= tt[0]) & (own_t <= tt[-1]))) * rec.sample_interval_s
     return AlignedPair(
         times_s=times,
         test_times_s=test_times,
@@ -916,7 +925,8 @@ def align_pair(
         ref_polarity=pol_r,
         test_polarity=pol_t,
         warnings=tuple(warnings),
-        clipped=clipped,
-        ref_clipped_current_s=float(np.count_nonzero(clip_masks[0][1])) * raw[0].sample_interval_s,
-        test_clipped_current_s=float(np.count_nonzero(clip_masks[1][1])) * raw[1].sample_interval_s,
+        clipped=flags[1],
+        ref_clipped_current_s=clipped_s[0],
+        test_clipped_current_s=clipped_s[1],
+        voltage_clipped=flags[0],
     )

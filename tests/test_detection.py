@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 
+import numpy as np
 import pytest
 from detection_cases import make_case, mirrored
 
@@ -72,6 +73,24 @@ def test_clipped_samples_are_not_compared():
         a, b = (float(x.features[FEATURE_NAMES.index(n)]) for x in (free, clipped))
         assert b == pytest.approx(a, rel=0.25), n
         assert z_clipped > 3.0 * b, n  # what the clipped samples would have scored
+
+
+def test_clipped_current_beyond_the_predicted_span_leaves_the_transfer_function_alone():
+    """A 40 us record whose test current is clipped at 60 % of its peak: most clipped samples lie past the
+    span the compensated prediction covers; the transfer function takes the reference current there (per
+    unit, the same for a healthy winding) and stays as it was unclipped."""
+    c = case(n_samples=4000)
+    i = c.test.current.samples
+    k = int(np.argmax(np.abs(i)))
+    limit = 0.6 * abs(i[k])
+    cut = np.clip(i, -limit, limit)
+    test = c.test.replace(channels=(c.test.voltage, c.test.current.with_samples(cut)))
+    free, clipped = extract(c.reference, c.test), extract(c.reference, test)
+    beyond = clipped.pair.clipped & ~np.isfinite(clipped.compensated.predicted)
+    assert beyond.sum() > 500
+    for n, tol in (("tf_rho", 0.01), ("tf_rms_dB", 0.05), ("tf_mean_dB", 0.05), ("tf_max_dB", 0.3)):
+        a, b = (float(x.features[FEATURE_NAMES.index(n)]) for x in (free, clipped))
+        assert b == pytest.approx(a, abs=tol), n
 
 
 @pytest.mark.parametrize("name", list(BENIGN))

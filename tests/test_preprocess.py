@@ -316,8 +316,12 @@ def test_clipped_voltage_warns_that_the_verdict_is_not_reliable():
     ref, test = _base_pair()
     v = test.voltage.samples
     test = test.replace(channels=(test.voltage.with_samples(np.minimum(v, 0.97 * v.max())), test.current))
-    w = [m for m in align_pair(ref, test).warnings if "looks clipped" in m]
+    p = align_pair(ref, test)
+    w = [m for m in p.warnings if "looks clipped" in m]
     assert len(w) == 1 and "test voltage 'U'" in w[0] and "verdict is not reliable" in w[0]
+    # its own mask: the currents were measured there
+    assert p.voltage_clipped.any() and not p.clipped.any()
+    assert p.test_clipped_current_s == 0.0
 
 
 def test_clipped_near_counts_neighbours():

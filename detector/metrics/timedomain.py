@@ -599,9 +599,9 @@ def time_domain_metrics(
     win_times = {k: (float(t[s.start]) if s.stop > s.start else float("nan"),
                      float(t[s.stop - 1]) if s.stop > s.start else float("nan")) for k, s in wins.items()}
     # samples at a recorder's clipping limit were not measured: scored as no difference
-    clip = pair.clipped
-    dv_s = np.where(clip, 0.0, dv) if clip.any() else dv
-    di_s = np.where(clip, 0.0, di) if clip.any() else di
+    clip_v, clip_i = pair.voltage_clipped, pair.clipped
+    dv_s = np.where(clip_v, 0.0, dv) if clip_v.any() else dv
+    di_s = np.where(clip_i, 0.0, di) if clip_i.any() else di
     dev_v = window_deviations(dv_s, sv, pk_v, wins, t)
     dev_i = window_deviations(di_s, si, pk_i, wins, t)
     ov = deviation_onset(dv_s, sv, dt, k_sigma=k_sigma, min_duration_s=min_duration_s, stop=stop)

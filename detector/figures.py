@@ -418,7 +418,8 @@ def difference_figure(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> Figure:
         holds a wave-shape-compensated current difference, a third panel shows the test current minus
         the current predicted from the reference under the test voltage [A], with its own
         time-dependent +/- :data:`COMPENSATED_K_SIGMA` sigma band, over the span where it is valid
-        (after a chop too).
+        (after a chop too). Samples a recorder clipped (not measured, not scored) are shaded
+        (:data:`CLIPPED_LABEL`).
 
     Raises
     ------
@@ -469,6 +470,9 @@ def difference_figure(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> Figure:
         ax.set_title(f"{what}: test − scaled reference (noise σ = {sig:.3g} {unit})", fontsize=_FONT_PT + 1,
                      loc="left")
         _mark_fault(ax, t_f, label=ax is ax_v)
+    # samples a recorder clipped were not measured and are not scored
+    _shade_runs(ax_v, t_us, p.voltage_clipped, label=True)
+    _shade_runs(ax_i, t_us, p.clipped, label=not p.voltage_clipped.any())
     # window boundaries of the time-domain metrics, labelled inside the upper axes
     for k, name in enumerate(("front", "crest", "tail")):
         w0 = td.windows.get(name, (math.nan, math.nan))[0]
@@ -481,11 +485,34 @@ def difference_figure(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> Figure:
                       textcoords="offset points", fontsize=_FONT_PT - 1, color="#444444")
     if cd is not None:
         _compensated_panel(axes[2], cd, t_us, scale, t_f)
+        _shade_runs(axes[2], t_us, p.clipped | p.voltage_clipped, label=False)
     axes[-1].set_xlabel("time on the test record [µs]", fontsize=_FONT_PT)
     for ax in axes[:-1]:
         ax.set_xlabel("time on the test record [µs]", fontsize=_FONT_PT - 1, labelpad=1)
-    _top_legend(fig, ax_v)
+    _top_legend(fig, ax_v, extra=[h for h in ax_i.get_legend_handles_labels()[0] if h.get_label() == CLIPPED_LABEL])
     return fig
+
+
+#: Label of the shading over samples a recorder clipped (not measured, not compared).
+CLIPPED_LABEL = "not measured (recorder clipped)"
+
+
+def _shade_runs(ax: Any, t_us: np.ndarray, mask: np.ndarray, *, label: bool, max_runs: int = 200) -> None:
+    """Shade each run of flagged samples (the first ``max_runs``; runs closer than 0.1 % of the view merge)."""
+    m = np.asarray(mask, dtype=bool)
+    if not m.any():
+        return
+    edges = np.flatnonzero(np.diff(np.concatenate(([0], m.astype(np.int8), [0]))))
+    starts, stops = edges[::2], edges[1::2] - 1
+    gap = 1e-3 * float(t_us[-1] - t_us[0])
+    new = np.concatenate(([True], t_us[starts[1:]] - t_us[stops[:-1]] > gap))  # a run that starts a group
+    first = np.flatnonzero(new)
+    s0, s1 = starts[first], stops[np.r_[first[1:] - 1, stops.size - 1]]
+    half = 0.5 * float(t_us[1] - t_us[0]) if t_us.size > 1 else 0.0  # a run covers its samples' cells
+    for k, (a, b) in enumerate(zip(s0[:max_runs], s1[:max_runs], strict=True)):  # loop over runs, not samples
+        ax.axvspan(float(t_us[a]) - half, float(t_us[b]) + half, facecolor=OKABE_ITO["orange"], alpha=0.25,
+                   linewidth=0,
+                   label=CLIPPED_LABEL if (label and k == 0) else None)
 
 
 def _compensated_panel(ax: Any, cd: Any, t_us: np.ndarray, scale: float, t_f: float | None) -> None:

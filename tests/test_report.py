@@ -27,7 +27,7 @@ from detector._validation import ShotcheckError
 from detector.compare import DEFAULT_MODEL_PATH, compare, default_model
 from detector.data import example_record
 from detector.features import FEATURE_NAMES, SCHEMA_VERSION, extract
-from detector.figures import FIGURE_NAMES, K_SIGMA, figures, format_frequency
+from detector.figures import CLIPPED_LABEL, FIGURE_NAMES, K_SIGMA, difference_figure, figures, format_frequency
 from detector.metrics.timedomain import time_domain_metrics
 from detector.model import FaultClassifier, LocationRegressor, ShotModel
 from detector.report import SAFETY_CAUTION, render_html, write_report
@@ -276,6 +276,33 @@ def test_write_report_replaces_atomically(fault_case, tmp_path):
     assert out == target
     assert target.read_text("utf-8").startswith("<!DOCTYPE html>")
     assert [p.name for p in tmp_path.iterdir()] == ["r.html"]  # no temporary file left behind
+
+
+def test_difference_figure_shades_what_a_recorder_clipped(report_model):
+    """Samples at a clipping limit are not scored; the figure shades them so the engineer sees where."""
+    ref, test = example_record("full"), example_record("full", seed=8)
+    i = test.current.samples
+    k = int(np.argmax(np.abs(i)))
+    limit = 0.8 * abs(i[k])
+    test = test.replace(channels=(test.voltage, test.current.with_samples(np.clip(i, -limit, limit))))
+    v = compare(ref, test, model=report_model)
+    clip = v.analysis.pair.clipped
+    assert clip.any()
+    fig = difference_figure(v)
+    ax_i = fig.axes[1]
+    spans = [p for p in ax_i.patches if p.get_facecolor()[:3] == pytest.approx((0xE6 / 255, 0x9F / 255, 0))]
+    assert spans
+    t_us = v.analysis.pair.test_times_s * 1e6
+    covered = np.zeros(t_us.size, dtype=bool)
+    for p in spans:
+        x0 = p.get_x() if isinstance(p, Rectangle) else min(xy[0] for xy in p.get_xy())
+        x1 = (p.get_x() + p.get_width()) if isinstance(p, Rectangle) else max(xy[0] for xy in p.get_xy())
+        covered |= (t_us >= x0) & (t_us <= x1)
+    assert covered[clip].all()
+    assert [t.get_text() for lg in fig.legends for t in lg.get_texts()].count(CLIPPED_LABEL) == 1
+    # an unclipped pair draws no such shading
+    plain = difference_figure(compare(ref, example_record("full", seed=8), model=report_model))
+    assert not [p for p in plain.axes[1].patches if p.get_facecolor()[:3] == pytest.approx((0xE6 / 255, 0x9F / 255, 0))]
 
 
 def test_chopped_report_of_the_example_unit(chopped_verdict, tmp_path):

@@ -253,9 +253,8 @@ def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s:
         in_front |= in_chop  # scored with the front: the least predictable parts
     # samples at (or next to) a recorder's clipping limit were not measured: never scored (a clipped
     # voltage also spoils the predicted current there)
-    unmeasured = pair.clipped | pair.voltage_clipped
-    in_front &= ~unmeasured
-    in_chop = in_chop | unmeasured
+    in_front &= ~pair.unmeasured
+    in_chop = in_chop | pair.unmeasured
     after = fin & (t > front_s + FRONT_WINDOW_S[1]) & ~in_chop
     nan = math.nan
     front_z = float(z[in_front & fin].max()) if (in_front & fin).any() else nan
@@ -432,7 +431,7 @@ def extract(
         scored = np.isfinite(cd.sigma[:stop]) & (t > front_s + FRONT_WINDOW_S[1])
         if chop_s is not None:
             scored &= ~((t >= chop_s + CHOP_WINDOW_S[0]) & (t <= chop_s + CHOP_WINDOW_S[1]))
-        scored &= ~(pair.clipped | pair.voltage_clipped)[:stop]
+        scored &= ~pair.unmeasured[:stop]
         wd = wavelet_difference(cd.predicted[:stop], test_current[:stop], dt,
                                 t0_s=float(pair.times_s[0]), noise_scale=cd.sigma[:stop], scored=scored,
                                 noise_segments=WAVELET_NOISE_SEGMENTS)

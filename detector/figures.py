@@ -485,7 +485,7 @@ def difference_figure(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> Figure:
                       textcoords="offset points", fontsize=_FONT_PT - 1, color="#444444")
     if cd is not None:
         _compensated_panel(axes[2], cd, t_us, scale, t_f)
-        _shade_runs(axes[2], t_us, p.clipped | p.voltage_clipped, label=False)
+        _shade_runs(axes[2], t_us, p.unmeasured, label=False)
     axes[-1].set_xlabel("time on the test record [µs]", fontsize=_FONT_PT)
     for ax in axes[:-1]:
         ax.set_xlabel("time on the test record [µs]", fontsize=_FONT_PT - 1, labelpad=1)

@@ -300,7 +300,12 @@ def clipping_warning(samples: np.ndarray, label: str, *, unit: str = "", quantit
     crest of a coarsely quantised record (8 bits), which spends comparable times at its top code and
     the codes just below, from counting.
     """
-    runs = _clip_runs(samples)
+    return _clip_message(_clip_runs(samples), label, unit, quantity)
+
+
+def _clip_message(runs: list[tuple[str, float, np.ndarray, int]], label: str, unit: str,
+                  quantity: str) -> str | None:
+    """The warning of :func:`clipping_warning` for the clipped extremes ``runs`` of :func:`_clip_runs`."""
     if not runs:
         return None
     name, value, _, run = runs[0]
@@ -332,8 +337,13 @@ def clipped_samples(samples: np.ndarray) -> np.ndarray:
         (all False when the channel is not clipped).
     """
     x = np.asarray(samples, dtype=np.float64)
-    mask = np.zeros(x.size, dtype=bool)
-    for _, _, on, _ in _clip_runs(x):
+    return _runs_mask(_clip_runs(x), x.size)
+
+
+def _runs_mask(runs: list[tuple[str, float, np.ndarray, int]], n: int) -> np.ndarray:
+    """Samples at any clipped extreme of ``runs`` (from :func:`_clip_runs`) of an ``n``-sample channel."""
+    mask = np.zeros(n, dtype=bool)
+    for _, _, on, _ in runs:
         mask |= on
     return mask
 
@@ -761,6 +771,11 @@ class AlignedPair:
             object.__setattr__(self, f, c)
 
     @property
+    def unmeasured(self) -> np.ndarray:
+        """Samples where a current or a voltage channel clipped (``clipped | voltage_clipped``)."""
+        return self.clipped | self.voltage_clipped
+
+    @property
     def n_samples(self) -> int:
         """Number of aligned samples."""
         return int(self.times_s.size)
@@ -846,11 +861,11 @@ def align_pair(
         rec.current  # raises RecordError naming the file if there is none  # noqa: B018
         masks = []
         for ch in (rec.voltage, rec.current):
-            w = clipping_warning(ch.samples, f"{label} {ch.quantity} {ch.name!r}", unit=ch.unit,
-                                 quantity=ch.quantity)
+            runs = _clip_runs(ch.samples)  # once per channel: the warning and the mask
+            w = _clip_message(runs, f"{label} {ch.quantity} {ch.name!r}", ch.unit, ch.quantity)
             if w:
                 warnings.append(w)
-            masks.append(clipped_samples(ch.samples) if w else np.zeros(ch.samples.size, dtype=bool))
+            masks.append(_runs_mask(runs, ch.samples.size))
         clip_masks.append(masks)
     raw = (ref, tst)  # the masks are on these records' own sample times
     grid = common_grid(ref, tst, method=method)

@@ -32,6 +32,7 @@ from .metrics.compensated import (
     multiscale_z,
     quantisation_step,
 )
+from .metrics.oscillation import OscillationScan, damped_oscillation_scan
 from .metrics.timedomain import TimeDomainMetrics, time_domain_metrics, voltage_steps
 from .metrics.transfer import (
     TransferComparison,
@@ -47,7 +48,7 @@ from .waveshape import WaveShape, evaluate_waveshape
 __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "16"
+SCHEMA_VERSION = "17"
 
 #: Averaging lengths [samples] scored again after the core term is removed (it is slow).
 CORE_SCALES = (64, 256, 1024)
@@ -75,6 +76,10 @@ LOG_BANDS_HZ: tuple[tuple[float, float], ...] = tuple(
 _WINDOWS = ("front", "crest", "tail")
 _WV_LABELS = tuple(f"D{k}" for k in range(1, WAVELET_LEVELS + 1)) + ("A",)
 
+
+#: Trial frequencies below this count as the winding's slow oscillations (osc_low_z), the others as
+#: its faster ones (osc_high_z, which a chop also excites) [Hz].
+OSC_SPLIT_HZ = 210e3
 
 #: Time scales of the voltage step detector (:func:`detector.metrics.timedomain.voltage_steps`) [s].
 VOLTAGE_STEP_SCALES_S = (40e-9, 160e-9, 640e-9)
@@ -125,6 +130,10 @@ def _names() -> tuple[str, ...]:
     n += [f"wv_D{k}_bursts" for k in range(1, BURST_LEVELS + 1)]
     n += [f"wv_D{k}_burst_span_us" for k in range(1, BURST_LEVELS + 1)]
     n += ["wv_fine_bursts_strong"]
+    # the winding's own slow oscillations set going at one instant (a charge moved inside it), in the
+    # compensated difference without its core term: strongest below and above OSC_SPLIT_HZ, and the
+    # frequency and onset of the strongest
+    n += ["osc_low_z", "osc_high_z", "osc_frequency_kHz", "osc_onset_after_front_us"]
     return tuple(n)
 
 
@@ -287,8 +296,19 @@ def _compensated_features(cd: CompensatedDifference, pair: AlignedPair, front_s:
     driven = [nan, nan]
     if starts.size:
         driven = list(driven_fraction(cd, pair.test_voltage_pu, pair.sample_interval_s, after, int(starts.min())))
+    osc = damped_oscillation_scan(cd_core.difference, cd.sigma, after, pair.sample_interval_s, t0_s=float(t[0]))
     return [front_z, max_z, max_pct, energy, onset_us, span_us, onset_s, ms_z, ms_i, ms_r, ms_b,
-            [core_end, *core_z.tolist(), *driven]]
+            [core_end, *core_z.tolist(), *driven], _oscillation_features(osc, front_s)]
+
+
+def _oscillation_features(osc: OscillationScan, front_s: float) -> list[float]:
+    """osc_low_z, osc_high_z, osc_frequency_kHz, osc_onset_after_front_us of a scan."""
+    lo, hi, best = osc.strongest(high_Hz=OSC_SPLIT_HZ), osc.strongest(low_Hz=OSC_SPLIT_HZ), osc.strongest()
+    nan = math.nan
+    if best is None or not math.isfinite(osc.onset_s[best]):
+        return [nan] * 4
+    return [float(osc.z[lo]) if lo is not None else nan, float(osc.z[hi]) if hi is not None else nan,
+            float(osc.frequencies_Hz[best]) / 1e3, 1e6 * (float(osc.onset_s[best]) - front_s)]
 
 
 def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[float]:
@@ -493,6 +513,7 @@ def extract(
         1e6 * pair.ref_clipped_current_s,
         1e6 * pair.test_clipped_current_s,
         *bursts,
+        *cd_f[12],
     ]
     vec = np.asarray(f, dtype=np.float64)
     if vec.size != len(FEATURE_NAMES):  # a programming error, never a user's

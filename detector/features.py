@@ -48,7 +48,7 @@ from .waveshape import WaveShape, evaluate_waveshape
 __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "17"
+SCHEMA_VERSION = "18"
 
 #: Averaging lengths [samples] scored again after the core term is removed (it is slow).
 CORE_SCALES = (64, 256, 1024)
@@ -134,6 +134,11 @@ def _names() -> tuple[str, ...]:
     # compensated difference without its core term: strongest below and above OSC_SPLIT_HZ, and the
     # frequency and onset of the strongest
     n += ["osc_low_z", "osc_high_z", "osc_frequency_kHz", "osc_onset_after_front_us"]
+    # interference tones removed from the compensated difference: how many, the fewest periods one of
+    # them completes in the pre-trigger (under about one, the pre-trigger means that set the baselines
+    # are biased by it and the slow scores of the pair are less to be trusted) and the largest one's
+    # amplitude in noise units
+    n += ["tone_count", "tone_pretrigger_periods", "tone_amplitude_sigma"]
     return tuple(n)
 
 
@@ -309,6 +314,15 @@ def _oscillation_features(osc: OscillationScan, front_s: float) -> list[float]:
         return [nan] * 4
     return [float(osc.z[lo]) if lo is not None else nan, float(osc.z[hi]) if hi is not None else nan,
             float(osc.frequencies_Hz[best]) / 1e3, 1e6 * (float(osc.onset_s[best]) - front_s)]
+
+
+def _tone_features(cd: CompensatedDifference, pretrigger_s: float) -> list[float]:
+    """tone_count, tone_pretrigger_periods, tone_amplitude_sigma of a compensated difference."""
+    if not cd.tones:
+        return [0.0, math.nan, 0.0]
+    noise = float(np.nanmin(cd.sigma))  # the difference's noise where it is smallest (the pre-trigger's)
+    return [float(len(cd.tones)), min(f * pretrigger_s for f, _ in cd.tones),
+            max(a for _, a in cd.tones) / noise if noise > 0 else math.inf]
 
 
 def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[float]:
@@ -514,6 +528,7 @@ def extract(
         1e6 * pair.test_clipped_current_s,
         *bursts,
         *cd_f[12],
+        *_tone_features(cd, pair.pretrigger_samples * dt),
     ]
     vec = np.asarray(f, dtype=np.float64)
     if vec.size != len(FEATURE_NAMES):  # a programming error, never a user's

@@ -32,6 +32,8 @@ THRESHOLDED: Mapping[str, str] = {
     "tf_max_peak_shift": "largest relative shift of a matched resonance",
     "wv_fine_peak_sigma": "largest wavelet difference at the finest levels D1-D2, in noise units",
     "wv_coarse_peak_sigma": "largest wavelet difference at levels D4 and coarser, in noise units",
+    "osc_low_z": "damped oscillation of the winding below 210 kHz from one instant, in noise units",
+    "osc_high_z": "damped oscillation of the winding at 210 kHz-2 MHz from one instant, in noise units",
 }
 
 

@@ -71,3 +71,22 @@ def test_calibration_input_errors():
         calibrate_thresholds(np.ones((30, 3)))
     with pytest.raises(ShotcheckError, match="false_alarm_rate"):
         calibrate_thresholds(np.ones((30, len(FEATURE_NAMES))), false_alarm_rate=0.9)
+
+
+def test_interference_tones_are_described_for_the_classifier():
+    """A 300 kHz tone of 3 codes on both recorders, 3 us of pre-trigger: under one period of the tone
+    fits in the pre-trigger, so its means (the baselines) are biased by it; the features say so."""
+    from detection_cases import make_case
+
+    rec = {"interference_amplitude_lsb": 3.0, "interference_frequency_Hz": 300e3, "pretrigger_s": 3e-6}
+    c = make_case(test_recorder=rec, reference_recorder=rec)
+    a = extract(c.reference, c.test)
+    d = a.as_dict()
+    pre_s = a.pair.pretrigger_samples * a.pair.sample_interval_s
+    assert d["tone_count"] == 1.0
+    assert d["tone_pretrigger_periods"] == pytest.approx(300e3 * pre_s, rel=0.02)
+    assert d["tone_pretrigger_periods"] < 1.0
+    assert d["tone_amplitude_sigma"] > 3.0
+    clean = make_case()
+    d = extract(clean.reference, clean.test).as_dict()
+    assert d["tone_count"] == 0.0 and np.isnan(d["tone_pretrigger_periods"]) and d["tone_amplitude_sigma"] == 0.0

@@ -316,6 +316,17 @@ def _oscillation_features(osc: OscillationScan, front_s: float) -> list[float]:
             float(osc.frequencies_Hz[best]) / 1e3, 1e6 * (float(osc.onset_s[best]) - front_s)]
 
 
+def _slow_tone_warning(cd: CompensatedDifference, pretrigger_s: float) -> str | None:
+    """A warning when an interference tone completes under one period in the pre-trigger, else None."""
+    slow = [(f, f * pretrigger_s) for f, _ in cd.tones if f * pretrigger_s < 1.0]
+    if not slow:
+        return None
+    f, periods = min(slow, key=lambda fp: fp[1])
+    return (f"interference at {f / 1e3:.0f} kHz completes only {periods:.2f} of a period in the "
+            f"{1e6 * pretrigger_s:.1f} us pre-trigger: the baselines taken there are biased by it and slow "
+            "differences are less reliable (record a pre-trigger of several periods of the interference)")
+
+
 def _tone_features(cd: CompensatedDifference, pretrigger_s: float) -> list[float]:
     """tone_count, tone_pretrigger_periods, tone_amplitude_sigma of a compensated difference."""
     if not cd.tones:
@@ -428,6 +439,9 @@ def extract(
     # wave-shape-compensated current difference: valid across chopping and generator drift
     cd = compensated_difference(pair.ref_voltage_pu, pair.ref_current_pu, pair.test_voltage_pu,
                                 pair.test_current_pu, dt, pretrigger_samples=pair.pretrigger_samples)
+    tone_note = _slow_tone_warning(cd, pair.pretrigger_samples * dt)
+    if tone_note is not None:
+        notes.append(tone_note)
     floor = _quantisation_floor(reference, test, pair)
     chop_s = None
     if td.test_collapse is not None:

@@ -87,6 +87,11 @@ def test_interference_tones_are_described_for_the_classifier():
     assert d["tone_pretrigger_periods"] == pytest.approx(300e3 * pre_s, rel=0.02)
     assert d["tone_pretrigger_periods"] < 1.0
     assert d["tone_amplitude_sigma"] > 3.0
+    # and the engineer is told, with what to do about it
+    assert any(w.startswith("interference at") and "of a period in the" in w and "pre-trigger of several periods" in w
+               for w in a.warnings), a.warnings
     clean = make_case()
-    d = extract(clean.reference, clean.test).as_dict()
+    a = extract(clean.reference, clean.test)
+    d = a.as_dict()
     assert d["tone_count"] == 0.0 and np.isnan(d["tone_pretrigger_periods"]) and d["tone_amplitude_sigma"] == 0.0
+    assert not any("interference" in w for w in a.warnings)

@@ -439,7 +439,8 @@ def extract(
     # wave-shape-compensated current difference: valid across chopping and generator drift
     cd = compensated_difference(pair.ref_voltage_pu, pair.ref_current_pu, pair.test_voltage_pu,
                                 pair.test_current_pu, dt, pretrigger_samples=pair.pretrigger_samples)
-    tone_note = _slow_tone_warning(cd, pair.pretrigger_samples * dt)
+    pretrigger_s = pair.pretrigger_samples * dt
+    tone_note = _slow_tone_warning(cd, pretrigger_s)
     if tone_note is not None:
         notes.append(tone_note)
     floor = _quantisation_floor(reference, test, pair)
@@ -542,7 +543,7 @@ def extract(
         1e6 * pair.test_clipped_current_s,
         *bursts,
         *cd_f[12],
-        *_tone_features(cd, pair.pretrigger_samples * dt),
+        *_tone_features(cd, pretrigger_s),
     ]
     vec = np.asarray(f, dtype=np.float64)
     if vec.size != len(FEATURE_NAMES):  # a programming error, never a user's

@@ -44,8 +44,8 @@ __all__ = ["OscillationScan", "damped_oscillation_scan", "OSCILLATION_FREQUENCIE
 #: resonance of quality 4 is never more than half its bandwidth from one of them).
 OSCILLATION_FREQUENCIES_HZ: tuple[float, ...] = tuple(float(f) for f in np.geomspace(20e3, 2e6, 17))
 
-#: Largest exponent (natural log) the reverse sums of one segment may span: exp(300) stays well
-#: within double precision, its square too.
+#: Largest exponent (natural log) the powers of one segment may span, for the fastest-decaying of the
+#: three sums (pole |p|^2): exp(300) stays well within double precision.
 _MAX_EXPONENT = 300.0
 
 

@@ -324,3 +324,33 @@ def test_extra_trace_is_scored_as_a_second_call_would():
                                                          exclude=ex)[0])
     with pytest.raises(ShotcheckError, match="extra_scales"):
         multiscale_z(cd, start=500, extra=other, extra_scales=(100,))
+
+
+@pytest.mark.xfail(strict=True, reason="known shortfall: the noise sigma of the compensated difference is the "
+                   "difference's pre-trigger noise grown with the unwindowing gain; across a chop the reference "
+                   "barely resolves it is up to 1.5 times too small around the chop and 2.5 times too large late in "
+                   "the record. Carrying each record's noise through the deconvolution's filters passes this test "
+                   "but did not improve cross-validated detection (DEVELOPERS.md, 'The default model').")
+def test_noise_model_matches_the_spread_of_noise_draws_across_a_chop():
+    # sigma should be the spread of the difference over independent noise draws (Monte Carlo) for a full
+    # reference against a chopped test wave, where the chop excites frequencies the reference barely
+    # resolves and the prediction's noise is far from white
+    t = (np.arange(N) - PRE) * DT
+    v_r, v_t = _wave(t), _wave(t, chop_s=4e-6)
+    i_r, _ = _current(v_r, t)
+    i_t, _ = _current(v_t, t)
+    scale, noise = np.abs(i_r).max(), 1e-4
+    rng = np.random.default_rng(1)
+    draws, sigma = [], None
+    for _ in range(200):
+        cd = compensated_difference(v_r + rng.normal(0, noise, N), i_r + rng.normal(0, noise * scale, N),
+                                    v_t + rng.normal(0, noise, N), i_t + rng.normal(0, noise * scale, N), DT,
+                                    pretrigger_samples=PRE, remove_tones=False)
+        draws.append(cd.difference)
+        sigma = cd.sigma if sigma is None else np.maximum(sigma, cd.sigma)
+    spread = np.std(np.array(draws), axis=0)
+    after = np.flatnonzero(np.isfinite(sigma))
+    after = after[after > PRE + 150]  # past the front window
+    ratio = spread[after] / sigma[after]
+    assert ratio.max() < 1.35  # nowhere far too small (200 draws: the spread is itself uncertain by ~5 %)
+    assert 0.85 < np.median(ratio) < 1.15  # nor much too conservative

@@ -21,7 +21,7 @@ results against scikit-learn's to the last bit.
 from __future__ import annotations
 
 import contextlib
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from typing import Any
 
 import numpy as np
@@ -253,7 +253,8 @@ def _member_proba(member: Any, X: np.ndarray) -> np.ndarray | None:
     return None
 
 
-def score(model: Any, X: np.ndarray) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
+def score(model: Any, X: np.ndarray, at_instant: Callable[[np.ndarray], np.ndarray] | None = None
+          ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
     """Class probabilities, positions and fault instants of a few feature vectors.
 
     Parameters
@@ -262,6 +263,9 @@ def score(model: Any, X: np.ndarray) -> tuple[np.ndarray, np.ndarray | None, np.
         A loaded model (the flat walk is installed if it is not yet).
     X : numpy.ndarray of shape (n_samples, n_features)
         Feature vectors (float64, NaN for missing values).
+    at_instant : callable, optional
+        Maps the timer's instants [us after the front], shape (n_samples,), to the inputs the locator
+        takes at them (:func:`detector.features.instant_inputs`); needed by a locator trained on them.
 
     Returns
     -------
@@ -314,5 +318,8 @@ def score(model: Any, X: np.ndarray) -> tuple[np.ndarray, np.ndarray | None, np.
         return y if reg._clip is None else np.clip(y, *reg._clip)
 
     instant = regress(model.timer)
-    position = None if model.locator is None else regress(model.locator, model.locator_input(X, instant))
+    position = None
+    if model.locator is not None:
+        extra = at_instant(instant) if at_instant is not None and instant is not None else None
+        position = regress(model.locator, model.locator_input(X, instant, extra))
     return proba, position, instant

@@ -30,6 +30,7 @@ from .features import (
     PairAnalysis,
     describe,
     extract,
+    instant_inputs,
     sharp_onset_after_front_us,
 )
 from .model import EVENT_CLASSES, ShotModel, load_model
@@ -201,7 +202,7 @@ def compare(
     a = extract(reference, test, reference_shape=reference_shape)
     x = a.features.reshape(1, -1)
     # one sample: all trees walked at once, without per-tree calls (see detector._fastpredict)
-    proba_all, loc_all, t_all = _fastpredict.score(m, x)
+    proba_all, loc_all, t_all = _fastpredict.score(m, x, lambda inst: instant_inputs(a, inst))
     proba = proba_all[0]
     loc_pred = None if loc_all is None else float(loc_all[0])
     t_pred = None if t_all is None else float(t_all[0])

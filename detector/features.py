@@ -45,7 +45,8 @@ from .preprocess import AlignedPair, align_pair
 from .record import Record
 from .waveshape import WaveShape, evaluate_waveshape
 
-__all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract"]
+__all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract",
+           "INSTANT_INPUT_NAMES", "instant_inputs"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
 SCHEMA_VERSION = "18"
@@ -604,6 +605,103 @@ def instant_candidates() -> dict[str, tuple[int, ...]]:
         "candidate_columns": tuple(FEATURE_NAMES.index(c) for c in INSTANT_CANDIDATE_FEATURES),
         "sharp_columns": tuple(FEATURE_NAMES.index(c) for c in SHARP_ONSET_FEATURES),
     }
+
+
+#: Inputs of the locator measured at the fault instant (see :func:`instant_inputs`).
+INSTANT_INPUT_NAMES = (
+    "at_instant_voltage_step_z",
+    "at_instant_current_jump_z",
+    "at_instant_current_late_z",
+    "at_instant_log_current_over_voltage",
+    "at_instant_log_late_over_early",
+)
+
+#: Windows of :func:`instant_inputs` relative to the instant [s]: before, just after, later after.
+INSTANT_WINDOWS_S = ((-0.4e-6, -0.05e-6), (0.05e-6, 0.4e-6), (0.4e-6, 3.0e-6))
+
+
+def _prefix_sums(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Running sums of the finite ``values`` and of their count, each with a leading 0."""
+    fin = np.isfinite(values)
+    csum = np.zeros(values.size + 1)
+    np.cumsum(np.where(fin, values, 0.0), out=csum[1:])
+    ccount = np.zeros(values.size + 1, dtype=np.int64)
+    np.cumsum(fin, out=ccount[1:])
+    return csum, ccount
+
+
+def _window_means(t: np.ndarray, sums: tuple[np.ndarray, np.ndarray], centre_s: np.ndarray, lo_s: float,
+                  hi_s: float, before: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Mean of the finite values (given by :func:`_prefix_sums`) in a window around each centre, and its
+    count of finite samples.
+
+    ``before`` windows hold ``centre + lo <= t < centre + hi``, the others ``centre + lo < t <= centre + hi``.
+    """
+    csum, ccount = sums
+    side = "left" if before else "right"
+    i0 = np.searchsorted(t, centre_s + lo_s, side=side)
+    i1 = np.searchsorted(t, centre_s + hi_s, side=side)
+    n = ccount[i1] - ccount[i0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = (csum[i1] - csum[i0]) / n
+    return np.where(n > 0, mean, np.nan), n
+
+
+def instant_inputs(analysis: PairAnalysis, instant_after_front_us: np.ndarray | float) -> np.ndarray:
+    """Step of the voltage difference and jump of the compensated current difference across an instant.
+
+    A breakdown changes the test voltage and the neutral current at once. How much of it reaches the
+    neutral in the first few hundred nanoseconds falls off with the fault's distance from the neutral,
+    while the voltage step at the line end does not: the ratio of the two, and of the later to the
+    immediate current jump, carry the fault's position along the winding. The locator takes these at
+    the timer's instant (:meth:`detector.model.ShotModel.locator_input`).
+
+    Parameters
+    ----------
+    analysis : PairAnalysis
+        From :func:`extract`.
+    instant_after_front_us : float or numpy.ndarray, shape (k,)
+        Fault instants [us after the reference front, pair axis]; NaN gives a row of NaN.
+
+    Returns
+    -------
+    numpy.ndarray, shape (k, len(INSTANT_INPUT_NAMES))
+        In :data:`INSTANT_INPUT_NAMES` order: the mean test-voltage difference after the instant
+        (0.05-0.4 us) minus before it (0.05-0.4 us) in voltage noise units [1]; the same of the compensated
+        current difference in units of its median noise [1], and of its mean 0.4-3 us after [1];
+        log10 of the current jump over the voltage step (both per unit) and of the later over the
+        immediate current jump [1]. NaN where a window holds fewer than 3 samples or no compensated
+        difference exists.
+    """
+    inst = np.atleast_1d(np.asarray(instant_after_front_us, dtype=np.float64))
+    out = np.full((inst.size, len(INSTANT_INPUT_NAMES)), np.nan)
+    cd = analysis.compensated
+    if cd is None:
+        return out
+    t = analysis.pair.times_s
+    ok = np.isfinite(inst)
+    centre = analysis.front_time_s + 1e-6 * np.where(ok, inst, 0.0)
+    (b0, b1), (a0, a1), (l0, l1) = INSTANT_WINDOWS_S
+    td = analysis.time_domain
+    sv = td.voltage_sigma_pu
+    sig = cd.sigma[~np.isnan(cd.sigma)]  # an infinite sigma (no prediction there) counts, as in nanmedian
+    si = float(np.median(sig)) if sig.size else math.nan
+    sv_sums, si_sums = _prefix_sums(td.dv_pu), _prefix_sums(cd.difference)
+    dv_pre, n_pre = _window_means(t, sv_sums, centre, b0, b1, True)
+    dv_post, n_post = _window_means(t, sv_sums, centre, a0, a1, False)
+    di_pre, m_pre = _window_means(t, si_sums, centre, b0, b1, True)
+    di_post, m_post = _window_means(t, si_sums, centre, a0, a1, False)
+    di_late, _ = _window_means(t, si_sums, centre, l0, l1, False)
+    ok &= (n_pre >= 3) & (n_post >= 3)
+    dv = dv_post - dv_pre
+    di = np.where((m_pre >= 3) & (m_post >= 3), di_post - di_pre, np.nan)
+    di2 = di_late - di_pre
+    with np.errstate(invalid="ignore", divide="ignore"):
+        cols = [dv / sv, di / si, di2 / si,
+                np.log10(np.abs(di) + 1e-30) - np.log10(np.abs(dv) + 1e-30),
+                np.log10(np.abs(di2) + 1e-30) - np.log10(np.abs(di) + 1e-30)]
+    out[ok] = np.column_stack(cols)[ok]
+    return out
 
 
 def describe(features: np.ndarray) -> dict[str, Any]:

@@ -551,8 +551,9 @@ class ShotModel:
     timer: InstantRegressor | None = None
     none_threshold: float = 0.5
 
-    def locator_input(self, X: np.ndarray, instant_us: np.ndarray | None) -> np.ndarray:
-        """The rows the locator takes: the features, extended by the timing inputs if it was trained on them.
+    def locator_input(self, X: np.ndarray, instant_us: np.ndarray | None,
+                      at_instant: np.ndarray | None = None) -> np.ndarray:
+        """The rows the locator takes: the features, extended by what it was trained on besides them.
 
         Parameters
         ----------
@@ -560,11 +561,20 @@ class ShotModel:
             Feature vectors.
         instant_us : numpy.ndarray or None
             The timer's fault instants [us after the front].
+        at_instant : numpy.ndarray, shape (n_samples, len(INSTANT_INPUT_NAMES)), optional
+            :func:`detector.features.instant_inputs` at those instants, for a locator trained on them.
 
         Returns
         -------
         numpy.ndarray
-            ``X`` or :meth:`InstantRegressor.timing_inputs` of it, whichever the locator was fitted on.
+            ``X``; or :meth:`InstantRegressor.timing_inputs` of it; or those followed by ``at_instant``:
+            whichever the locator was fitted on.
+
+        Raises
+        ------
+        ShotcheckError
+            If the locator takes inputs that are not given (e.g. a locator trained on the inputs at the
+            instant, called without them).
         """
         X = np.atleast_2d(np.asarray(X, dtype=np.float64))
         n_in = getattr(self.locator, "n_features_in_", X.shape[1])
@@ -574,8 +584,21 @@ class ShotModel:
             Xt = self.timer.timing_inputs(X, instant_us)
             if Xt.shape[1] == n_in:
                 return Xt
-        raise ShotcheckError(f"the locator takes {n_in} inputs; the features ({X.shape[1]}) and this model's "
-                             "timer do not give them")
+            if at_instant is not None:
+                A = np.asarray(at_instant, dtype=np.float64).reshape(X.shape[0], -1)
+                if Xt.shape[1] + A.shape[1] == n_in:
+                    return np.concatenate([Xt, A], axis=1)
+        raise ShotcheckError(f"the locator takes {n_in} inputs; the features ({X.shape[1]}), this model's "
+                             "timer and the inputs at the instant given do not make them")
+
+    @property
+    def locator_at_instant(self) -> bool:
+        """Whether the locator takes :func:`detector.features.instant_inputs` besides the timing inputs."""
+        if self.locator is None or self.timer is None:
+            return False
+        n_in = getattr(self.locator, "n_features_in_", 0)
+        n_timing = self.timer.timing_inputs(np.zeros((1, len(self.feature_names))), np.zeros(1)).shape[1]
+        return n_in > n_timing
 
 
 #: Types a model file may contain beyond skops' defaults. Anything else is refused on load.

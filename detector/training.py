@@ -25,9 +25,11 @@ import numpy as np
 from ._validation import ShotcheckError
 from .features import (
     FEATURE_NAMES,
+    INSTANT_INPUT_NAMES,
     SCHEMA_VERSION,
     extract,
     instant_candidates,
+    instant_inputs,
     sharp_onset_after_front_us,
 )
 from .model import EVENT_CLASSES, FaultClassifier, InstantRegressor, LocationRegressor, ShotModel
@@ -64,6 +66,11 @@ class LabelledFeatures:
         without that label; None means all inf).
     front_us : numpy.ndarray or None
         Time of the voltage front (30 % point of the reference) on the test record's axis [us].
+    source : str or None
+        Data-set folder the rows come from (needed for the locator's inputs at the fault instant,
+        which are measured on the records: :func:`instant_inputs_of_dataset`).
+    at_instant : numpy.ndarray or None, shape (n, len(INSTANT_INPUT_NAMES))
+        Those inputs at a model's instants, where :func:`evaluate` has measured them.
     """
 
     X: np.ndarray
@@ -76,6 +83,8 @@ class LabelledFeatures:
     failed: list
     effect_lsb: np.ndarray | None = None
     front_us: np.ndarray | None = None
+    source: str | None = None
+    at_instant: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         n = len(self.event)
@@ -107,6 +116,97 @@ def _chunk(directory: str, case_ids: list[int]) -> list[tuple[int, np.ndarray, t
         for ref, test, lab in load_dataset(directory, case_ids=case_ids):
             f, on, err = _one(ref, test)
             out.append((int(lab["case_id"]), f, on, err))
+    return out
+
+
+def _instant_chunk(directory: str, items: list[tuple[int, np.ndarray]]) -> list[tuple[int, np.ndarray]]:
+    import warnings
+
+    from synthetic.dataset import load_dataset
+
+    want = dict(items)
+    out = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for ref, test, lab in load_dataset(directory, case_ids=list(want)):
+            cid = int(lab["case_id"])
+            try:
+                vals = instant_inputs(extract(ref, test), want[cid])
+            except ShotcheckError:
+                vals = np.full((want[cid].size, len(INSTANT_INPUT_NAMES)), np.nan)
+            out.append((cid, vals))
+    return out
+
+
+def instant_inputs_of_dataset(directory: str | Path, case_ids: np.ndarray, instants_us: np.ndarray, *,
+                              workers: int | None = None, progress: bool = True,
+                              use_cache: bool = True) -> np.ndarray:
+    """The locator's inputs at given fault instants (:func:`detector.features.instant_inputs`) of pairs of
+    a data set, measured on their records (one pass, in parallel).
+
+    Parameters
+    ----------
+    directory : str or Path
+        Folder written by ``shotcheck synth``.
+    case_ids : numpy.ndarray of int, shape (n,)
+        Pairs to measure.
+    instants_us : numpy.ndarray, shape (n,) or (n, k)
+        Instants of each pair [us after the reference front]; rows without a finite one are skipped.
+    workers : int, optional
+        Processes; default all cores.
+    progress : bool
+        Print the time taken on stderr.
+    use_cache : bool
+        Keep the result in the folder (``instant_inputs_v<schema>_<key>.npz``, keyed by the case ids and
+        instants) and reuse it.
+
+    Returns
+    -------
+    numpy.ndarray, shape (n, k, len(INSTANT_INPUT_NAMES))
+        NaN where an instant is not finite or the pair could not be measured.
+    """
+    import hashlib
+
+    from joblib import Parallel, delayed
+
+    from synthetic.dataset import read_labels
+
+    d = Path(directory)
+    ids = np.asarray(case_ids, dtype=np.int64).ravel()
+    inst = np.asarray(instants_us, dtype=np.float64)
+    inst = inst.reshape(ids.size, -1)
+    if np.unique(ids).size != ids.size:
+        raise ShotcheckError("instant_inputs_of_dataset: the case ids repeat; give each pair once")
+    out = np.full((ids.size, inst.shape[1], len(INSTANT_INPUT_NAMES)), np.nan)
+    key = hashlib.sha1(ids.tobytes() + np.ascontiguousarray(inst).tobytes()).hexdigest()[:16]
+    cache = d / f"instant_inputs_v{SCHEMA_VERSION}_{key}.npz"
+    if use_cache and cache.is_file():
+        z = np.load(cache, allow_pickle=False)
+        if z["values"].shape == out.shape:
+            return z["values"]
+    todo = np.flatnonzero(np.isfinite(inst).any(axis=1))
+    if todo.size:
+        shard_of = {int(r["case_id"]): int(r["shard"]) for r in read_labels(d)}
+        missing = [int(ids[i]) for i in todo if int(ids[i]) not in shard_of]
+        if missing:
+            raise ShotcheckError(f"{d}: case ids {missing[:5]} are not in labels.csv")
+        by_shard: dict[int, list[int]] = {}
+        for i in todo:
+            by_shard.setdefault(shard_of[int(ids[i])], []).append(int(i))
+        tasks = [[(int(ids[i]), inst[i]) for i in rows[j:j + TASK_SIZE]]
+                 for rows in by_shard.values() for j in range(0, len(rows), TASK_SIZE)]
+        t0 = time.perf_counter()
+        results = Parallel(n_jobs=workers or os.cpu_count() or 1, return_as="generator_unordered")(
+            delayed(_instant_chunk)(str(d), t) for t in tasks)
+        row_of = {int(ids[i]): int(i) for i in todo}
+        for chunk in results:
+            for cid, vals in chunk:
+                out[row_of[cid]] = vals
+        if progress:
+            print(f"inputs at the instant of {todo.size} pairs in {time.perf_counter() - t0:.1f} s",
+                  file=__import__("sys").stderr)
+    if use_cache:
+        np.savez_compressed(cache, values=out)
     return out
 
 
@@ -187,7 +287,7 @@ def extract_dataset(directory: str | Path, *, workers: int | None = None, progre
     ft = np.array([float(r["fault_time_us"]) if r["fault_time_us"] not in ("", None) else math.nan for r in labels])
     groups = np.array([f"{r.get('family', '')}-{r.get('seed', '')}-{r['case_id']}" for r in labels])
     out = LabelledFeatures(X, event, position, ft, onset, groups, labels, failed,
-                           np.array([_effect(r) for r in labels]), front)
+                           np.array([_effect(r) for r in labels]), front, source=str(d))
     return out
 
 
@@ -207,8 +307,8 @@ def _usable(data: LabelledFeatures) -> np.ndarray:
 def _subset(data: LabelledFeatures, keep: np.ndarray) -> LabelledFeatures:
     labels = [r for r, k in zip(data.labels, keep, strict=True) if k] if data.labels else []
     rows = {f.name: getattr(data, f.name)[keep] for f in dataclasses.fields(data)
-            if f.name not in ("labels", "failed")}
-    return LabelledFeatures(labels=labels, failed=data.failed, **rows)
+            if f.name not in ("labels", "failed", "source") and getattr(data, f.name) is not None}
+    return LabelledFeatures(labels=labels, failed=data.failed, source=data.source, **rows)
 
 
 #: Faults whose noise-free effect stays below this many recorder codes are invisible to any comparison
@@ -250,28 +350,58 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
         raise ShotcheckError("the training set needs at least two event classes")
     report: dict[str, Any] = {}
     none_threshold = 0.5
-    if cv_folds and cv_folds >= 2:
-        pred = np.empty(y.size, dtype=object)
+    rel = data.fault_time_us - data.front_us  # target of the instant regressor [us after the front]
+    located = (y != "none") & np.isfinite(pos)
+    folds = list(GroupKFold(n_splits=cv_folds).split(X, y, groups)) if cv_folds and cv_folds >= 2 else []
+    # the timers come first: the locator learns from instants they did not see fitted, and its inputs
+    # at those instants are measured on the records in one pass over the data set
+    inst_rel = np.full(y.size, np.nan)  # out-of-fold instants [us after the front]
+    nested: list[np.ndarray | None] = []  # per fold: instants of its training rows from timers without them
+    fold_timers: list[InstantRegressor | None] = []
+    for tr, te in folds:
+        ta = (y[tr] != "none") & np.isfinite(rel[tr])
+        timer_tr = None
+        if ta.sum() >= 10:
+            timer_tr = InstantRegressor(random_state=seed, **instant_candidates()).fit(X[tr][ta], rel[tr][ta])
+            inst_rel[te] = _instant(X[te], timer_tr)
+        fold_timers.append(timer_tr)
+        nested.append(_out_of_fold_instants(X[tr], rel[tr], y[tr], groups[tr], seed, cv_folds)
+                      if timer_tr is not None and located[tr].sum() >= 10 else None)
+    ta = (y != "none") & np.isfinite(rel)
+    timer = (InstantRegressor(random_state=seed, **instant_candidates()).fit(X[ta], rel[ta])
+             if ta.sum() >= 10 else None)
+    # the final locator's instants: the cross-validation's out-of-fold ones when it ran with 3+ folds
+    final_inst = inst_rel if len(folds) >= 3 else _out_of_fold_instants(X, rel, y, groups, seed, 3)
+    at = None  # inputs at the instants: column 0 final, 1 cross-validated, 2.. nested per fold
+    if data.source is not None and data.labels and timer is not None and located.sum() >= 10:
+        cols = np.full((y.size, 2 + len(folds)), np.nan)
+        cols[:, 0] = final_inst
+        cols[:, 1] = inst_rel
+        for k, ((tr, _), nk) in enumerate(zip(folds, nested, strict=True)):
+            if nk is not None:
+                cols[tr, 2 + k] = nk
+        cols[~located] = np.nan  # only located faults train the locator or enter its figures
+        ids = np.array([int(r["case_id"]) for r in data.labels])
+        at = instant_inputs_of_dataset(data.source, ids, cols, progress=False)
+
+    def locator_rows(rows: np.ndarray, timer_: InstantRegressor, instants: np.ndarray, col: int) -> np.ndarray:
+        Xl = timer_.timing_inputs(X[rows], instants)
+        return Xl if at is None else np.concatenate([Xl, at[rows, col]], axis=1)
+
+    if folds:
         proba = np.zeros((y.size, len(EVENT_CLASSES)))
         loc = np.full(y.size, np.nan)
-        inst_rel = np.full(y.size, np.nan)  # out-of-fold instants [us after the front]
-        rel = data.fault_time_us - data.front_us  # target of the instant regressor [us after the front]
-        for tr, te in GroupKFold(n_splits=cv_folds).split(X, y, groups):
-            ta = (y[tr] != "none") & np.isfinite(rel[tr])
-            timer_tr = None
-            if ta.sum() >= 10:
-                timer_tr = InstantRegressor(random_state=seed, **instant_candidates()).fit(X[tr][ta], rel[tr][ta])
-                inst_rel[te] = _instant(X[te], timer_tr)
+        for k, (tr, te) in enumerate(folds):
             clf = FaultClassifier(random_state=seed).fit(X[tr], y[tr])
             p = clf.predict_proba(X[te])
-            for k, c in enumerate(clf.classes_):
-                proba[te, EVENT_CLASSES.index(str(c))] = p[:, k]
-            fa = (y[tr] != "none") & np.isfinite(pos[tr])
+            for j, c in enumerate(clf.classes_):
+                proba[te, EVENT_CLASSES.index(str(c))] = p[:, j]
+            fa = located[tr]
             if fa.sum() >= 10:
-                if timer_tr is not None:  # the locator learns from instants it did not see fitted
-                    oof = _out_of_fold_instants(X[tr], rel[tr], y[tr], groups[tr], seed, cv_folds)
-                    Xl_tr = timer_tr.timing_inputs(X[tr], oof)
-                    Xl_te = timer_tr.timing_inputs(X[te], inst_rel[te])
+                timer_tr = fold_timers[k]
+                if timer_tr is not None and nested[k] is not None:  # instants it did not see fitted
+                    Xl_tr = locator_rows(tr, timer_tr, nested[k], 2 + k)
+                    Xl_te = locator_rows(te, timer_tr, inst_rel[te], 1)
                 else:
                     Xl_tr, Xl_te = X[tr], X[te]
                 loc[te] = LocationRegressor(random_state=seed).fit(Xl_tr[fa], pos[tr][fa]).predict(Xl_te)
@@ -283,17 +413,9 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     benign = X[y == "none"]
     thresholds = calibrate_thresholds(benign, false_alarm_rate=false_alarm_rate_target) if benign.shape[0] >= 10 else {}
     clf = FaultClassifier(random_state=seed).fit(X, y)
-    rel = data.fault_time_us - data.front_us
-    ta = (y != "none") & np.isfinite(rel)
-    timer = (InstantRegressor(random_state=seed, **instant_candidates()).fit(X[ta], rel[ta])
-             if ta.sum() >= 10 else None)
-    fa = (y != "none") & np.isfinite(pos)
-    Xl = X
-    if timer is not None and fa.sum() >= 10:  # the locator also takes the instant and each onset's delay
-        # the cross-validation above made the same out-of-fold instants when it ran with 3 or more folds
-        oof = inst_rel if cv_folds and cv_folds >= 3 else _out_of_fold_instants(X, rel, y, groups, seed, 3)
-        Xl = timer.timing_inputs(X, oof)
-    locator = LocationRegressor(random_state=seed).fit(Xl[fa], pos[fa]) if fa.sum() >= 10 else None
+    all_rows = np.arange(y.size)
+    Xl = locator_rows(all_rows, timer, final_inst, 0) if timer is not None and located.sum() >= 10 else X
+    locator = LocationRegressor(random_state=seed).fit(Xl[located], pos[located]) if located.sum() >= 10 else None
     card = {
         "name": "shotcheck synthetic model",
         "training_data": description,
@@ -305,6 +427,9 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
         "false_alarm_rate_target": false_alarm_rate_target,
         "threshold_false_alarm_rate_on_training": false_alarm_rate(benign, thresholds) if thresholds else None,
         "cross_validation": {k: v for k, v in report.items() if k != "roc"},
+        "locator_inputs": ("features" if locator is None or Xl is X else
+                           "features, instant and onset delays" + ("" if at is None else
+                                                                   ", " + ", ".join(INSTANT_INPUT_NAMES))),
     }
     card["none_threshold"] = none_threshold
     model = ShotModel(clf, locator, FEATURE_NAMES, SCHEMA_VERSION, thresholds, card, timer, none_threshold)
@@ -390,6 +515,14 @@ def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float 
     ok = _usable(data)
     n_failed = int((~ok).sum())
     full = _subset(data, ok)
+    if model.locator_at_instant and full.at_instant is None:  # measured on the records, at the model's instants
+        if full.source is None or not full.labels:
+            raise ShotcheckError("this model's locator takes inputs measured on the records at the fault "
+                                 "instant; evaluate it on a data-set folder (shotcheck evaluate MODEL DATA)")
+        inst = _instant(full.X, model.timer)
+        inst[~((full.event != "none") & np.isfinite(full.position))] = np.nan  # only faults are located
+        ids = np.array([int(r["case_id"]) for r in full.labels])
+        full.at_instant = instant_inputs_of_dataset(full.source, ids, inst, progress=False)[:, 0]
     rep = _evaluate_subset(model, _subset(full, full.effect_lsb >= min_effect_lsb))
     rep["min_effect_lsb"] = min_effect_lsb
     rep["n_failed_extractions"] = n_failed
@@ -503,7 +636,7 @@ def _evaluate_subset(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]
         return {"n_pairs": 0}
     proba, pred = _predict(model, X)
     rel_inst = _instant(X, model.timer) if model.timer is not None else None
-    loc = (model.locator.predict(model.locator_input(X, rel_inst)) if model.locator is not None
+    loc = (model.locator.predict(model.locator_input(X, rel_inst, sub.at_instant)) if model.locator is not None
            else np.full(X.shape[0], np.nan))
     inst = (data.front_us + rel_inst) if rel_inst is not None else None
     rep = _figures(sub, proba, pred, loc, inst)

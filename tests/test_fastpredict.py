@@ -11,6 +11,7 @@ import pytest
 from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostingRegressor
 
 from detector import _fastpredict
+from detector._validation import ShotcheckError
 from detector.model import FaultClassifier, LocationRegressor, ShotModel, load_model, save_model
 
 
@@ -121,6 +122,19 @@ def test_score_of_a_choosing_timer_equals_its_predict():
         assert np.array_equal(pos, loc.predict(timer.timing_inputs(x, timer.predict(x))))
         chosen += int(np.sum(np.isin(t, x[:, :3])))
     assert chosen > 0.5 * (80 + 7 + X.shape[0])  # mostly a column's own value, not the regression
+    # a locator that also takes inputs measured at the instant gets them from the callable, at the
+    # timer's instants
+    def at(inst):
+        return np.column_stack([np.sin(inst), np.cos(inst)])
+
+    loc2 = LocationRegressor(max_iter=30).fit(
+        np.hstack([timer.timing_inputs(X, timer.predict(X)), at(timer.predict(X))]), np.clip(truth / 20, 0, 1))
+    model.locator = loc2
+    for x in [X[i:i + 1] for i in range(20)] + [X]:
+        _, pos, t = _fastpredict.score(model, x, at)
+        assert np.array_equal(pos, loc2.predict(np.hstack([timer.timing_inputs(x, t), at(t)])))
+    with pytest.raises(ShotcheckError, match="inputs at the instant"):
+        _fastpredict.score(model, X[:1])
 
 
 def test_score_without_calibration_and_regressors():

@@ -95,3 +95,49 @@ def test_interference_tones_are_described_for_the_classifier():
     d = a.as_dict()
     assert d["tone_count"] == 0.0 and np.isnan(d["tone_pretrigger_periods"]) and d["tone_amplitude_sigma"] == 0.0
     assert not any("interference" in w for w in a.warnings)
+
+
+def _window_mean(t, values, lo, hi, before):
+    """Mean of the finite values in a window, by a boolean mask (the brute-force form)."""
+    m = ((t >= lo) & (t < hi)) if before else ((t > lo) & (t <= hi))
+    m &= np.isfinite(values)
+    return (np.mean(values[m]) if m.sum() else np.nan), int(m.sum())
+
+
+@pytest.mark.slow
+def test_inputs_at_the_instant_are_window_means_and_follow_the_fault_along_the_winding():
+    """The locator's inputs at the instant equal brute-force window means; and their ratio of the neutral's
+    current jump to the voltage step grows as the fault moves from the line end to the neutral (common
+    practice: a breakdown near the line end shows mostly in the voltage, one near the neutral mostly in
+    the neutral current)."""
+    from detection_cases import make_case
+
+    from detector.features import INSTANT_INPUT_NAMES, INSTANT_WINDOWS_S, instant_inputs
+
+    ratio = {}
+    for fault in ("to_ground", "turn_to_turn"):
+        for section in (3, 20, 36):  # of 40, 0 at the line end
+            c = make_case(fault=fault, section=section)
+            a = extract(c.reference, c.test)
+            rel_us = c.fault_time_us - 1e6 * a.front_test_time_s
+            got = instant_inputs(a, [rel_us, np.nan, 1e4])
+            assert got.shape == (3, len(INSTANT_INPUT_NAMES))
+            assert np.isnan(got[1:]).all()  # no instant, and an instant past the record's end
+            t = a.pair.times_s
+            tf = a.front_time_s + 1e-6 * rel_us
+            (b0, b1), (a0, a1), (l0, l1) = INSTANT_WINDOWS_S
+            dv = a.time_domain.dv_pu
+            d = a.compensated.difference
+            dv_step = _window_mean(t, dv, tf + a0, tf + a1, False)[0] - _window_mean(t, dv, tf + b0, tf + b1, True)[0]
+            di_pre = _window_mean(t, d, tf + b0, tf + b1, True)[0]
+            di = _window_mean(t, d, tf + a0, tf + a1, False)[0] - di_pre
+            di2 = _window_mean(t, d, tf + l0, tf + l1, False)[0] - di_pre
+            si = np.nanmedian(a.compensated.sigma)
+            want = [dv_step / a.time_domain.voltage_sigma_pu, di / si, di2 / si,
+                    np.log10(abs(di) + 1e-30) - np.log10(abs(dv_step) + 1e-30),
+                    np.log10(abs(di2) + 1e-30) - np.log10(abs(di) + 1e-30)]
+            np.testing.assert_allclose(got[0], want, rtol=1e-9, atol=1e-12)
+            ratio[fault, section] = got[0, 3]
+    for fault in ("to_ground", "turn_to_turn"):
+        r = [ratio[fault, s] for s in (3, 20, 36)]
+        assert r[0] < r[1] < r[2], (fault, r)

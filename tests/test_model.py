@@ -246,3 +246,13 @@ def test_locator_input_follows_what_the_locator_was_fitted_on():
     assert plain.locator_input(X, inst) is not None and plain.locator_input(X, inst).shape == X.shape
     with pytest.raises(ShotcheckError, match="the locator takes 10 inputs"):
         timed.locator_input(X, None)
+    assert not timed.locator_at_instant and not plain.locator_at_instant
+    # a locator trained also on inputs measured at the instant takes them after the timing inputs
+    at = np.random.default_rng(1).normal(size=(X.shape[0], 5))
+    both = ShotModel(clf, LocationRegressor(max_iter=20).fit(np.hstack([ext, at]), pos), [f"f{i}" for i in range(6)],
+                     "t", timer=timer)
+    assert both.locator_at_instant
+    np.testing.assert_array_equal(both.locator_input(X, inst, at), np.hstack([ext, at]))
+    with pytest.raises(ShotcheckError, match="the locator takes 15 inputs"):
+        both.locator_input(X, inst)  # without them
+    np.testing.assert_array_equal(timed.locator_input(X, inst, at), ext)  # ignored where not trained on

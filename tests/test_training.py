@@ -129,3 +129,48 @@ def test_sensitivity_study_reports_each_kind_of_comparison(tmp_path):
     assert n_faults == 4  # half of the pairs are faulted
     # the overall rate is the faults-weighted mean of the per-comparison rates
     assert r["detected"] == pytest.approx(sum(b["detected"] * b["n_faults"] for b in by.values()) / n_faults)
+
+
+@pytest.mark.slow
+def test_the_locator_takes_inputs_measured_at_the_instant_when_the_records_are_at_hand(tmp_path):
+    """Trained on a data-set folder, the locator also takes the inputs at the timer's instant, measured on
+    the records (cached in the folder); evaluation and comparison measure them the same way."""
+    import dataclasses
+
+    from detector._validation import ShotcheckError
+    from detector.compare import compare
+    from detector.features import INSTANT_INPUT_NAMES
+    from detector.training import MIN_EFFECT_LSB, extract_dataset
+    from synthetic.dataset import generate, load_dataset
+
+    d = tmp_path / "set"
+    generate(36, d, seed=5, workers=1, progress=False)
+    data = extract_dataset(d, workers=1, progress=False)
+    assert data.source == str(d)
+    model, cv = train(data, cv_folds=3, description="36 synthetic pairs")
+    assert model.locator_at_instant
+    assert model.locator.n_features_in_ == model.timer.timing_inputs(data.X[:1], [0.0]).shape[1] + len(
+        INSTANT_INPUT_NAMES)
+    assert all(n in model.card["locator_inputs"] for n in INSTANT_INPUT_NAMES)
+    # measured once for every located fault: at the final instants, the cross-validated ones, and the
+    # instants of each fold's training rows (from timers that did not see them); kept for the next run
+    (cache,) = d.glob("instant_inputs_v*.npz")
+    values = np.load(cache)["values"]
+    used = np.isfinite(data.X).any(axis=1) & (data.effect_lsb >= MIN_EFFECT_LSB)  # the rows train() keeps
+    located = ((data.event != "none") & np.isfinite(data.position))[used]
+    assert values.shape == (used.sum(), 2 + 3, len(INSTANT_INPUT_NAMES))
+    assert np.isnan(values[~located]).all()
+    assert np.isfinite(values[located][:, :2, 0]).mean() > 0.8  # an instant outside the record gives NaN
+    assert (np.isfinite(values[located][:, 2:, 0]).sum(axis=1) <= 2).all()  # 2 of 3 folds train on a row
+    # 9 benign pairs set no useful operating point: decide by the most probable class, so that faults
+    # are indicated and located
+    model.none_threshold = 0.5
+    rep = evaluate(model, data)
+    assert rep["location_error_median"] is not None
+    # without the folder the inputs cannot be measured: a clear error, not a silent figure
+    with pytest.raises(ShotcheckError, match="data-set folder"):
+        evaluate(model, dataclasses.replace(data, source=None))
+    # a comparison measures them on its own pair
+    ref, test, lab = next((r, t, lab) for r, t, lab in load_dataset(d) if lab["event"] == "to_ground")
+    v = compare(ref, test, model=model)
+    assert v.fault_indicated and v.location is not None and 0.0 <= v.location <= 1.0

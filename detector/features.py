@@ -607,17 +607,17 @@ def instant_candidates() -> dict[str, tuple[int, ...]]:
     }
 
 
-#: Inputs of the locator measured at the fault instant (see :func:`instant_inputs`).
-INSTANT_INPUT_NAMES = (
-    "at_instant_voltage_step_z",
-    "at_instant_current_jump_z",
-    "at_instant_current_late_z",
-    "at_instant_log_current_over_voltage",
-    "at_instant_log_late_over_early",
-)
+#: Window before the fault instant, and windows after it, of :func:`instant_inputs` [us after the instant].
+INSTANT_BEFORE_WINDOW_US = (-0.4, -0.05)
+INSTANT_AFTER_WINDOWS_US = ((0.05, 0.2), (0.2, 0.4), (0.4, 1.0), (1.0, 3.0), (3.0, 10.0))
 
-#: Windows of :func:`instant_inputs` relative to the instant [s]: before, just after, later after.
-INSTANT_WINDOWS_S = ((-0.4e-6, -0.05e-6), (0.05e-6, 0.4e-6), (0.4e-6, 3.0e-6))
+#: Inputs of the locator measured at the fault instant (see :func:`instant_inputs`).
+INSTANT_INPUT_NAMES = tuple(
+    f"at_instant_{what}_{lo:g}_{hi:g}us"
+    for what in ("voltage_step_z", "current_jump_z", "log_current_over_early_voltage",
+                 "log_voltage_over_early_voltage")
+    for lo, hi in INSTANT_AFTER_WINDOWS_US
+)
 
 
 def _prefix_sums(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -648,13 +648,14 @@ def _window_means(t: np.ndarray, sums: tuple[np.ndarray, np.ndarray], centre_s: 
 
 
 def instant_inputs(analysis: PairAnalysis, instant_after_front_us: np.ndarray | float) -> np.ndarray:
-    """Step of the voltage difference and jump of the compensated current difference across an instant.
+    """Steps of the voltage difference and jumps of the compensated current difference after an instant.
 
     A breakdown changes the test voltage and the neutral current at once. How much of it reaches the
     neutral in the first few hundred nanoseconds falls off with the fault's distance from the neutral,
-    while the voltage step at the line end does not: the ratio of the two, and of the later to the
-    immediate current jump, carry the fault's position along the winding. The locator takes these at
-    the timer's instant (:meth:`detector.model.ShotModel.locator_input`).
+    while the voltage step at the line end does not, and the later course of both follows the travel of
+    the disturbance through the winding: their sizes after the instant, relative to the early voltage
+    step, carry the fault's position along the winding. The locator takes these at the timer's instant
+    (:meth:`detector.model.ShotModel.locator_input`).
 
     Parameters
     ----------
@@ -666,41 +667,45 @@ def instant_inputs(analysis: PairAnalysis, instant_after_front_us: np.ndarray | 
     Returns
     -------
     numpy.ndarray, shape (k, len(INSTANT_INPUT_NAMES))
-        In :data:`INSTANT_INPUT_NAMES` order: the mean test-voltage difference after the instant
-        (0.05-0.4 us) minus before it (0.05-0.4 us) in voltage noise units [1]; the same of the compensated
-        current difference in units of its median noise [1], and of its mean 0.4-3 us after [1];
-        log10 of the current jump over the voltage step (both per unit) and of the later over the
-        immediate current jump [1]. NaN where a window holds fewer than 3 samples or no compensated
-        difference exists.
+        In :data:`INSTANT_INPUT_NAMES` order, for each window of :data:`INSTANT_AFTER_WINDOWS_US`: the mean
+        test-voltage difference in it minus its mean in :data:`INSTANT_BEFORE_WINDOW_US`, in voltage noise
+        units [1]; the same of the compensated current difference, in units of its median noise [1];
+        log10 of the current step over the early voltage step (the sum of the magnitudes of the first two
+        windows' voltage steps, all per unit) [1]; log10 of the voltage step over that early step [1].
+        NaN where the window before holds fewer than 3 samples, where a window after holds fewer than 3
+        finite ones, or where no compensated difference exists.
     """
     inst = np.atleast_1d(np.asarray(instant_after_front_us, dtype=np.float64))
-    out = np.full((inst.size, len(INSTANT_INPUT_NAMES)), np.nan)
+    n_w = len(INSTANT_AFTER_WINDOWS_US)
+    out = np.full((inst.size, 4 * n_w), np.nan)
     cd = analysis.compensated
     if cd is None:
         return out
     t = analysis.pair.times_s
     ok = np.isfinite(inst)
     centre = analysis.front_time_s + 1e-6 * np.where(ok, inst, 0.0)
-    (b0, b1), (a0, a1), (l0, l1) = INSTANT_WINDOWS_S
     td = analysis.time_domain
     sv = td.voltage_sigma_pu
     sig = cd.sigma[~np.isnan(cd.sigma)]  # an infinite sigma (no prediction there) counts, as in nanmedian
     si = float(np.median(sig)) if sig.size else math.nan
-    sv_sums, si_sums = _prefix_sums(td.dv_pu), _prefix_sums(cd.difference)
-    dv_pre, n_pre = _window_means(t, sv_sums, centre, b0, b1, True)
-    dv_post, n_post = _window_means(t, sv_sums, centre, a0, a1, False)
-    di_pre, m_pre = _window_means(t, si_sums, centre, b0, b1, True)
-    di_post, m_post = _window_means(t, si_sums, centre, a0, a1, False)
-    di_late, _ = _window_means(t, si_sums, centre, l0, l1, False)
-    ok &= (n_pre >= 3) & (n_post >= 3)
-    dv = dv_post - dv_pre
-    di = np.where((m_pre >= 3) & (m_post >= 3), di_post - di_pre, np.nan)
-    di2 = di_late - di_pre
+    v_sums, i_sums = _prefix_sums(td.dv_pu), _prefix_sums(cd.difference)
+    b0, b1 = (1e-6 * x for x in INSTANT_BEFORE_WINDOW_US)
+    v_pre, n_pre = _window_means(t, v_sums, centre, b0, b1, True)
+    i_pre, _ = _window_means(t, i_sums, centre, b0, b1, True)
+    ok &= n_pre >= 3
+    dv = np.empty((inst.size, n_w))
+    di = np.empty((inst.size, n_w))
+    for k, (lo, hi) in enumerate(INSTANT_AFTER_WINDOWS_US):  # five windows, each over all instants at once
+        v, nv = _window_means(t, v_sums, centre, 1e-6 * lo, 1e-6 * hi, False)
+        c, nc = _window_means(t, i_sums, centre, 1e-6 * lo, 1e-6 * hi, False)
+        dv[:, k] = np.where(nv >= 3, v - v_pre, np.nan)
+        di[:, k] = np.where(nc >= 3, c - i_pre, np.nan)
+    early = np.abs(dv[:, :1]) + np.abs(dv[:, 1:2]) + 1e-30
     with np.errstate(invalid="ignore", divide="ignore"):
-        cols = [dv / sv, di / si, di2 / si,
-                np.log10(np.abs(di) + 1e-30) - np.log10(np.abs(dv) + 1e-30),
-                np.log10(np.abs(di2) + 1e-30) - np.log10(np.abs(di) + 1e-30)]
-    out[ok] = np.column_stack(cols)[ok]
+        cols = np.concatenate([dv / sv, di / si, np.log10(np.abs(di) + 1e-30) - np.log10(early),
+                               np.log10(np.abs(dv) + 1e-30) - np.log10(early)], axis=1)
+    cols[~np.isfinite(cols)] = np.nan  # an infinite noise or step is no measurement
+    out[ok] = cols[ok]
     return out
 
 

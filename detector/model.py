@@ -540,6 +540,9 @@ class ShotModel:
     none_threshold : float
         A fault is indicated when the classifier gives ``none`` a probability below this [1]; chosen in
         training on cross-validated benign pairs to keep the stated false-alarm rate.
+    instant_input_names : sequence of str
+        Names of the inputs measured at the fault instant the locator was trained on
+        (:data:`detector.features.INSTANT_INPUT_NAMES` when it was trained; empty if none).
     """
 
     classifier: FaultClassifier
@@ -550,6 +553,7 @@ class ShotModel:
     card: Mapping[str, Any] = dataclasses.field(default_factory=dict)
     timer: InstantRegressor | None = None
     none_threshold: float = 0.5
+    instant_input_names: Sequence[str] = ()
 
     def locator_input(self, X: np.ndarray, instant_us: np.ndarray | None,
                       at_instant: np.ndarray | None = None) -> np.ndarray:
@@ -659,6 +663,7 @@ def save_model(model: ShotModel, path: str | Path) -> None:
         "locator": model.locator,
         "timer": model.timer,
         "none_threshold": float(model.none_threshold),
+        "instant_input_names": [str(n) for n in model.instant_input_names],
     }
     with _fastpredict.detached(model):  # the file holds scikit-learn's estimators as they are
         parts = copy.deepcopy({"classifier": model.classifier, "locator": model.locator, "timer": model.timer})
@@ -759,7 +764,7 @@ def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotM
     thr = payload.get("none_threshold", 0.5)
     if not isinstance(thr, float) or not 0.0 < thr <= 1.0:
         raise ShotcheckError(f"{p}: 'none_threshold' must be a probability in (0, 1], got {thr!r}")
-    return ShotModel(
+    model = ShotModel(
         none_threshold=thr,
         timer=timer,
         classifier=clf,
@@ -768,4 +773,15 @@ def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotM
         schema_version=str(schema),
         thresholds=dict(payload.get("thresholds", {})),
         card=dict(payload.get("card", {})),
+        instant_input_names=tuple(str(n) for n in payload.get("instant_input_names", ())),
     )
+    if expected_schema is not None and model.locator_at_instant:
+        from .features import INSTANT_INPUT_NAMES
+
+        if tuple(model.instant_input_names) != INSTANT_INPUT_NAMES:
+            raise ShotcheckError(
+                f"{p}: the model's locator was trained on other inputs at the fault instant "
+                f"({len(model.instant_input_names)} named) than this shotcheck measures "
+                f"({len(INSTANT_INPUT_NAMES)}); retrain it with `shotcheck train`"
+            )
+    return model

@@ -157,8 +157,8 @@ def instant_inputs_of_dataset(directory: str | Path, case_ids: np.ndarray, insta
     progress : bool
         Print the time taken on stderr.
     use_cache : bool
-        Keep the result in the folder (``instant_inputs_v<schema>_<key>.npz``, keyed by the case ids and
-        instants) and reuse it.
+        Keep the result in the folder (``instant_inputs_v<schema>_<key>.npz``, keyed by the inputs' names,
+        the case ids and the instants) and reuse it.
 
     Returns
     -------
@@ -178,7 +178,8 @@ def instant_inputs_of_dataset(directory: str | Path, case_ids: np.ndarray, insta
     if np.unique(ids).size != ids.size:
         raise ShotcheckError("instant_inputs_of_dataset: the case ids repeat; give each pair once")
     out = np.full((ids.size, inst.shape[1], len(INSTANT_INPUT_NAMES)), np.nan)
-    key = hashlib.sha1(ids.tobytes() + np.ascontiguousarray(inst).tobytes()).hexdigest()[:16]
+    key = hashlib.sha1("|".join(INSTANT_INPUT_NAMES).encode() + ids.tobytes()
+                       + np.ascontiguousarray(inst).tobytes()).hexdigest()[:16]
     cache = d / f"instant_inputs_v{SCHEMA_VERSION}_{key}.npz"
     if use_cache and cache.is_file():
         z = np.load(cache, allow_pickle=False)
@@ -432,7 +433,8 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
                                                                    ", " + ", ".join(INSTANT_INPUT_NAMES))),
     }
     card["none_threshold"] = none_threshold
-    model = ShotModel(clf, locator, FEATURE_NAMES, SCHEMA_VERSION, thresholds, card, timer, none_threshold)
+    model = ShotModel(clf, locator, FEATURE_NAMES, SCHEMA_VERSION, thresholds, card, timer, none_threshold,
+                      INSTANT_INPUT_NAMES if at is not None else ())
     return model, report
 
 

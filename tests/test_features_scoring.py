@@ -106,14 +106,21 @@ def _window_mean(t, values, lo, hi, before):
 
 @pytest.mark.slow
 def test_inputs_at_the_instant_are_window_means_and_follow_the_fault_along_the_winding():
-    """The locator's inputs at the instant equal brute-force window means; and their ratio of the neutral's
-    current jump to the voltage step grows as the fault moves from the line end to the neutral (common
+    """The locator's inputs at the instant equal brute-force window means; and the neutral's current
+    jump relative to the voltage step grows as the fault moves from the line end to the neutral (common
     practice: a breakdown near the line end shows mostly in the voltage, one near the neutral mostly in
     the neutral current)."""
     from detection_cases import make_case
 
-    from detector.features import INSTANT_INPUT_NAMES, INSTANT_WINDOWS_S, instant_inputs
+    from detector.features import (
+        INSTANT_AFTER_WINDOWS_US,
+        INSTANT_BEFORE_WINDOW_US,
+        INSTANT_INPUT_NAMES,
+        instant_inputs,
+    )
 
+    n_w = len(INSTANT_AFTER_WINDOWS_US)
+    assert len(INSTANT_INPUT_NAMES) == 4 * n_w
     ratio = {}
     for fault in ("to_ground", "turn_to_turn"):
         for section in (3, 20, 36):  # of 40, 0 at the line end
@@ -125,19 +132,21 @@ def test_inputs_at_the_instant_are_window_means_and_follow_the_fault_along_the_w
             assert np.isnan(got[1:]).all()  # no instant, and an instant past the record's end
             t = a.pair.times_s
             tf = a.front_time_s + 1e-6 * rel_us
-            (b0, b1), (a0, a1), (l0, l1) = INSTANT_WINDOWS_S
-            dv = a.time_domain.dv_pu
-            d = a.compensated.difference
-            dv_step = _window_mean(t, dv, tf + a0, tf + a1, False)[0] - _window_mean(t, dv, tf + b0, tf + b1, True)[0]
-            di_pre = _window_mean(t, d, tf + b0, tf + b1, True)[0]
-            di = _window_mean(t, d, tf + a0, tf + a1, False)[0] - di_pre
-            di2 = _window_mean(t, d, tf + l0, tf + l1, False)[0] - di_pre
-            si = np.nanmedian(a.compensated.sigma)
-            want = [dv_step / a.time_domain.voltage_sigma_pu, di / si, di2 / si,
-                    np.log10(abs(di) + 1e-30) - np.log10(abs(dv_step) + 1e-30),
-                    np.log10(abs(di2) + 1e-30) - np.log10(abs(di) + 1e-30)]
+            dv, d = a.time_domain.dv_pu, a.compensated.difference
+            b0, b1 = (tf + 1e-6 * x for x in INSTANT_BEFORE_WINDOW_US)
+            v_pre, i_pre = _window_mean(t, dv, b0, b1, True)[0], _window_mean(t, d, b0, b1, True)[0]
+            steps_v = np.array([_window_mean(t, dv, tf + 1e-6 * lo, tf + 1e-6 * hi, False)[0] - v_pre
+                                for lo, hi in INSTANT_AFTER_WINDOWS_US])
+            steps_i = np.array([_window_mean(t, d, tf + 1e-6 * lo, tf + 1e-6 * hi, False)[0] - i_pre
+                                for lo, hi in INSTANT_AFTER_WINDOWS_US])
+            early = abs(steps_v[0]) + abs(steps_v[1]) + 1e-30
+            want = np.concatenate([steps_v / a.time_domain.voltage_sigma_pu,
+                                   steps_i / np.nanmedian(a.compensated.sigma),
+                                   np.log10(np.abs(steps_i) + 1e-30) - np.log10(early),
+                                   np.log10(np.abs(steps_v) + 1e-30) - np.log10(early)])
             np.testing.assert_allclose(got[0], want, rtol=1e-9, atol=1e-12)
-            ratio[fault, section] = got[0, 3]
+            # the current jump 0.4-1 us after the instant over the early voltage step
+            ratio[fault, section] = got[0, INSTANT_INPUT_NAMES.index("at_instant_log_current_over_early_voltage_0.4_1us")]
     for fault in ("to_ground", "turn_to_turn"):
         r = [ratio[fault, s] for s in (3, 20, 36)]
         assert r[0] < r[1] < r[2], (fault, r)

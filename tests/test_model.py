@@ -256,3 +256,27 @@ def test_locator_input_follows_what_the_locator_was_fitted_on():
     with pytest.raises(ShotcheckError, match="the locator takes 15 inputs"):
         both.locator_input(X, inst)  # without them
     np.testing.assert_array_equal(timed.locator_input(X, inst, at), ext)  # ignored where not trained on
+
+
+def test_a_locator_trained_on_other_inputs_at_the_instant_is_refused(tmp_path):
+    """A model file names the inputs at the instant its locator took; a shotcheck measuring others refuses
+    it (same count or not), rather than feeding the locator numbers of another meaning."""
+    from detector.features import INSTANT_INPUT_NAMES
+    from detector.model import InstantRegressor
+
+    X, truth = _instants(300)
+    timer = InstantRegressor(max_iter=30, candidate_columns=(0, 1, 2)).fit(X, truth)
+    ext = timer.timing_inputs(X, timer.predict(X))
+    at = np.random.default_rng(2).normal(size=(X.shape[0], len(INSTANT_INPUT_NAMES)))
+    clf = FaultClassifier(max_iter=10).fit(X, np.where(truth > 15, "turn_to_turn", "none"))
+    loc = LocationRegressor(max_iter=20).fit(np.hstack([ext, at]), np.clip(X[:, 5] * 0.1 + 0.5, 0, 1))
+    for names, ok in ((INSTANT_INPUT_NAMES, True), (tuple(f"other_{i}" for i in range(len(INSTANT_INPUT_NAMES))), False),
+                      ((), False)):
+        m = ShotModel(clf, loc, [f"f{i}" for i in range(6)], "test-1", timer=timer, instant_input_names=names)
+        save_model(m, tmp_path / "m.skops")
+        if ok:
+            assert tuple(load_model(tmp_path / "m.skops", expected_schema="test-1").instant_input_names) == names
+        else:
+            with pytest.raises(ShotcheckError, match="other inputs at the fault instant"):
+                load_model(tmp_path / "m.skops", expected_schema="test-1")
+            assert load_model(tmp_path / "m.skops").locator_at_instant  # readable for inspection

@@ -148,7 +148,7 @@ def test_the_locator_takes_inputs_measured_at_the_instant_when_the_records_are_a
     data = extract_dataset(d, workers=1, progress=False)
     assert data.source == str(d)
     model, cv = train(data, cv_folds=3, description="36 synthetic pairs")
-    assert model.locator_at_instant
+    assert model.locator_at_instant and tuple(model.instant_input_names) == INSTANT_INPUT_NAMES
     assert model.locator.n_features_in_ == model.timer.timing_inputs(data.X[:1], [0.0]).shape[1] + len(
         INSTANT_INPUT_NAMES)
     assert all(n in model.card["locator_inputs"] for n in INSTANT_INPUT_NAMES)

@@ -21,7 +21,7 @@ from typing import Any
 
 import numpy as np
 
-from ._stats import agreeing_onset
+from ._stats import agreeing_onset, median1d
 from ._validation import ShotcheckError
 from .metrics.compensated import (
     SCALES,
@@ -686,8 +686,7 @@ def instant_inputs(analysis: PairAnalysis, instant_after_front_us: np.ndarray | 
     centre = analysis.front_time_s + 1e-6 * np.where(ok, inst, 0.0)
     td = analysis.time_domain
     sv = td.voltage_sigma_pu
-    sig = cd.sigma[~np.isnan(cd.sigma)]  # an infinite sigma (no prediction there) counts, as in nanmedian
-    si = float(np.median(sig)) if sig.size else math.nan
+    si = median1d(cd.sigma[~np.isnan(cd.sigma)])  # an infinite sigma (no prediction there) counts, as in nanmedian
     v_sums, i_sums = _prefix_sums(td.dv_pu), _prefix_sums(cd.difference)
     b0, b1 = (1e-6 * x for x in INSTANT_BEFORE_WINDOW_US)
     v_pre, n_pre = _window_means(t, v_sums, centre, b0, b1, True)

@@ -619,6 +619,11 @@ INSTANT_INPUT_NAMES = tuple(
     for lo, hi in INSTANT_AFTER_WINDOWS_US
 )
 
+#: Revision of how :func:`instant_inputs` computes its values under the same names; raise it when values
+#: change, so that no cache of them (:func:`detector.training.instant_inputs_of_dataset`) is reused.
+#: 2: the current's columns are NaN where its window before holds fewer than 3 finite values.
+INSTANT_INPUTS_REVISION = 2
+
 
 def _prefix_sums(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Running sums of the finite ``values`` and of their count, each with a leading 0."""
@@ -673,7 +678,8 @@ def instant_inputs(analysis: PairAnalysis, instant_after_front_us: np.ndarray | 
         log10 of the current step over the early voltage step (the sum of the magnitudes of the first two
         windows' voltage steps, all per unit) [1]; log10 of the voltage step over that early step [1].
         NaN where the window before holds fewer than 3 samples, where a window after holds fewer than 3
-        finite ones, or where no compensated difference exists.
+        finite ones, or where no compensated difference exists; the current's columns also where its
+        window before holds fewer than 3 finite values (near the span the difference does not cover).
     """
     inst = np.atleast_1d(np.asarray(instant_after_front_us, dtype=np.float64))
     n_w = len(INSTANT_AFTER_WINDOWS_US)
@@ -690,8 +696,9 @@ def instant_inputs(analysis: PairAnalysis, instant_after_front_us: np.ndarray | 
     v_sums, i_sums = _prefix_sums(td.dv_pu), _prefix_sums(cd.difference)
     b0, b1 = (1e-6 * x for x in INSTANT_BEFORE_WINDOW_US)
     v_pre, n_pre = _window_means(t, v_sums, centre, b0, b1, True)
-    i_pre, _ = _window_means(t, i_sums, centre, b0, b1, True)
+    i_pre, ni_pre = _window_means(t, i_sums, centre, b0, b1, True)
     ok &= n_pre >= 3
+    i_pre = np.where(ni_pre >= 3, i_pre, np.nan)  # the difference is NaN where it is not compared
     dv = np.empty((inst.size, n_w))
     di = np.empty((inst.size, n_w))
     for k, (lo, hi) in enumerate(INSTANT_AFTER_WINDOWS_US):  # five windows, each over all instants at once

@@ -26,6 +26,7 @@ from ._validation import ShotcheckError
 from .features import (
     FEATURE_NAMES,
     INSTANT_INPUT_NAMES,
+    INSTANT_INPUTS_REVISION,
     SCHEMA_VERSION,
     extract,
     instant_candidates,
@@ -157,8 +158,8 @@ def instant_inputs_of_dataset(directory: str | Path, case_ids: np.ndarray, insta
     progress : bool
         Print the time taken on stderr.
     use_cache : bool
-        Keep the result in the folder (``instant_inputs_v<schema>_<key>.npz``, keyed by the inputs' names,
-        the case ids and the instants) and reuse it.
+        Keep the result in the folder (``instant_inputs_v<schema>_<key>.npz``, keyed by the inputs' names
+        and revision, the case ids and the instants) and reuse it.
 
     Returns
     -------
@@ -178,7 +179,7 @@ def instant_inputs_of_dataset(directory: str | Path, case_ids: np.ndarray, insta
     if np.unique(ids).size != ids.size:
         raise ShotcheckError("instant_inputs_of_dataset: the case ids repeat; give each pair once")
     out = np.full((ids.size, inst.shape[1], len(INSTANT_INPUT_NAMES)), np.nan)
-    key = hashlib.sha1("|".join(INSTANT_INPUT_NAMES).encode() + ids.tobytes()
+    key = hashlib.sha1(f"{INSTANT_INPUTS_REVISION}|{'|'.join(INSTANT_INPUT_NAMES)}".encode() + ids.tobytes()
                        + np.ascontiguousarray(inst).tobytes()).hexdigest()[:16]
     cache = d / f"instant_inputs_v{SCHEMA_VERSION}_{key}.npz"
     if use_cache and cache.is_file():

@@ -104,6 +104,37 @@ def _window_mean(t, values, lo, hi, before):
     return (np.mean(values[m]) if m.sum() else np.nan), int(m.sum())
 
 
+def test_current_inputs_at_the_instant_need_three_values_before_it():
+    """Where the compensated difference is not compared (NaN) over most of the window before the
+    instant, the current's inputs are NaN rather than jumps from one or two samples; the voltage's
+    inputs stand."""
+    import dataclasses
+
+    from detection_cases import make_case
+
+    from detector.features import INSTANT_AFTER_WINDOWS_US, INSTANT_BEFORE_WINDOW_US, instant_inputs
+
+    c = make_case(fault="to_ground", section=20)
+    a = extract(c.reference, c.test)
+    rel_us = c.fault_time_us - 1e6 * a.front_test_time_s
+    t = a.pair.times_s
+    tf = a.front_time_s + 1e-6 * rel_us
+    b0, b1 = (tf + 1e-6 * x for x in INSTANT_BEFORE_WINDOW_US)
+    before = np.flatnonzero((t >= b0) & (t < b1))
+    n_w = len(INSTANT_AFTER_WINDOWS_US)
+    full = instant_inputs(a, rel_us)[0]
+    assert np.isfinite(full).all()
+    for keep in (3, 2):  # finite values left in the window before
+        d = a.compensated.difference.copy()
+        d[before[keep:]] = np.nan
+        gap = dataclasses.replace(a, compensated=dataclasses.replace(a.compensated, difference=d))
+        got = instant_inputs(gap, rel_us)[0]
+        np.testing.assert_array_equal(got[:n_w], full[:n_w])  # voltage steps unchanged
+        np.testing.assert_array_equal(got[3 * n_w:], full[3 * n_w:])
+        current = got[n_w:3 * n_w]
+        assert np.isfinite(current).all() if keep == 3 else np.isnan(current).all()
+
+
 @pytest.mark.slow
 def test_inputs_at_the_instant_are_window_means_and_follow_the_fault_along_the_winding():
     """The locator's inputs at the instant equal brute-force window means; and the neutral's current

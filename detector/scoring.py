@@ -50,8 +50,10 @@ def _thresholds_at(Xb: np.ndarray, cols: list[int], q: float) -> np.ndarray:
 
 
 def _any_exceeded(X: np.ndarray, cols: list[int], thr: np.ndarray) -> np.ndarray:
+    # as in :func:`exceeded`: a value that is not finite is no measurement and exceeds nothing
+    v = X[:, cols]
     with np.errstate(invalid="ignore"):
-        return np.any(np.nan_to_num(X[:, cols], nan=-np.inf) > thr, axis=1)
+        return np.any(np.where(np.isfinite(v), v, -np.inf) > thr, axis=1)
 
 
 def calibrate_thresholds(

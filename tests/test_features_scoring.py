@@ -64,6 +64,21 @@ def test_exceeded_lists_the_largest_ratio_first():
     assert "noise" in out[0]["description"]
 
 
+def test_false_alarm_rate_counts_what_exceeded_lists():
+    # the rate the thresholds are calibrated to and the metrics a verdict lists agree on values that are
+    # not finite: neither counts them as exceeded
+    names = list(FEATURE_NAMES)
+    thr = {"td_i_max_sigma": 10.0, "tf_rms_dB": 2.0}
+    X = np.zeros((4, len(names)))
+    X[0, names.index("td_i_max_sigma")] = np.inf
+    X[1, names.index("tf_rms_dB")] = np.nan
+    X[2, names.index("tf_rms_dB")] = -np.inf
+    X[3, names.index("td_i_max_sigma")] = 11.0
+    listed = [bool(exceeded(x, thr)) for x in X]
+    assert listed == [False, False, False, True]
+    assert false_alarm_rate(X, thr) == pytest.approx(np.mean(listed))
+
+
 def test_calibration_input_errors():
     with pytest.raises(ShotcheckError, match="at least 10 benign pairs"):
         calibrate_thresholds(np.ones((3, len(FEATURE_NAMES))))

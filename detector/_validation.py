@@ -16,6 +16,7 @@ __all__ = [
     "ShotcheckError",
     "RecordError",
     "FormatError",
+    "NoImpulseError",
     "check_option",
     "check_range",
     "check_finite_1d",
@@ -50,6 +51,10 @@ class RecordError(ShotcheckError, ValueError):
 
 class FormatError(RecordError):
     """A file does not follow its format (COMTRADE, CSV)."""
+
+
+class NoImpulseError(RecordError):
+    """A record's voltage holds no impulse: it is constant, or nothing in it stands well above its noise."""
 
 
 def _quote_list(items: Iterable[Any]) -> str:

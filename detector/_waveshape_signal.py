@@ -15,7 +15,7 @@ import numpy as np
 from scipy import ndimage, signal
 
 from ._stats import median1d
-from ._validation import RecordError, check_finite_1d
+from ._validation import NoImpulseError, RecordError, check_finite_1d
 from .record import MIN_SAMPLES
 
 
@@ -139,8 +139,8 @@ def _prepare(times_s: Any, voltage_V: Any, source: str | None) -> _Prepared:
         raise _error(source, "time stamps must be strictly increasing and uniform (resample first)", "time")
     span = float(v.max() - v.min())
     if span == 0.0:
-        raise _error(source, f"no impulse: the voltage is constant at {v[0]:.6g} V; expected a lightning "
-                     "or switching impulse")
+        raise NoImpulseError(f"no impulse: the voltage is constant at {v[0]:.6g} V; expected a lightning "
+                             "or switching impulse", path=source, field="voltage")
     dv = np.diff(v)
     sigma = float(1.4826 * median1d(np.abs(dv - median1d(dv))) / math.sqrt(2.0))
     # polarity from the larger excursion from the first samples; if those already sit far from zero the
@@ -157,9 +157,9 @@ def _prepare(times_s: Any, voltage_V: Any, source: str | None) -> _Prepared:
     u0 = sign * dev
     amp0 = float(u0.max())
     if amp0 <= 10.0 * sigma:
-        raise _error(source, f"no impulse found: the largest excursion ({amp0:.3g} V) is only "
-                     f"{amp0 / sigma:.1f} times the noise level ({sigma:.3g} V); expected an impulse well above "
-                     "the noise")
+        raise NoImpulseError(f"no impulse found: the largest excursion ({amp0:.3g} V) is only "
+                             f"{amp0 / sigma:.1f} times the noise level ({sigma:.3g} V); expected an impulse "
+                             "well above the noise", path=source, field="voltage")
     us0 = _smooth(u0, 5)
     ipk0 = int(np.argmax(us0))
     pk0 = float(us0[ipk0])

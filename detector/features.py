@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 
 from ._stats import agreeing_onset, median1d
-from ._validation import ShotcheckError
+from ._validation import NoImpulseError, RecordError, ShotcheckError
 from .metrics.compensated import (
     SCALES,
     CompensatedDifference,
@@ -373,10 +373,60 @@ class _Clock:
             self.t = now
 
 
+#: Sample rates a record must have to be compared [Hz]. Below the lower bound a lightning impulse's front
+#: holds a handful of samples and the detectors' bands do not exist; above the upper one no impulse
+#: recorder samples (a time column in the wrong unit gives such rates). Verdicts are validated for
+#: 50-250 MS/s; the wave-shape evaluation warns below the 30/Tx of IEC 61083-1 for the front.
+MIN_SAMPLE_RATE_HZ = 5e6
+MAX_SAMPLE_RATE_HZ = 20e9
+
+
+def check_comparable(record: Record, label: str) -> None:
+    """Refuse a record no comparison can use, naming its file and field.
+
+    Parameters
+    ----------
+    record : Record
+        A reference or test record.
+    label : str
+        ``'reference'`` or ``'test'`` (for the message when the record has no file name).
+
+    Raises
+    ------
+    RecordError
+        The sample rate lies outside ``MIN_SAMPLE_RATE_HZ``..``MAX_SAMPLE_RATE_HZ`` [Hz], or the current
+        channel is constant (a dead channel, an open shunt or the wrong channel: no neutral current).
+    """
+    path = record.source or f"{label} record"
+    fs = record.sampling_rate_Hz
+    if not MIN_SAMPLE_RATE_HZ <= fs <= MAX_SAMPLE_RATE_HZ:
+        raise RecordError(
+            f"{fs:.4g} Hz ({fs / 1e6:.4g} MS/s) is outside the {MIN_SAMPLE_RATE_HZ / 1e6:g} MS/s to "
+            f"{MAX_SAMPLE_RATE_HZ / 1e9:g} GS/s a lightning-impulse comparison can use (verdicts are validated "
+            "for 50-250 MS/s); check the time column's unit or the sample interval", path=path,
+            field="sample rate")
+    if record.has_current:
+        ch = record.current
+        x = ch.samples
+        if x.size and float(np.max(x)) == float(np.min(x)):
+            raise RecordError(
+                f"the current is constant at {x[0]:.6g} {ch.unit}: no neutral current was recorded; expected "
+                "the current through the winding (check the channel, the shunt and the recorder input)",
+                path=path, field=ch.name or "current")
+
+
 def _shape_or_none(record: Record, label: str, notes: list[str]) -> WaveShape | None:
-    """IEC 60060-1 evaluation, or None with a note when the record defeats it (e.g. a breakdown on the front)."""
+    """IEC 60060-1 evaluation, or None with a note when the record defeats it (e.g. a breakdown on the front).
+
+    A record whose voltage holds no impulse at all is refused (:class:`NoImpulseError`): there is nothing
+    to compare.
+    """
     try:
         return evaluate_waveshape(record)
+    except NoImpulseError as exc:
+        if exc.path is None:
+            raise NoImpulseError(exc.detail, path=f"{label} record", field=exc.field) from None
+        raise
     except ShotcheckError as exc:
         notes.append(f"{label} record: wave shape not evaluated ({exc}); normalised by its robust peak instead")
         return None
@@ -420,11 +470,14 @@ def extract(
     Raises
     ------
     RecordError
-        A record lacks its voltage or current channel, or the records do not overlap.
-    ShotcheckError
-        No impulse found in a record.
+        A record lacks its voltage or current channel, or the records do not overlap; a record's sample
+        rate is outside the usable range or its current is constant (:func:`check_comparable`).
+    NoImpulseError
+        No impulse found in a record's voltage.
     """
     clock = _Clock(timings)
+    check_comparable(reference, "reference")
+    check_comparable(test, "test")
     notes: list[str] = []
     ws_r = reference_shape if reference_shape is not None else _shape_or_none(reference, "reference", notes)
     ws_t = test_shape if test_shape is not None else _shape_or_none(test, "test", notes)

@@ -10,7 +10,9 @@ scatter when chopped shots are compared.
 
 from __future__ import annotations
 
+import dataclasses
 import json
+import re
 
 import numpy as np
 import pytest
@@ -295,6 +297,53 @@ def test_cli_end_to_end_on_comtrade_and_csv(tmp_path, capsys):
                               "exceeded", "waveshape", "warnings", "model"}
             assert d["fault_indicated"] is bool(expected)
     assert main(["compare", str(tmp_path / "r0.csv"), str(tmp_path / "missing.csv")]) == 2
+
+
+def _with(record, *, voltage=None, current=None, dt=None):
+    new = {"voltage": voltage, "current": current}
+    chans = tuple(c if new[c.quantity] is None else dataclasses.replace(c, samples=new[c.quantity])
+                  for c in record.channels)
+    return dataclasses.replace(record, channels=chans, sample_interval_s=dt or record.sample_interval_s)
+
+
+@pytest.mark.parametrize("what, match", [
+    ("flat voltage", r"t\.csv: voltage: no impulse found"),
+    ("noise only", r"t\.csv: voltage: no impulse found"),
+    ("dead current", r"t\.csv: .*the current is constant at 0 A: no neutral current was recorded"),
+    ("time in us labelled s", r"t\.csv: sample rate: 100 Hz .* is outside the 5 MS/s to 20 GS/s"),
+    ("1 MS/s", r"t\.csv: sample rate: 1e\+06 Hz \(1 MS/s\) is outside"),
+    ("picosecond grid", r"t\.csv: sample rate: 1e\+12 Hz .* is outside"),
+])
+def test_records_no_comparison_can_use_exit_2_naming_file_and_field(tmp_path, capsys, what, match):
+    """A voltage without an impulse, a dead current channel or a sample rate no impulse recorder has used
+    to give a verdict all the same (a fault, or none); they are input errors now."""
+    c = case()
+    test = c.test
+    rng = np.random.default_rng(0)
+    n = test.n_samples
+    if what == "flat voltage":
+        test = _with(test, voltage=rng.normal(0, 300.0, n))
+    elif what == "noise only":
+        test = _with(test, voltage=rng.normal(0, 1e5, n), current=rng.normal(0, 1.0, n))
+    elif what == "dead current":
+        test = _with(test, current=np.zeros(n))
+    elif what == "time in us labelled s":
+        test = _with(test, dt=test.sample_interval_s * 1e6)
+    elif what == "1 MS/s":
+        test = dataclasses.replace(test, channels=tuple(
+            dataclasses.replace(ch, samples=ch.samples[::100]) for ch in test.channels),
+            sample_interval_s=test.sample_interval_s * 100)
+    else:
+        test = _with(test, dt=1e-12)
+    r, t = tmp_path / "r.csv", tmp_path / "t.csv"
+    write(c.reference, r)
+    write(test, t)
+    assert main(["compare", str(r), str(t), "--json"]) == 2
+    err = capsys.readouterr().err
+    assert re.search(match, err), err
+    assert "Traceback" not in err
+    # the same record as the reference is refused alike
+    assert main(["compare", str(t), str(r), "--json"]) == 2
 
 
 def test_report_from_the_cli(tmp_path, capsys):

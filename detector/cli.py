@@ -13,10 +13,11 @@ import json
 import math
 import sys
 from collections.abc import Callable, Sequence
+from pathlib import Path
 from typing import Any
 
 from . import __version__
-from ._validation import ShotcheckError
+from ._validation import ShotcheckError, check_range
 
 __all__ = ["main", "build_parser"]
 
@@ -182,12 +183,24 @@ def _cmd_compare(args: argparse.Namespace) -> int:
 
 
 def _cmd_train(args: argparse.Namespace) -> int:
+    import numpy as np
+
     from .model import save_model
     from .training import extract_dataset, report_text, save_report, train
 
+    # the options and the output folder first: not after minutes of work
+    check_range("--false-alarm-rate", args.false_alarm_rate, 0.0, 0.5, low_inclusive=False)
+    out_dir = Path(args.out).expanduser().resolve().parent
+    if not out_dir.is_dir():
+        raise ShotcheckError(f"{args.out}: --out: the folder {out_dir} does not exist; create it first")
     data = extract_dataset(args.data, workers=args.workers, progress=not args.no_progress)
-    model, rep = train(data, false_alarm_rate_target=args.false_alarm_rate, seed=args.seed,
-                       cv_folds=args.cv_folds, description=args.description or f"data set {args.data}")
+    try:
+        model, rep = train(data, false_alarm_rate_target=args.false_alarm_rate, seed=args.seed,
+                           cv_folds=args.cv_folds, description=args.description or f"data set {args.data}")
+    except ValueError as exc:  # an estimator refusing the data: in practice a set too small or too one-sided
+        counts = ", ".join(f"{c} {n}" for c, n in zip(*np.unique(data.event, return_counts=True), strict=True))
+        raise ShotcheckError(f"{args.data}: training failed on this data set ({counts}): "
+                             f"{type(exc).__name__}: {exc}; train on more pairs of every class") from None
     save_model(model, args.out)
     print(f"cross-validated figures (grouped by winding design, {args.cv_folds} folds):")
     print(report_text(rep))

@@ -41,6 +41,10 @@ __all__ = ["extract_dataset", "train", "evaluate", "LabelledFeatures"]
 #: Pairs per feature-extraction task.
 TASK_SIZE = 50
 
+#: Fewest usable pairs of each class present that :func:`train` accepts (its estimators and folds need
+#: some; a useful model needs hundreds).
+MIN_PAIRS_PER_CLASS = 6
+
 
 @dataclasses.dataclass
 class LabelledFeatures:
@@ -350,6 +354,13 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     X, y, pos, groups = data.X, data.event, data.position, data.groups
     if len(set(y)) < 2:
         raise ShotcheckError("the training set needs at least two event classes")
+    classes, counts = np.unique(y, return_counts=True)
+    if counts.min() < MIN_PAIRS_PER_CLASS:
+        have = ", ".join(f"{c} {n}" for c, n in zip(classes, counts, strict=True))
+        where = f"{data.source}: " if data.source else ""
+        raise ShotcheckError(f"{where}the training set has too few usable pairs ({have}); at least "
+                             f"{MIN_PAIRS_PER_CLASS} of each class present are needed, and hundreds for a "
+                             "useful model (make more with `shotcheck synth --cases N`)")
     report: dict[str, Any] = {}
     none_threshold = 0.5
     rel = data.fault_time_us - data.front_us  # target of the instant regressor [us after the front]

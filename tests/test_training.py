@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from detector._validation import ShotcheckError
 from detector.features import FEATURE_NAMES
 from detector.training import (
     COMPARISONS,
@@ -129,6 +130,33 @@ def test_cross_validated_false_alarms_are_measured_not_met_by_construction():
         want = _decide(proba[te], operating_point(p_none[tr], 0.01))
         assert list(pred[te]) == list(want)
     assert np.mean(pred != "none") > 0.05  # the third fold: about a third of its pairs below 0.3
+
+
+def test_too_small_a_training_set_is_an_input_error():
+    # 5 pairs per class, of which the faults lose a tenth as invisible: fewer than 6 usable of a class
+    with pytest.raises(ShotcheckError, match=r"too few usable pairs \(discharge_only \d, none 5, "
+                                             r".*at least 6 of each class present"):
+        train(_data(5, 0), cv_folds=3)
+
+
+def test_train_command_checks_its_options_before_the_work(tmp_path, capsys, monkeypatch):
+    from detector import cli, training
+
+    called = []
+    monkeypatch.setattr(training, "extract_dataset", lambda *a, **k: called.append(1) or _data(10, 0))
+    assert cli.main(["train", str(tmp_path), "--out", str(tmp_path / "no" / "m.skops")]) == 2
+    assert "the folder" in capsys.readouterr().err and not called
+    assert cli.main(["train", str(tmp_path), "--out", str(tmp_path / "m.skops"), "--false-alarm-rate", "5"]) == 2
+    assert "--false-alarm-rate" in capsys.readouterr().err and not called
+
+    def refuse(*a, **k):
+        raise ValueError("window shape cannot be larger than input array shape")
+
+    # an estimator refusing the data becomes an input error naming the set and its class counts
+    monkeypatch.setattr(training, "train", refuse)
+    assert cli.main(["train", str(tmp_path), "--out", str(tmp_path / "m.skops")]) == 2
+    err = capsys.readouterr().err
+    assert "training failed on this data set (discharge_only 10, none 10" in err and "Traceback" not in err
 
 
 def test_decide_uses_the_threshold_on_p_none():

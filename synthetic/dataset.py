@@ -227,14 +227,21 @@ def read_labels(directory: str | Path) -> list[dict[str, Any]]:
             conv: dict[str, Any] = {}
             for k, typ in LABEL_COLUMNS.items():
                 s = row[k]
-                if typ is float:
-                    conv[k] = math.nan if s == "" else float(s)
-                elif typ is int:
-                    conv[k] = int(s)
-                elif typ is bool:
-                    conv[k] = s == "1"
-                else:
-                    conv[k] = s
+                if s is None:  # a short (e.g. truncated) line
+                    raise ShotcheckError(f"{path}: line {rd.line_num}: {k}: missing; expected "
+                                         f"{len(LABEL_COLUMNS)} fields (a truncated file?)")
+                try:
+                    if typ is float:
+                        conv[k] = math.nan if s == "" else float(s)
+                    elif typ is int:
+                        conv[k] = int(s)
+                    elif typ is bool:
+                        conv[k] = s == "1"
+                    else:
+                        conv[k] = s
+                except ValueError:
+                    raise ShotcheckError(f"{path}: line {rd.line_num}: {k}: expected "
+                                         f"{'a number' if typ is float else 'an integer'}, got {s!r}") from None
             out.append(conv)
     return out
 
@@ -277,11 +284,22 @@ def load_dataset(directory: str | Path, *, case_ids: Iterable[int] | None = None
         by_shard.setdefault(lab["shard"], []).append(lab)
     for k in sorted(by_shard):
         path = d / _shard_name(k)
-        with np.load(path, allow_pickle=False) as z:
-            a = {name: z[name] for name in z.files}
+        try:
+            with np.load(path, allow_pickle=False) as z:
+                a = {name: z[name] for name in z.files}
+        except FileNotFoundError:
+            raise ShotcheckError(f"{path}: missing; labels.csv lists cases in it") from None
+        except (OSError, ValueError, zipfile.BadZipFile):  # pickled objects are never loaded
+            raise ShotcheckError(f"{path}: not a shard written by generate() (not an archive of plain "
+                                 "arrays); write the data set again") from None
+        need = {"case_id"} | {f"{r}_{f}" for r in ("ref", "test")
+                              for f in ("offsets", "U", "I", "lsb", "dt", "meta")}
+        if not need <= set(a):
+            raise ShotcheckError(f"{path}: not a shard written by generate() (missing arrays "
+                                 f"{sorted(need - set(a))[:4]}); write the data set again")
         for lab in by_shard[k]:
             j = lab["index_in_shard"]
-            if int(a["case_id"][j]) != lab["case_id"]:
+            if not 0 <= j < a["case_id"].size or int(a["case_id"][j]) != lab["case_id"]:
                 raise ShotcheckError(f"{path}: case {lab['case_id']} not at index {j}; the data set is inconsistent")
             recs = []
             for r in ("ref", "test"):

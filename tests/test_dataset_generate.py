@@ -142,6 +142,38 @@ def test_bad_arguments(tmp_path, small_set):
         list(load_dataset(tmp_path))
 
 
+def test_damaged_data_set_files_are_named_in_the_error(tmp_path, small_set):
+    import shutil
+
+    src, _ = small_set
+    d = tmp_path / "copy"
+    shutil.copytree(src, d)
+    lines = (d / "labels.csv").read_text(encoding="utf-8").splitlines()
+    # a truncated last line
+    (d / "labels.csv").write_text("\n".join(lines[:-1] + [lines[-1][:40]]) + "\n", encoding="utf-8")
+    with pytest.raises(ShotcheckError, match=rf"labels.csv: line {len(lines)}: .*missing; expected "
+                                             rf"{len(LABEL_COLUMNS)} fields"):
+        read_labels(d)
+    # a value that is not a number
+    bad = lines[1].split(",")
+    bad[list(LABEL_COLUMNS).index("sample_rate_Hz")] = "fast"
+    (d / "labels.csv").write_text("\n".join([lines[0], ",".join(bad)] + lines[2:]) + "\n", encoding="utf-8")
+    with pytest.raises(ShotcheckError, match=r"labels.csv: line 2: sample_rate_Hz: expected a number, got 'fast'"):
+        read_labels(d)
+    (d / "labels.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    shard = sorted(d.glob("shard_*.npz"))[0]
+    # a shard holding pickled objects is refused, never unpickled; one without the arrays too
+    np.savez(shard, case_id=np.array([{"x": 1}], dtype=object))
+    with pytest.raises(ShotcheckError, match=rf"{shard.name}: not a shard written by generate\(\) \(not an archive"):
+        list(load_dataset(d))
+    np.savez(shard, case_id=np.arange(3))
+    with pytest.raises(ShotcheckError, match=rf"{shard.name}: not a shard written by generate\(\) \(missing arrays"):
+        list(load_dataset(d))
+    shard.unlink()
+    with pytest.raises(ShotcheckError, match=rf"{shard.name}: missing"):
+        list(load_dataset(d))
+
+
 def test_fault_instant_label_is_on_the_test_record_time_axis():
     """With every benign difference switched off, the test and the scaled reference agree to within
     quantisation until the labelled fault instant, and differ clearly right after it."""

@@ -139,6 +139,38 @@ CHOPPED_AGAINST_FULL_WARNING = (
     "often than against a reduced-level chopped wave; compare with one where the test plan has it"
 )
 
+#: Ratios of the test record's test voltage to the reference's outside which a warning asks whether the
+#: records are in order and in their units [1]. The reference is a reduced-level wave of 50-75 % of the
+#: test level, or a full-level wave of the same level within the generator's scatter (common practice).
+LEVEL_RATIO_LOW, LEVEL_RATIO_HIGH = 0.9, 5.0
+
+
+def level_warnings(ref_test_voltage_V: float, test_test_voltage_V: float) -> list[str]:
+    """Warnings about the levels of the two records (order of the files, units of a channel).
+
+    Parameters
+    ----------
+    ref_test_voltage_V, test_test_voltage_V : float
+        Test voltage values of the reference and of the test record [V] (either polarity).
+
+    Returns
+    -------
+    list of str
+        Empty when the ratio lies within ``LEVEL_RATIO_LOW``..``LEVEL_RATIO_HIGH``.
+    """
+    r, t = abs(float(ref_test_voltage_V)), abs(float(test_test_voltage_V))
+    if not (r > 0 and math.isfinite(r) and math.isfinite(t)):
+        return []
+    q = t / r
+    if q > LEVEL_RATIO_HIGH or q < 1.0 / LEVEL_RATIO_HIGH:
+        return [f"the test record's test voltage ({t / 1e3:.4g} kV) is {q:.3g} times the reference's "
+                f"({r / 1e3:.4g} kV), where a reduced level is usually 50-75 % of the test level; check the "
+                "units of both voltage channels"]
+    if q < LEVEL_RATIO_LOW:
+        return [f"the reference's test voltage ({r / 1e3:.4g} kV) is above the test record's ({t / 1e3:.4g} kV): "
+                "the reference is the reduced-level wave, given first; are the files in the right order?"]
+    return []
+
 
 def _fault_time_pair_s(a: PairAnalysis) -> float | None:
     """Onset of the fault's effect on the pair's time axis [s], or None.
@@ -214,7 +246,7 @@ def compare(
     if fault:
         event = max((c for c in EVENT_CLASSES if c != "none"), key=lambda c: probs[c])
     over = exceeded(a.features, m.thresholds)
-    warnings = list(a.warnings)
+    warnings = list(a.warnings) + level_warnings(a.pair.ref_test_voltage_V, a.pair.test_test_voltage_V)
     if (a.test_shape is not None and a.test_shape.kind == "lightning_chopped" and a.reference_shape is not None
             and a.reference_shape.kind == "lightning_full" and test.meta.get("shot_kind") != "reduced_chopped"
             and a.pair.test_test_voltage_V > REDUCED_CHOPPED_MAX_RATIO * a.pair.ref_test_voltage_V):

@@ -346,6 +346,22 @@ def test_records_no_comparison_can_use_exit_2_naming_file_and_field(tmp_path, ca
     assert main(["compare", str(t), str(r), "--json"]) == 2
 
 
+def test_levels_out_of_order_or_in_other_units_give_a_warning():
+    from detector.compare import level_warnings
+
+    # a reduced-level reference of 50-75 % of the test level, or a full-level one within the generator's
+    # scatter, and a chopped test shot up to about twice the reference (common practice): no warning
+    for r, t in ((330e3, 550e3), (-412e3, -550e3), (550e3, 530e3), (300e3, 660e3)):
+        assert level_warnings(r, t) == []
+    assert "right order" in level_warnings(550e3, 330e3)[0]  # the files swapped
+    assert "units" in level_warnings(330e3, 330.0)[0]  # kilovolts written as volts
+    assert "units" in level_warnings(330.0, 550e3)[0]
+    c = case()
+    assert not any("test voltage" in w for w in compare(c.reference, c.test).warnings)
+    swapped = compare(c.test, c.reference)
+    assert any("right order" in w for w in swapped.warnings)
+
+
 def test_report_from_the_cli(tmp_path, capsys):
     c = case(fault="turn_to_turn")
     r, t = tmp_path / "r.cfg", tmp_path / "t.cfg"

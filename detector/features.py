@@ -379,6 +379,11 @@ class _Clock:
 #: 50-250 MS/s; the wave-shape evaluation warns below the 30/Tx of IEC 61083-1 for the front.
 MIN_SAMPLE_RATE_HZ = 5e6
 MAX_SAMPLE_RATE_HZ = 20e9
+#: Shortest record a comparison uses [s]: the front, the crest and some of the tail (or the chop).
+MIN_RECORD_S = 10e-6
+#: Largest magnitudes a record may hold [V], [A]: beyond any impulse test (a unit or scaling error).
+MAX_VOLTAGE_V = 100e6
+MAX_CURRENT_A = 1e6
 
 
 def check_comparable(record: Record, label: str) -> None:
@@ -394,8 +399,10 @@ def check_comparable(record: Record, label: str) -> None:
     Raises
     ------
     RecordError
-        The sample rate lies outside ``MIN_SAMPLE_RATE_HZ``..``MAX_SAMPLE_RATE_HZ`` [Hz], or the current
-        channel is constant (a dead channel, an open shunt or the wrong channel: no neutral current).
+        The sample rate lies outside ``MIN_SAMPLE_RATE_HZ``..``MAX_SAMPLE_RATE_HZ`` [Hz], the record is
+        shorter than ``MIN_RECORD_S`` [s], a channel's magnitude exceeds ``MAX_VOLTAGE_V`` [V] or
+        ``MAX_CURRENT_A`` [A], or the current channel is constant (a dead channel, an open shunt or the
+        wrong channel: no neutral current).
     """
     path = record.source or f"{label} record"
     fs = record.sampling_rate_Hz
@@ -405,6 +412,19 @@ def check_comparable(record: Record, label: str) -> None:
             f"{MAX_SAMPLE_RATE_HZ / 1e9:g} GS/s a lightning-impulse comparison can use (verdicts are validated "
             "for 50-250 MS/s); check the time column's unit or the sample interval", path=path,
             field="sample rate")
+    if record.duration_s < MIN_RECORD_S:
+        raise RecordError(
+            f"the record spans {1e6 * record.duration_s:.3g} us ({record.n_samples} samples); a comparison "
+            f"needs at least {1e6 * MIN_RECORD_S:g} us (the front, the crest and part of the tail or the chop)",
+            path=path, field="time")
+    for ch in record.channels:
+        limit = MAX_VOLTAGE_V if ch.quantity == "voltage" else MAX_CURRENT_A
+        peak = float(np.max(np.abs(ch.samples))) if ch.samples.size else 0.0
+        if peak > limit:
+            raise RecordError(
+                f"peak magnitude {peak:.3g} {'V' if ch.quantity == 'voltage' else 'A'} is beyond any impulse "
+                f"test (at most {limit:.0e}); check the channel's unit and scale factor", path=path,
+                field=ch.name or ch.quantity)
     if record.has_current:
         ch = record.current
         x = ch.samples

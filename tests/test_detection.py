@@ -313,10 +313,13 @@ def _with(record, *, voltage=None, current=None, dt=None):
     ("time in us labelled s", r"t\.csv: sample rate: 100 Hz .* is outside the 5 MS/s to 20 GS/s"),
     ("1 MS/s", r"t\.csv: sample rate: 1e\+06 Hz \(1 MS/s\) is outside"),
     ("picosecond grid", r"t\.csv: sample rate: 1e\+12 Hz .* is outside"),
+    ("9 us long", r"t\.csv: time: the record spans 8\.99 us \(900 samples\); a comparison needs at least 10 us"),
+    ("unit error", r"t\.csv: .*peak magnitude .* V is beyond any impulse test"),
 ])
 def test_records_no_comparison_can_use_exit_2_naming_file_and_field(tmp_path, capsys, what, match):
-    """A voltage without an impulse, a dead current channel or a sample rate no impulse recorder has used
-    to give a verdict all the same (a fault, or none); they are input errors now."""
+    """A voltage without an impulse, a dead current channel, a sample rate no impulse recorder has, a
+    record too short to hold an impulse or values beyond any impulse test used to give a verdict all the
+    same (a fault, or none) or a message without the file; they are input errors now."""
     c = case()
     test = c.test
     rng = np.random.default_rng(0)
@@ -333,6 +336,11 @@ def test_records_no_comparison_can_use_exit_2_naming_file_and_field(tmp_path, ca
         test = dataclasses.replace(test, channels=tuple(
             dataclasses.replace(ch, samples=ch.samples[::100]) for ch in test.channels),
             sample_interval_s=test.sample_interval_s * 100)
+    elif what == "9 us long":
+        test = dataclasses.replace(test, channels=tuple(
+            dataclasses.replace(ch, samples=ch.samples[1000:1900]) for ch in test.channels))
+    elif what == "unit error":
+        test = _with(test, voltage=test.voltage.samples * 1e6)
     else:
         test = _with(test, dt=1e-12)
     r, t = tmp_path / "r.csv", tmp_path / "t.csv"

@@ -490,8 +490,8 @@ def extract(
     Raises
     ------
     RecordError
-        A record lacks its voltage or current channel, or the records do not overlap; a record's sample
-        rate is outside the usable range or its current is constant (:func:`check_comparable`).
+        A record lacks its voltage or current channel, or the records do not overlap; a record fails
+        :func:`check_comparable` (sample rate, length, magnitudes, a constant current).
     NoImpulseError
         No impulse found in a record's voltage.
     """

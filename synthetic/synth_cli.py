@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from pathlib import Path
 from typing import Any
 
 from detector._validation import ShotcheckError
@@ -90,12 +91,17 @@ def run(args: argparse.Namespace) -> int:
     Raises
     ------
     ShotcheckError
-        Bad design file, bad arguments, existing data set in ``--out``, unreachable scheduler.
+        Bad design file, bad arguments, a data set or other files in ``--out``, unreachable scheduler.
     """
     from .dataset import generate
 
     if args.scheduler is not None and args.workers is not None:
         raise ShotcheckError("--workers and --scheduler exclude each other: the cluster decides the workers")
+    out = Path(args.out)
+    if out.is_dir() and any(out.iterdir()) and not (out / "manifest.json").exists():
+        # a folder of other files: the shards and labels must not mix with them (a data set already
+        # there is refused by generate with its own message)
+        raise ShotcheckError(f"{out}: is not empty; --out takes a new or empty directory")
     design = args.design
     if design is not None and len(design) == 1:
         design = design[0]

@@ -80,3 +80,14 @@ def test_main_exit_status_2_on_bad_design(tmp_path, capsys):
                  "--design", str(tmp_path / "none.toml")])
     assert code == 2
     assert "cannot read the design file" in capsys.readouterr().err
+
+
+def test_out_folder_holding_other_files_is_refused(tmp_path, capsys):
+    from detector.cli import main
+
+    busy = tmp_path / "busy"
+    busy.mkdir()
+    (busy / "notes.txt").write_text("lab notes", encoding="utf-8")
+    assert main(["synth", "--cases", "2", "--out", str(busy), "--seed", "1"]) == 2
+    assert "busy: is not empty; --out takes a new or empty directory" in capsys.readouterr().err
+    assert sorted(p.name for p in busy.iterdir()) == ["notes.txt"]  # nothing written

@@ -435,6 +435,51 @@ def check_comparable(record: Record, label: str) -> None:
                 path=path, field=ch.name or "current")
 
 
+#: Largest relative difference of the front times T1 and of the times to half-value T2 of the two records
+#: before a warning says the wave shapes differ [1]: the widths of the IEC 60060-1 tolerances of a
+#: lightning impulse (T1 1.2 us +-30 %, T2 50 us +-20 %).
+SHAPE_DIFFERENCE_TOLERANCE = {"front_time_s": 0.30, "time_to_half_s": 0.20}
+
+
+def shape_warnings(reference_shape: WaveShape | None, test_shape: WaveShape | None) -> list[str]:
+    """Warnings about the wave shapes of a pair: a record outside its IEC 60060-1 tolerances, and front
+    times or times to half-value of the two records that differ by more than those tolerances' widths.
+
+    Parameters
+    ----------
+    reference_shape, test_shape : WaveShape or None
+        Evaluations of the two records (None: not evaluated; a note already says why).
+
+    Returns
+    -------
+    list of str
+        One warning per finding, values in us (T1, T2) as in the wave-shape table.
+    """
+    out = []
+    for label, ws in (("reference", reference_shape), ("test", test_shape)):
+        if ws is None or ws.within_tolerance:
+            continue
+        failed = []
+        for c in ws.tolerance:
+            if c.passed:
+                continue
+            d = c.to_dict()
+            lo = "" if d["low"] is None else f"{d['low']:.4g}"
+            hi = "" if d["high"] is None else f"{d['high']:.4g}"
+            val = "not measured" if d["value"] is None else f"{d['value']:.4g}"
+            failed.append(f"{c.name} {val} (limits {lo}..{hi})")
+        out.append(f"{label} record: wave shape outside the IEC 60060-1 tolerances: {', '.join(failed)}")
+    if reference_shape is not None and test_shape is not None:
+        for name, tol in SHAPE_DIFFERENCE_TOLERANCE.items():
+            r, t = getattr(reference_shape, name), getattr(test_shape, name)
+            if r and t and abs(t - r) > tol * abs(r):
+                what = "front times T1" if name == "front_time_s" else "times to half-value T2"
+                out.append(f"the {what} of the two records differ by more than {100 * tol:.0f} %: reference "
+                           f"{1e6 * r:.4g} us, test {1e6 * t:.4g} us; compare shots of the same generator "
+                           "setting (or check the channels)")
+    return out
+
+
 def _shape_or_none(record: Record, label: str, notes: list[str]) -> WaveShape | None:
     """IEC 60060-1 evaluation, or None with a note when the record defeats it (e.g. a breakdown on the front).
 
@@ -501,6 +546,7 @@ def extract(
     notes: list[str] = []
     ws_r = reference_shape if reference_shape is not None else _shape_or_none(reference, "reference", notes)
     ws_t = test_shape if test_shape is not None else _shape_or_none(test, "test", notes)
+    notes.extend(shape_warnings(ws_r, ws_t))
     clock("waveshape")
     pair = align_pair(reference, test, ref_test_voltage_V=None if ws_r is None else ws_r.test_voltage_V,
                       test_test_voltage_V=None if ws_t is None else ws_t.test_voltage_V)

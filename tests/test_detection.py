@@ -370,6 +370,35 @@ def test_levels_out_of_order_or_in_other_units_give_a_warning():
     assert any("right order" in w for w in swapped.warnings)
 
 
+def test_wave_shapes_beyond_the_tolerances_give_a_warning():
+    """IEC 60060-1, 7.1 (lightning impulse: T1 1.2 us +-30 %, T2 50 us +-20 %, overshoot at most 10 %,
+    from memory): a record outside them, or two records whose T1 or T2 differ by more than those
+    widths, is named in the warnings; a pair of the same generator setting is not."""
+    from detector.features import shape_warnings
+
+    c = case()
+    a = extract(c.reference, c.test)
+    assert shape_warnings(a.reference_shape, a.test_shape) == []
+    assert not any("tolerances" in w or "differ by more" in w for w in a.warnings)
+    slower = dataclasses.replace(a.test_shape, front_time_s=1.45 * a.reference_shape.front_time_s)
+    w = shape_warnings(a.reference_shape, slower)
+    assert len(w) == 1 and "front times T1 of the two records differ by more than 30 %" in w[0]
+    longer = dataclasses.replace(a.test_shape, time_to_half_s=1.25 * a.reference_shape.time_to_half_s)
+    assert "times to half-value T2" in shape_warnings(a.reference_shape, longer)[0]
+    bad = dataclasses.replace(a.test_shape, within_tolerance=False, tolerance=tuple(
+        dataclasses.replace(t, passed=False, value=3e-6) if t.name == "front_time_us" else t
+        for t in a.test_shape.tolerance))
+    w = shape_warnings(a.reference_shape, bad)
+    assert w == ["test record: wave shape outside the IEC 60060-1 tolerances: front_time_us 3 (limits 0.84..1.56)"]
+    # the channels of the test file swapped: its 'voltage' is the current's wave
+    swapped = dataclasses.replace(c.test, channels=tuple(
+        dataclasses.replace(ch, quantity="current" if ch.quantity == "voltage" else "voltage",
+                            samples=ch.samples * (1e5 if ch.quantity == "current" else 1e-5))
+        for ch in c.test.channels))
+    warnings = extract(c.reference, swapped).warnings
+    assert any("front times T1 of the two records differ" in w for w in warnings), warnings
+
+
 def test_report_from_the_cli(tmp_path, capsys):
     c = case(fault="turn_to_turn")
     r, t = tmp_path / "r.cfg", tmp_path / "t.cfg"

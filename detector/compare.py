@@ -68,7 +68,8 @@ def default_model(path: str | Path | None = None) -> ShotModel:
                 f"the bundled model {p} is missing; build it with the command in DEVELOPERS.md "
                 "('The default model') or pass --model"
             )
-        raise ShotcheckError(f"{p}: model file not found")
+        raise ShotcheckError(f"{p}: " + ("is a folder; expected a model file (.skops)" if p.is_dir()
+                                         else "model file not found"))
     return _load_cached(str(p.resolve()), p.stat().st_mtime)
 
 

@@ -725,7 +725,8 @@ def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotM
 
     p = Path(path)
     if not p.is_file():
-        raise ShotcheckError(f"{p}: model file not found")
+        raise ShotcheckError(f"{p}: " + ("is a folder; expected a model file (.skops)" if p.is_dir()
+                                         else "model file not found"))
     try:
         untrusted = sio.get_untrusted_types(file=p)
     except Exception as exc:  # a damaged or foreign file: say what it is not

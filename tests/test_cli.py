@@ -107,3 +107,15 @@ def test_bad_option_exits_2(capsys):
     assert main(["waveshape", "--kind", "square"]) == 2
     assert "invalid choice" in capsys.readouterr().err
     assert main(["nonsense"]) == 2
+
+
+def test_a_folder_given_for_a_record_or_a_model_is_named_as_a_folder(tmp_path, capsys):
+    folder = tmp_path / "shots"
+    folder.mkdir()
+    assert main(["waveshape", str(folder)]) == 2
+    assert f"{folder}: is a folder; expected a record file (.cfg, .cff, .csv)" in capsys.readouterr().err
+    rec, _, _ = _lightning_record()
+    f = tmp_path / "r.csv"
+    write(rec, f)
+    assert main(["compare", str(f), str(f), "--model", str(folder)]) == 2
+    assert f"{folder}: is a folder; expected a model file (.skops)" in capsys.readouterr().err

@@ -95,6 +95,8 @@ def read(
         Unsupported suffix, missing file, or a file that does not hold a usable record
         (:class:`FormatError` when the file breaks its format).
     """
+    if Path(path).is_dir():
+        raise RecordError(f"is a folder; expected a record file ({', '.join(REGISTRY)})", path=str(path))
     mod = _module_for(path)
     try:
         return mod.read(path, voltage_channel=voltage_channel, current_channel=current_channel)

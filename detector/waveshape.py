@@ -619,6 +619,13 @@ def evaluate_switching(
 _META_KIND = {"chopped": "lightning_chopped", "reduced_chopped": "lightning_chopped", "switching": "switching"}
 
 
+#: Sample rates a record must have for a wave-shape evaluation [Hz]: at 100 kS/s the front of a
+#: switching impulse (250 us) holds 25 samples; no impulse recorder samples above 20 GS/s. Outside, the
+#: time column is in another unit than it says (microseconds read as seconds give 100 Hz).
+MIN_SAMPLE_RATE_HZ = 100e3
+MAX_SAMPLE_RATE_HZ = 20e9
+
+
 def evaluate_waveshape(
     record: Record,
     *,
@@ -648,7 +655,8 @@ def evaluate_waveshape(
     Raises
     ------
     RecordError
-        Naming ``record.source`` and what was expected.
+        Naming ``record.source`` and what was expected (also for a sample rate outside
+        ``MIN_SAMPLE_RATE_HZ``..``MAX_SAMPLE_RATE_HZ``).
 
     Examples
     --------
@@ -664,6 +672,12 @@ def evaluate_waveshape(
     """
     if not isinstance(record, Record):
         raise ShotcheckError(f"expected a Record, got {type(record).__name__}")
+    fs = record.sampling_rate_Hz
+    if not MIN_SAMPLE_RATE_HZ <= fs <= MAX_SAMPLE_RATE_HZ:
+        raise RecordError(
+            f"{fs:.4g} Hz is outside the {MIN_SAMPLE_RATE_HZ / 1e3:g} kS/s to {MAX_SAMPLE_RATE_HZ / 1e9:g} GS/s "
+            "an impulse record can have; check the time column's unit or the sample interval",
+            path=record.source, field="sample rate")
     if kind is not None:
         check_option("kind", kind, KINDS)
     _check_bits(bits, full_scale_V, specified_test_voltage_V)

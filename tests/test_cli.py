@@ -119,3 +119,14 @@ def test_a_folder_given_for_a_record_or_a_model_is_named_as_a_folder(tmp_path, c
     write(rec, f)
     assert main(["compare", str(f), str(f), "--model", str(folder)]) == 2
     assert f"{folder}: is a folder; expected a model file (.skops)" in capsys.readouterr().err
+
+
+def test_waveshape_of_a_record_whose_time_column_is_in_another_unit_exits_2(tmp_path, capsys):
+    # microseconds written under a seconds header: 100 Hz instead of 100 MS/s (was: a switching impulse
+    # with T2 of 50 s)
+    rec, _, _ = _lightning_record()
+    slow = rec.replace(sample_interval_s=rec.sample_interval_s * 1e6, start_time_s=rec.start_time_s * 1e6)
+    f = tmp_path / "us_as_s.csv"
+    write(slow, f)
+    assert main(["waveshape", str(f)]) == 2
+    assert "us_as_s.csv: sample rate: 100 Hz is outside the 100 kS/s to 20 GS/s" in capsys.readouterr().err

@@ -183,10 +183,8 @@ def _cmd_compare(args: argparse.Namespace) -> int:
 
 
 def _cmd_train(args: argparse.Namespace) -> int:
-    import numpy as np
-
     from .model import save_model
-    from .training import extract_dataset, report_text, save_report, train
+    from .training import class_counts, extract_dataset, report_text, save_report, train
 
     # the options and the output folder first: not after minutes of work
     check_range("--false-alarm-rate", args.false_alarm_rate, 0.0, 0.5, low_inclusive=False)
@@ -198,8 +196,7 @@ def _cmd_train(args: argparse.Namespace) -> int:
         model, rep = train(data, false_alarm_rate_target=args.false_alarm_rate, seed=args.seed,
                            cv_folds=args.cv_folds, description=args.description or f"data set {args.data}")
     except ValueError as exc:  # an estimator refusing the data: in practice a set too small or too one-sided
-        counts = ", ".join(f"{c} {n}" for c, n in zip(*np.unique(data.event, return_counts=True), strict=True))
-        raise ShotcheckError(f"{args.data}: training failed on this data set ({counts}): "
+        raise ShotcheckError(f"{args.data}: training failed on this data set ({class_counts(data.event)}): "
                              f"{type(exc).__name__}: {exc}; train on more pairs of every class") from None
     save_model(model, args.out)
     print(f"cross-validated figures (grouped by winding design, {args.cv_folds} folds):")

@@ -33,7 +33,7 @@ from .features import (
     instant_inputs,
     sharp_onset_after_front_us,
 )
-from .model import EVENT_CLASSES, ShotModel, load_model
+from .model import EVENT_CLASSES, ShotModel, load_model, missing_model_error
 from .record import Record
 from .scoring import exceeded
 from .waveshape import WaveShape
@@ -68,8 +68,7 @@ def default_model(path: str | Path | None = None) -> ShotModel:
                 f"the bundled model {p} is missing; build it with the command in DEVELOPERS.md "
                 "('The default model') or pass --model"
             )
-        raise ShotcheckError(f"{p}: " + ("is a folder; expected a model file (.skops)" if p.is_dir()
-                                         else "model file not found"))
+        raise missing_model_error(p)
     return _load_cached(str(p.resolve()), p.stat().st_mtime)
 
 

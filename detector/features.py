@@ -43,7 +43,7 @@ from .metrics.transfer import (
 from .metrics.wavelet import WaveletDifference, burst_counts, wavelet_difference
 from .preprocess import AlignedPair, align_pair
 from .record import Record
-from .waveshape import WaveShape, evaluate_waveshape
+from .waveshape import MAX_SAMPLE_RATE_HZ, WaveShape, evaluate_waveshape
 
 __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", "PairAnalysis", "extract",
            "INSTANT_INPUT_NAMES", "instant_inputs"]
@@ -373,12 +373,12 @@ class _Clock:
             self.t = now
 
 
-#: Sample rates a record must have to be compared [Hz]. Below the lower bound a lightning impulse's front
-#: holds a handful of samples and the detectors' bands do not exist; above the upper one no impulse
-#: recorder samples (a time column in the wrong unit gives such rates). Verdicts are validated for
-#: 50-250 MS/s; the wave-shape evaluation warns below the 30/Tx of IEC 61083-1 for the front.
-MIN_SAMPLE_RATE_HZ = 5e6
-MAX_SAMPLE_RATE_HZ = 20e9
+#: Lowest sample rate a record must have to be compared [Hz]: below it a lightning impulse's front holds
+#: a handful of samples and the detectors' bands do not exist. The upper bound is the wave-shape
+#: evaluation's (:data:`detector.waveshape.MAX_SAMPLE_RATE_HZ`: no impulse recorder samples faster; a time
+#: column in the wrong unit gives such rates). Verdicts are validated for 50-250 MS/s; the wave-shape
+#: evaluation warns below the 30/Tx of IEC 61083-1 for the front.
+MIN_COMPARE_SAMPLE_RATE_HZ = 5e6
 #: Shortest record a comparison uses [s]: the front, the crest and some of the tail (or the chop).
 MIN_RECORD_S = 10e-6
 #: Largest magnitudes a record may hold [V], [A]: beyond any impulse test (a unit or scaling error).
@@ -399,16 +399,16 @@ def check_comparable(record: Record, label: str) -> None:
     Raises
     ------
     RecordError
-        The sample rate lies outside ``MIN_SAMPLE_RATE_HZ``..``MAX_SAMPLE_RATE_HZ`` [Hz], the record is
+        The sample rate lies outside ``MIN_COMPARE_SAMPLE_RATE_HZ``..``MAX_SAMPLE_RATE_HZ`` [Hz], the record is
         shorter than ``MIN_RECORD_S`` [s], a channel's magnitude exceeds ``MAX_VOLTAGE_V`` [V] or
         ``MAX_CURRENT_A`` [A], or the current channel is constant (a dead channel, an open shunt or the
         wrong channel: no neutral current).
     """
     path = record.source or f"{label} record"
     fs = record.sampling_rate_Hz
-    if not MIN_SAMPLE_RATE_HZ <= fs <= MAX_SAMPLE_RATE_HZ:
+    if not MIN_COMPARE_SAMPLE_RATE_HZ <= fs <= MAX_SAMPLE_RATE_HZ:
         raise RecordError(
-            f"{fs:.4g} Hz ({fs / 1e6:.4g} MS/s) is outside the {MIN_SAMPLE_RATE_HZ / 1e6:g} MS/s to "
+            f"{fs:.4g} Hz ({fs / 1e6:.4g} MS/s) is outside the {MIN_COMPARE_SAMPLE_RATE_HZ / 1e6:g} MS/s to "
             f"{MAX_SAMPLE_RATE_HZ / 1e9:g} GS/s a lightning-impulse comparison can use (verdicts are validated "
             "for 50-250 MS/s); check the time column's unit or the sample interval", path=path,
             field="sample rate")

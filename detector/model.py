@@ -701,6 +701,12 @@ def _strip_training_statistics(parts: Mapping[str, Any]) -> None:
                 nodes["feature_idx"][leaf] = 0
 
 
+def missing_model_error(path: Path) -> ShotcheckError:
+    """The error for a model path that is no file: a folder, or nothing."""
+    what = "is a folder; expected a model file (.skops)" if path.is_dir() else "model file not found"
+    return ShotcheckError(f"{path}: {what}")
+
+
 def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotModel:
     """Load a model file written by :func:`save_model`, trusting only :data:`TRUSTED_TYPES`.
 
@@ -725,8 +731,7 @@ def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotM
 
     p = Path(path)
     if not p.is_file():
-        raise ShotcheckError(f"{p}: " + ("is a folder; expected a model file (.skops)" if p.is_dir()
-                                         else "model file not found"))
+        raise missing_model_error(p)
     try:
         untrusted = sio.get_untrusted_types(file=p)
     except Exception as exc:  # a damaged or foreign file: say what it is not

@@ -323,6 +323,12 @@ def _subset(data: LabelledFeatures, keep: np.ndarray) -> LabelledFeatures:
 MIN_EFFECT_LSB = 1.0
 
 
+def class_counts(events: np.ndarray) -> str:
+    """Pairs per event class, for messages (``'discharge_only 4, none 5, ...'``, classes sorted)."""
+    classes, counts = np.unique(np.asarray(events), return_counts=True)
+    return ", ".join(f"{c} {n}" for c, n in zip(classes, counts, strict=True))
+
+
 def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed: int = 0,
           cv_folds: int = 3, description: str = "", min_effect_lsb: float = MIN_EFFECT_LSB
           ) -> tuple[ShotModel, dict[str, Any]]:
@@ -354,11 +360,9 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     X, y, pos, groups = data.X, data.event, data.position, data.groups
     if len(set(y)) < 2:
         raise ShotcheckError("the training set needs at least two event classes")
-    classes, counts = np.unique(y, return_counts=True)
-    if counts.min() < MIN_PAIRS_PER_CLASS:
-        have = ", ".join(f"{c} {n}" for c, n in zip(classes, counts, strict=True))
+    if np.unique(y, return_counts=True)[1].min() < MIN_PAIRS_PER_CLASS:
         where = f"{data.source}: " if data.source else ""
-        raise ShotcheckError(f"{where}the training set has too few usable pairs ({have}); at least "
+        raise ShotcheckError(f"{where}the training set has too few usable pairs ({class_counts(y)}); at least "
                              f"{MIN_PAIRS_PER_CLASS} of each class present are needed, and hundreds for a "
                              "useful model (make more with `shotcheck synth --cases N`)")
     report: dict[str, Any] = {}

@@ -855,10 +855,11 @@ def align_pair(
     (0.3, 1.0)
     """
     warnings: list[str] = []
+    for rec in (reference, test):
+        rec.current  # raises RecordError naming the file and all its channels if there is none  # noqa: B018
     ref, tst = reference.select(), test.select()
     clip_masks = []
     for rec, label in ((ref, "reference"), (tst, "test")):
-        rec.current  # raises RecordError naming the file if there is none  # noqa: B018
         masks = []
         for ch in (rec.voltage, rec.current):
             runs = _clip_runs(ch.samples)  # once per channel: the warning and the mask

@@ -363,6 +363,11 @@ def test_missing_current_names_the_file():
     only_v = Record(0.0, DT, (rec.voltage,), source="lab7/shot12.cfg")
     with pytest.raises(RecordError, match="lab7/shot12.cfg.*no current channel"):
         align_pair(rec, only_v)
+    # two voltages (a divider's two ranges): both named, not only the one a comparison would take
+    two_v = Record(0.0, DT, (rec.voltage, Channel("U_low", "voltage", rec.voltage.samples / 10)),
+                   source="lab7/shot13.cfg")
+    with pytest.raises(RecordError, match=r"no current channel among 'U' \(V\), 'U_low' \(V\)"):
+        align_pair(rec, two_v)
 
 
 def test_short_overlap_warns_and_no_front_is_refused():

@@ -228,7 +228,7 @@ def _prediction(rv: np.ndarray, ri: np.ndarray, tv: np.ndarray, ti: np.ndarray, 
     diff = ti_w * gain - pred
     tones: list[tuple[float, float]] = []
     if tone_span is not None:
-        diff, tones = remove_stationary_tones(diff, dt, tone_span, n0)
+        diff, tones = remove_stationary_tones(diff, dt, tone_span, n0, routes=ToneRoutes(w, gain, g, K, n_fft))
     # noise gain of the prediction filter K = V_t V_r* / (|V_r|^2 + lambda) (RMS over frequency, Parseval):
     # about 1 when both waves have one shape, larger when the test wave excites frequencies the
     # reference barely does (a chopped test shot)
@@ -565,6 +565,83 @@ def tone_aware_offsets(pretrigger: np.ndarray, dt: float, freqs_Hz: list[float],
     return off if np.any(off != 0.0) else None
 
 
+#: Largest ``|K|`` at which a tone is fitted through the reference's route [1]. Where the test wave
+#: holds far more of a frequency than the reference, the prediction there is the reference's noise
+#: times ``|K|`` and a fit through that route follows the amplified noise (or a fault's ringing the
+#: test wave excites); the tones of the training families that needed the route had ``|K|`` up to 4.
+MAX_ROUTE_GAIN = 10.0
+
+
+@dataclasses.dataclass(frozen=True)
+class ToneRoutes:
+    """How a tone in either record's current reaches the compensated difference.
+
+    A tone in the test current passes the band limit ``g`` only; a tone in the reference current is
+    part of the measured impulse response and reaches the difference through the prediction
+    ``K = V_r* V_t / (|V_r|^2 + lambda)``, with the opposite sign. Where the test wave has the
+    reference's shape, ``K`` is close to ``g`` and both routes give the same sinusoid; for a chopped
+    test shot ``K`` is not (the chopped wave's spectrum has zeros about every ``1/T_c``) and the
+    reference's tone arrives with an envelope that changes along the record. See
+    :func:`compensated_difference` for the symbols (all arrays are those it uses).
+
+    Attributes
+    ----------
+    window : numpy.ndarray
+        The exponential window ``w`` [1].
+    gain : numpy.ndarray
+        ``1 / w`` [1].
+    band : numpy.ndarray
+        ``g = |V_r|^2 / (|V_r|^2 + lambda)`` per frequency bin [1].
+    prediction : numpy.ndarray
+        ``K`` per frequency bin [1].
+    n_fft : int
+        Transform length the spectra were taken with [samples].
+    """
+
+    window: np.ndarray
+    gain: np.ndarray
+    band: np.ndarray
+    prediction: np.ndarray
+    n_fft: int
+
+    def matter(self, f: float, dt: float, span_samples: int) -> bool:
+        """Whether the routes can change how a tone of frequency ``f`` [Hz] looks over a span of
+        ``span_samples``: the reference resolves ``f`` (``g >= 0.5``; beyond, neither route passes a tone)
+        and ``K`` changes by at least 20 % within one over the span's duration of ``f``. Where ``K`` is
+        nearly constant across the tone's line, the reference's tone arrives as a scaled sinusoid, which
+        the plain test already judges."""
+        k = int(round(f * self.n_fft * dt))
+        d = max(1, int(round(self.n_fft / span_samples)))
+        if not (d <= k < self.band.size - d) or self.band[k] < 0.5:
+            return False
+        K = self.prediction
+        if abs(K[k]) > MAX_ROUTE_GAIN:
+            return False
+        return bool(max(abs(K[k + d] - K[k]), abs(K[k - d] - K[k])) >= 0.2 * abs(K[k]))
+
+    def basis(self, f: float, dt: float) -> np.ndarray:
+        """Rows of a tone of frequency ``f`` [Hz] as it appears in the difference [unit of the tone].
+
+        Returns
+        -------
+        numpy.ndarray, shape (5, samples)
+            Cosine and sine in the test current, cosine and sine in the reference current (sign
+            included), and a constant.
+        """
+        n = self.window.size
+        ph = 2 * np.pi * f * dt * np.arange(n)
+        spec = sfft.rfft(np.stack((np.cos(ph), np.sin(ph))) * self.window, self.n_fft, axis=-1)
+        back = sfft.irfft(np.concatenate((spec * self.band, -spec * self.prediction)), self.n_fft, axis=-1)
+        return np.vstack((back[:, :n] * self.gain, np.ones(n)))
+
+
+def _least_squares(B: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """Coefficients ``c`` minimising ``|x - c @ B|`` (rows of ``B`` the regressors), by the normal
+    equations with a tiny ridge (rows that are nearly collinear share their weight)."""
+    G = B @ B.T
+    return np.linalg.solve(G + 1e-12 * np.trace(G) * np.eye(G.shape[0]), B @ x)
+
+
 def _basis(t: np.ndarray, f: float) -> np.ndarray:
     w = 2 * np.pi * f * t
     return np.vstack((np.cos(w), np.sin(w), np.ones_like(t)))
@@ -592,7 +669,8 @@ def _hann(m: int) -> np.ndarray:
 
 def remove_stationary_tones(
     d: np.ndarray, dt: float, span: np.ndarray, pretrigger_samples: int, *, max_tones: int = 3,
-    min_periods: float = 2.0, stationarity: float = 0.35,
+    min_periods: float = 2.0, stationarity: float = 0.35, candidates: int = 3,
+    routes: ToneRoutes | None = None,
 ) -> tuple[np.ndarray, list[tuple[float, float]]]:
     """Remove narrow-band interference (constant-amplitude tones) from a difference trace.
 
@@ -601,6 +679,15 @@ def remove_stationary_tones(
     fault and the winding damps its oscillations). Each accepted tone is fitted by least squares over
     the whole span (frequency refined by parabolic interpolation of the spectral peak) and subtracted
     from the whole record; a constant offset left by a biased baseline goes with it.
+
+    With ``routes``, a tone may also sit in the reference current, which reaches the difference
+    through the prediction (:class:`ToneRoutes`): where a peak is no plain sinusoid and the routes
+    matter at its frequency (:meth:`ToneRoutes.matter`), the two routes' cosines and sines are fitted
+    together, and the tone is accepted when the signal fitted over each third alone (and over the
+    pre-trigger alone, when it holds two periods) departs from the whole span's fit by at most
+    ``stationarity`` of the latter (RMS over that segment), and when it stands above the noise sample
+    by sample. The test is the plain one (a fault's difference starts at the fault and no fixed
+    combination of the two routes follows it), applied to what interference looks like there.
 
     Parameters
     ----------
@@ -611,24 +698,29 @@ def remove_stationary_tones(
     span : numpy.ndarray of int
         Indices of the compared span.
     pretrigger_samples : int
-        Samples before the front (kept in the span's fit).
+        Samples before the front (kept in the span's fit; with ``routes``, also a segment of its own).
     max_tones : int
         Largest number of tones removed.
     min_periods : float
         A tone must complete this many periods in each third of the span [1].
     stationarity : float
         Largest relative deviation of a third's amplitude from the whole span's [1].
+    candidates : int
+        Spectral peaks tried, largest first, before the search ends (a difference whose largest peak
+        is not stationary, a chop's oscillation for instance, may hold a tone at a smaller one).
+    routes : ToneRoutes, optional
+        How a tone in either record's current reaches ``d``; without it, tones are plain sinusoids.
 
     Returns
     -------
     cleaned : numpy.ndarray
     tones : list of (frequency_Hz, amplitude)
+        Amplitude in the unit of ``d``: of the sinusoid, or ``sqrt(2)`` times the RMS of a two-route fit.
     """
     out = np.array(d, dtype=np.float64, copy=True)
     if span.size < 64:
         return out, []
     idx = np.arange(int(span[0]), int(span[-1]) + 1)
-    t = idx * dt
     x = np.nan_to_num(out[idx])
     m = idx.size
     third = m // 3
@@ -637,37 +729,77 @@ def remove_stationary_tones(
     n_fft = sfft.next_fast_len(2 * m, real=True)
     win = _hann(m)
     freqs = sfft.rfftfreq(n_fft, dt)
-    for _ in range(max_tones):  # loop over a few tones
+    df = float(freqs[1] - freqs[0])
+    while len(tones) < max_tones:  # loop over a few tones
         mag = np.abs(sfft.rfft((x - x.mean()) * win, n_fft))
         mag[freqs < f_min] = 0.0
-        kpk = int(np.argmax(mag))
-        if kpk < 1 or kpk >= mag.size - 1 or mag[kpk] <= 0:
+        peaks = np.flatnonzero((mag[1:-1] > mag[:-2]) & (mag[1:-1] >= mag[2:])) + 1
+        peaks = peaks[np.argsort(mag[peaks])[::-1][:candidates]]
+        for kpk in peaks:
+            a, b, c = np.log(mag[kpk - 1:kpk + 2] + 1e-300)
+            den = a - 2 * b + c
+            shift = 0.5 * (a - c) / den if den != 0 else 0.0
+            # Gaussian (log-parabolic) interpolation of the Hann-windowed, 2x zero-padded peak: a small
+            # fraction of a bin, so the fitted tone keeps its phase over the whole span
+            f = float((kpk + np.clip(shift, -0.5, 0.5)) * df)
+            found = _stationary_tone(x, idx, out.size, dt, f, third, stationarity, routes, pretrigger_samples)
+            if found is not None:
+                break
+        else:
             break
-        a, b, c = np.log(mag[kpk - 1:kpk + 2] + 1e-300)
-        den = a - 2 * b + c
-        shift = 0.5 * (a - c) / den if den != 0 else 0.0
-        df = float(freqs[1] - freqs[0])
-        # Gaussian (log-parabolic) interpolation of the Hann-windowed, 2x zero-padded peak: a small
-        # fraction of a bin, so the fitted tone keeps its phase over the whole span
-        f = float((kpk + np.clip(shift, -0.5, 0.5)) * df)
-        B = _basis(t, f)
-        amp, ph, coef = _fit_tone(x, t, f, B)
-        parts = [_fit_tone(x[i * third:(i + 1) * third], t[i * third:(i + 1) * third], f,
-                           B[:, i * third:(i + 1) * third]) for i in range(3)]
-        amps = np.array([q[0] for q in parts])
-        phases = np.array([q[1] for q in parts])
-        dphase = float(np.max(np.abs(np.angle(np.exp(1j * (phases - ph))))))
-        # interference: the same amplitude and phase in every third of the span (checked first: it is
-        # cheap, and a record without interference fails it), and significant against the noise
-        if not (np.all(np.abs(amps - amp) <= stationarity * amp) and dphase < 0.6):
-            break
-        resid = x - coef @ B
-        noise = _robust_sigma(np.diff(resid)) / math.sqrt(2.0)
-        if not amp > 4.0 * noise * math.sqrt(2.0 / m) * 3.0:
-            break
-        tone = coef[0] * np.cos(2 * np.pi * f * np.arange(out.size) * dt) + coef[1] * np.sin(
-            2 * np.pi * f * np.arange(out.size) * dt)
-        out = out - tone - coef[2]
-        x = x - tone[idx] - coef[2]
+        tone, amp = found
+        out = out - tone
+        x = x - tone[idx]
         tones.append((f, amp))
     return out, tones
+
+
+def _stationary_tone(x: np.ndarray, idx: np.ndarray, n: int, dt: float, f: float, third: int,
+                     stationarity: float, routes: ToneRoutes | None, pretrigger_samples: int = 0,
+                     ) -> tuple[np.ndarray, float] | None:
+    """The tone of frequency ``f`` [Hz] over the whole record of ``n`` samples (its constant included)
+    and its amplitude, if ``x`` (the difference over the span ``idx``) holds it as interference."""
+    t = idx * dt
+    B = _basis(t, f)
+    amp, ph, coef = _fit_tone(x, t, f, B)
+    parts = [_fit_tone(x[i * third:(i + 1) * third], t[i * third:(i + 1) * third], f,
+                       B[:, i * third:(i + 1) * third]) for i in range(3)]
+    amps = np.array([q[0] for q in parts])
+    phases = np.array([q[1] for q in parts])
+    dphase = float(np.max(np.abs(np.angle(np.exp(1j * (phases - ph))))))
+    # interference: the same amplitude and phase in every third of the span, and significant against
+    # the noise (a record without interference fails one of these)
+    plain = bool(np.all(np.abs(amps - amp) <= stationarity * amp) and dphase < 0.6)
+    if not (plain or (routes is not None and routes.matter(f, dt, idx.size))):
+        return None
+    noise = _robust_sigma(np.diff(x - coef @ B)) / math.sqrt(2.0)
+    if not amp > 4.0 * noise * math.sqrt(2.0 / idx.size) * 3.0:
+        return None
+    if plain:
+        return coef @ _basis(np.arange(n) * dt, f), amp
+    # the two-route fit below must stand above the noise sample by sample; a peak whose sinusoid is
+    # under half that is not worth its cost (no accepted tone of the training families was)
+    if amp > 0.5 * noise:
+        full = routes.basis(f, dt)
+        B = full[:, idx]
+        coef = _least_squares(B, x)
+        tone_span = coef[:-1] @ B[:-1]  # without the constant
+        # each third's own fit against the whole span's, constants aside; and the pre-trigger's when it
+        # holds two periods: interference is there before the front, a change of the winding is not
+        segments = [slice(i * third, (i + 1) * third) for i in range(3)]
+        pre = int(np.searchsorted(idx, pretrigger_samples))
+        if f * pre * dt >= 2.0:
+            segments.append(slice(0, pre))
+        for sl in segments:
+            own = _least_squares(B[:, sl], x[sl])
+            if not np.linalg.norm(own[:-1] @ B[:-1, sl] - tone_span[sl]) <= stationarity * np.linalg.norm(
+                    tone_span[sl]):
+                return None
+        amp = float(math.sqrt(2.0) * np.std(tone_span))
+        noise = _robust_sigma(np.diff(x - coef @ B)) / math.sqrt(2.0)
+        # twice the freedom of a sinusoid: where the prediction amplifies the reference (|K| >> 1 at
+        # frequencies the test wave holds more of) the reference's route fits noise shaped by that
+        # gain, so the tone must also stand above the noise sample by sample
+        if amp > max(4.0 * noise * math.sqrt(2.0 / idx.size) * 3.0, noise):
+            return coef @ full, amp
+    return None

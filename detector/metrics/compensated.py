@@ -606,10 +606,10 @@ class ToneRoutes:
 
     def matter(self, f: float, dt: float, span_samples: int) -> bool:
         """Whether the routes can change how a tone of frequency ``f`` [Hz] looks over a span of
-        ``span_samples``: the reference resolves ``f`` (``g >= 0.5``; beyond, neither route passes a tone)
-        and ``K`` changes by at least 20 % within one over the span's duration of ``f``. Where ``K`` is
-        nearly constant across the tone's line, the reference's tone arrives as a scaled sinusoid, which
-        the plain test already judges."""
+        ``span_samples``: the reference resolves ``f`` (``g >= 0.5``; beyond, neither route passes a tone),
+        ``|K|`` there is at most :data:`MAX_ROUTE_GAIN`, and ``K`` changes by at least 20 % within one over
+        the span's duration of ``f``. Where ``K`` is nearly constant across the tone's line, the
+        reference's tone arrives as a scaled sinusoid, which the plain test already judges."""
         k = int(round(f * self.n_fft * dt))
         d = max(1, int(round(self.n_fft / span_samples)))
         if not (d <= k < self.band.size - d) or self.band[k] < 0.5:

@@ -721,6 +721,7 @@ def remove_stationary_tones(
     if span.size < 64:
         return out, []
     idx = np.arange(int(span[0]), int(span[-1]) + 1)
+    t = idx * dt
     x = np.nan_to_num(out[idx])
     m = idx.size
     third = m // 3
@@ -742,7 +743,7 @@ def remove_stationary_tones(
             # Gaussian (log-parabolic) interpolation of the Hann-windowed, 2x zero-padded peak: a small
             # fraction of a bin, so the fitted tone keeps its phase over the whole span
             f = float((kpk + np.clip(shift, -0.5, 0.5)) * df)
-            found = _stationary_tone(x, idx, out.size, dt, f, third, stationarity, routes, pretrigger_samples)
+            found = _stationary_tone(x, idx, t, out.size, dt, f, third, stationarity, routes, pretrigger_samples)
             if found is not None:
                 break
         else:
@@ -754,12 +755,12 @@ def remove_stationary_tones(
     return out, tones
 
 
-def _stationary_tone(x: np.ndarray, idx: np.ndarray, n: int, dt: float, f: float, third: int,
+def _stationary_tone(x: np.ndarray, idx: np.ndarray, t: np.ndarray, n: int, dt: float, f: float, third: int,
                      stationarity: float, routes: ToneRoutes | None, pretrigger_samples: int = 0,
                      ) -> tuple[np.ndarray, float] | None:
     """The tone of frequency ``f`` [Hz] over the whole record of ``n`` samples (its constant included)
-    and its amplitude, if ``x`` (the difference over the span ``idx``) holds it as interference."""
-    t = idx * dt
+    and its amplitude, if ``x`` (the difference over the span ``idx``, times ``t`` [s]) holds it as
+    interference."""
     B = _basis(t, f)
     amp, ph, coef = _fit_tone(x, t, f, B)
     parts = [_fit_tone(x[i * third:(i + 1) * third], t[i * third:(i + 1) * third], f,

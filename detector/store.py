@@ -35,6 +35,7 @@ import secrets
 import sqlite3
 import tempfile
 import threading
+import time
 from collections.abc import Iterator, Sequence
 from pathlib import Path
 from typing import Any
@@ -204,12 +205,38 @@ class Store:
             self.db_path, timeout=timeout_s, isolation_level=None, check_same_thread=False
         )
         self._conn.row_factory = sqlite3.Row
-        self._conn.execute("PRAGMA journal_mode=WAL")
+        self._write_ahead_log(timeout_s)
         self._conn.execute("PRAGMA synchronous=FULL")
         self._conn.execute("PRAGMA foreign_keys=ON")
         self._migrate()
 
     # ---- plumbing -------------------------------------------------------------------------------
+    def _write_ahead_log(self, timeout_s: float) -> None:
+        """Put the database in WAL mode, waiting up to ``timeout_s`` [s] for another connection's write.
+
+        The mode is a property of the file, so only the first opening converts it. SQLite refuses the
+        conversion at once ("database is locked") while another connection holds a write lock, without
+        calling the busy handler that the connection's timeout sets: two service workers opening a new
+        data folder together could fail to start. The conversion is retried until the timeout.
+        """
+        deadline = time.monotonic() + timeout_s
+        pause = 0.005
+        while True:
+            try:
+                mode = self._conn.execute("PRAGMA journal_mode").fetchone()[0]
+                if mode.lower() != "wal":  # the pragma answers the mode it is in; refused: the old one
+                    mode = self._conn.execute("PRAGMA journal_mode=WAL").fetchone()[0]
+                if mode.lower() == "wal":
+                    return
+            except sqlite3.OperationalError as exc:
+                if "locked" not in str(exc):
+                    raise
+            if time.monotonic() + pause > deadline:
+                raise ShotcheckError(f"{self.db_path}: another process kept the database locked for "
+                                     f"{timeout_s:g} s; it could not be put in WAL mode")
+            time.sleep(pause)
+            pause = min(2 * pause, 0.1)
+
     @property
     def db_path(self) -> Path:
         """Path of the SQLite database file."""

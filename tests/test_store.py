@@ -87,6 +87,38 @@ def test_migration_from_version_1_keeps_data(tmp_path):
         st.close()
 
 
+def test_opening_waits_for_another_connections_write(tmp_path):
+    """SQLite refuses the switch to WAL at once while another connection holds a write lock, without
+    the busy timeout (seen: a service worker failing to start beside another on a new data folder)."""
+    import threading
+    import time
+
+    holder = sqlite3.connect(tmp_path / Store.DB_NAME, isolation_level=None, check_same_thread=False)
+    holder.execute("CREATE TABLE t(a)")
+    holder.execute("BEGIN")
+    holder.execute("INSERT INTO t VALUES (1)")  # a write lock, in the default rollback-journal mode
+    threading.Timer(0.3, lambda: holder.execute("COMMIT")).start()
+    t0 = time.monotonic()
+    st = Store(tmp_path, timeout_s=10.0)
+    try:
+        assert time.monotonic() - t0 >= 0.25  # it waited for the write to end
+        assert st._conn.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    finally:
+        st.close()
+        holder.close()
+    # a write that outlasts the timeout is an error naming the database
+    (tmp_path / "other").mkdir()
+    holder = sqlite3.connect(tmp_path / "other" / Store.DB_NAME, isolation_level=None)
+    holder.execute("CREATE TABLE t(a)")
+    holder.execute("BEGIN")
+    holder.execute("INSERT INTO t VALUES (1)")
+    try:
+        with pytest.raises(ShotcheckError, match="shotcheck.sqlite3.*locked.*WAL"):
+            Store(tmp_path / "other", timeout_s=0.2)
+    finally:
+        holder.close()
+
+
 def test_newer_schema_is_refused(tmp_path):
     con = sqlite3.connect(tmp_path / Store.DB_NAME)
     con.execute(f"PRAGMA user_version = {SCHEMA_VERSION + 1}")

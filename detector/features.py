@@ -49,7 +49,7 @@ __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", 
            "INSTANT_INPUT_NAMES", "instant_inputs"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "19"
+SCHEMA_VERSION = "20"
 
 #: Averaging lengths [samples] scored again after the core term is removed (it is slow).
 CORE_SCALES = (64, 256, 1024)
@@ -559,6 +559,14 @@ def extract(
     # wave-shape-compensated current difference: valid across chopping and generator drift
     cd = compensated_difference(pair.ref_voltage_pu, pair.ref_current_pu, pair.test_voltage_pu,
                                 pair.test_current_pu, dt, pretrigger_samples=pair.pretrigger_samples)
+    if pair.clipped.any():
+        # the difference's noise weight is a filter some 0.5 us long, which would carry the error of the
+        # samples at a clipping limit into their measured neighbours: those samples take the healthy
+        # winding's prediction (beyond its span, the reference current) and the difference is made again
+        fill = np.where(np.isfinite(cd.predicted), cd.predicted, pair.ref_current_pu)
+        cd = compensated_difference(pair.ref_voltage_pu, pair.ref_current_pu, pair.test_voltage_pu,
+                                    np.where(pair.clipped, fill, pair.test_current_pu), dt,
+                                    pretrigger_samples=pair.pretrigger_samples)
     pretrigger_s = pair.pretrigger_samples * dt
     tone_note = _slow_tone_warning(cd, pretrigger_s)
     if tone_note is not None:

@@ -403,23 +403,31 @@ def test_extra_trace_is_scored_as_a_second_call_would():
         multiscale_z(cd, start=500, extra=other, extra_scales=(100,))
 
 
-def _difference_spread(test_kwargs, draws=40, noise=1e-4):
-    """Spread of the compensated difference over independent noise draws (Monte Carlo), per sample."""
+def _noise_draws(test_kwargs, draws, seed, noise=1e-4):
+    """Spread of the compensated difference over independent noise draws (Monte Carlo), per sample, and
+    the largest sigma the draws reported."""
     t = (np.arange(N) - PRE) * DT
     v_r, v_t = _wave(t), _wave(t, **test_kwargs)
     i_r, _ = _current(v_r, t)
     i_t, _ = _current(v_t, t)
     scale = np.abs(i_r).max()
-    rng = np.random.default_rng(5)
-    out = []
+    rng = np.random.default_rng(seed)
+    out, sigma = [], None
     for _ in range(draws):
         cd = compensated_difference(v_r + rng.normal(0, noise, N), i_r + rng.normal(0, noise * scale, N),
                                     v_t + rng.normal(0, noise, N), i_t + rng.normal(0, noise * scale, N), DT,
                                     pretrigger_samples=PRE, remove_tones=False)
         out.append(cd.difference)
-    ok = np.isfinite(cd.sigma)
+        sigma = cd.sigma if sigma is None else np.maximum(sigma, cd.sigma)
+    return np.std(np.array(out), axis=0), sigma
+
+
+def _difference_spread(test_kwargs, draws=40):
+    """:func:`_noise_draws`' spread past the front window, where the difference is compared."""
+    spread, sigma = _noise_draws(test_kwargs, draws, seed=5)
+    ok = np.isfinite(sigma)
     ok[: PRE + 150] = False  # past the front window
-    return np.std(np.array(out), axis=0)[ok]
+    return spread[ok]
 
 
 def test_a_chopped_test_shot_leaves_the_difference_about_as_noisy_as_a_full_one():
@@ -433,7 +441,7 @@ def test_a_chopped_test_shot_leaves_the_difference_about_as_noisy_as_a_full_one(
     assert chopped < 1.4 * full
 
 
-def test_noise_weight_is_one_for_one_wave_shape_and_has_no_echo_of_the_chop():
+def test_noise_weight_is_one_for_one_wave_shape_and_has_no_echo_of_the_chop(monkeypatch):
     from detector.metrics.compensated import NOISE_WEIGHT_SMOOTHING_HZ, noise_weight
 
     rng = np.random.default_rng(0)
@@ -457,14 +465,8 @@ def test_noise_weight_is_one_for_one_wave_shape_and_has_no_echo_of_the_chop():
     assert np.max(np.abs(h[lag - 5:lag + 6])) < 0.01 * np.abs(h[0])
     assert NOISE_WEIGHT_SMOOTHING_HZ >= 2 / tc  # two ripples at least in the average
     # without smoothing (one bin), the echo is there: the test can tell
-    import detector.metrics.compensated as mod
-
-    old = mod.NOISE_WEIGHT_SMOOTHING_HZ
-    try:
-        mod.NOISE_WEIGHT_SMOOTHING_HZ = 0.0
-        h0 = np.fft.irfft(noise_weight(ri, ti, 500, g, K.astype(complex), 1 / (n_fft * dt)), n_fft)
-    finally:
-        mod.NOISE_WEIGHT_SMOOTHING_HZ = old
+    monkeypatch.setattr("detector.metrics.compensated.NOISE_WEIGHT_SMOOTHING_HZ", 0.0)
+    h0 = np.fft.irfft(noise_weight(ri, ti, 500, g, K.astype(complex), 1 / (n_fft * dt)), n_fft)
     assert np.max(np.abs(h0[lag - 5:lag + 6])) > 0.05 * np.abs(h0[0])
 
 
@@ -479,20 +481,7 @@ def test_noise_model_matches_the_spread_of_noise_draws_across_a_chop():
     # sigma should be the spread of the difference over independent noise draws (Monte Carlo) for a full
     # reference against a chopped test wave, where the chop excites frequencies the reference barely
     # resolves and the prediction's noise is far from white
-    t = (np.arange(N) - PRE) * DT
-    v_r, v_t = _wave(t), _wave(t, chop_s=4e-6)
-    i_r, _ = _current(v_r, t)
-    i_t, _ = _current(v_t, t)
-    scale, noise = np.abs(i_r).max(), 1e-4
-    rng = np.random.default_rng(1)
-    draws, sigma = [], None
-    for _ in range(200):
-        cd = compensated_difference(v_r + rng.normal(0, noise, N), i_r + rng.normal(0, noise * scale, N),
-                                    v_t + rng.normal(0, noise, N), i_t + rng.normal(0, noise * scale, N), DT,
-                                    pretrigger_samples=PRE, remove_tones=False)
-        draws.append(cd.difference)
-        sigma = cd.sigma if sigma is None else np.maximum(sigma, cd.sigma)
-    spread = np.std(np.array(draws), axis=0)
+    spread, sigma = _noise_draws({"chop_s": 4e-6}, 200, seed=1)
     after = np.flatnonzero(np.isfinite(sigma))
     after = after[after > PRE + 150]  # past the front window
     ratio = spread[after] / sigma[after]

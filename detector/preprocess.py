@@ -35,6 +35,7 @@ import scipy.fft as sfft
 from scipy import signal
 from scipy.interpolate import CubicSpline
 
+from ._fourier import phasor
 from ._stats import median1d
 from ._validation import RecordError, ShotcheckError, check_option, check_range
 from .record import Record
@@ -663,8 +664,7 @@ def shift_fourier(x: np.ndarray, delay_s: float, dt: float) -> np.ndarray:
     n_fft = sfft.next_fast_len(n + max(2 * hold + 16, n // 8), real=True)
     xp = _periodic_extension(x, n_fft - n, hold)
     spec = sfft.rfft(xp, axis=-1)
-    k = np.arange(spec.shape[-1])
-    spec *= np.exp(-2j * np.pi * k * shift / n_fft)
+    spec *= phasor(-shift / n_fft, 1.0, 0, spec.shape[-1])  # exp(-2j pi k shift / n_fft), bin k
     return sfft.irfft(spec, n_fft, axis=-1)[..., :n]
 
 

@@ -46,6 +46,7 @@ import numpy as np
 import scipy.fft as sfft
 from scipy.ndimage import uniform_filter1d
 
+from .._fourier import phasor
 from .._stats import median1d
 from .._validation import ShotcheckError, check_range
 
@@ -697,8 +698,8 @@ class ToneRoutes:
             included), and a constant.
         """
         n = self.window.size
-        ph = 2 * np.pi * f * dt * np.arange(n)
-        spec = sfft.rfft(np.stack((np.cos(ph), np.sin(ph))) * self.window, self.n_fft, axis=-1)
+        z = phasor(f, dt, 0, n) * self.window
+        spec = sfft.rfft(np.stack((z.real, z.imag)), self.n_fft, axis=-1)
         band, pred = self.band, self.prediction
         if self.weight is not None:
             band, pred = band * self.weight, pred * self.weight
@@ -713,19 +714,19 @@ def _least_squares(B: np.ndarray, x: np.ndarray) -> np.ndarray:
     return np.linalg.solve(G + 1e-12 * np.trace(G) * np.eye(G.shape[0]), B @ x)
 
 
-def _basis(t: np.ndarray, f: float) -> np.ndarray:
-    w = 2 * np.pi * f * t
-    return np.vstack((np.cos(w), np.sin(w), np.ones_like(t)))
+def _basis(start: int, count: int, dt: float, f: float) -> np.ndarray:
+    """Rows cosine, sine and one of a tone of ``f`` [Hz] at samples ``start .. start + count - 1``."""
+    z = phasor(f, dt, start, count)
+    B = np.empty((3, int(count)))
+    B[0] = z.real
+    B[1] = z.imag
+    B[2] = 1.0
+    return B
 
 
-def _fit_tone(x: np.ndarray, t: np.ndarray, f: float, B: np.ndarray | None = None
-              ) -> tuple[float, float, np.ndarray]:
-    """Least-squares amplitude and phase of a tone of frequency ``f`` [Hz] (with an offset) in x(t).
-
-    ``B`` is ``_basis(t, f)`` if already at hand.
-    """
-    if B is None:
-        B = _basis(t, f)
+def _fit_tone(x: np.ndarray, B: np.ndarray) -> tuple[float, float, np.ndarray]:
+    """Least-squares amplitude and phase of a tone (with an offset) in ``x``; ``B`` its :func:`_basis`
+    over the samples of ``x``."""
     coef = np.linalg.solve(B @ B.T + 1e-12 * np.eye(3) * B.shape[1], B @ x)  # normal equations, 3 x 3
     return float(np.hypot(coef[0], coef[1])), float(np.arctan2(coef[1], coef[0])), coef
 
@@ -792,7 +793,6 @@ def remove_stationary_tones(
     if span.size < 64:
         return out, []
     idx = np.arange(int(span[0]), int(span[-1]) + 1)
-    t = idx * dt
     x = np.nan_to_num(out[idx])
     m = idx.size
     third = m // 3
@@ -814,7 +814,7 @@ def remove_stationary_tones(
             # Gaussian (log-parabolic) interpolation of the Hann-windowed, 2x zero-padded peak: a small
             # fraction of a bin, so the fitted tone keeps its phase over the whole span
             f = float((kpk + np.clip(shift, -0.5, 0.5)) * df)
-            found = _stationary_tone(x, idx, t, out.size, dt, f, third, stationarity, routes, pretrigger_samples)
+            found = _stationary_tone(x, idx, out.size, dt, f, third, stationarity, routes, pretrigger_samples)
             if found is not None:
                 break
         else:
@@ -826,16 +826,16 @@ def remove_stationary_tones(
     return out, tones
 
 
-def _stationary_tone(x: np.ndarray, idx: np.ndarray, t: np.ndarray, n: int, dt: float, f: float, third: int,
+def _stationary_tone(x: np.ndarray, idx: np.ndarray, n: int, dt: float, f: float, third: int,
                      stationarity: float, routes: ToneRoutes | None, pretrigger_samples: int = 0,
                      ) -> tuple[np.ndarray, float] | None:
     """The tone of frequency ``f`` [Hz] over the whole record of ``n`` samples (its constant included)
-    and its amplitude, if ``x`` (the difference over the span ``idx``, times ``t`` [s]) holds it as
+    and its amplitude, if ``x`` (the difference over the span ``idx``, consecutive samples) holds it as
     interference."""
-    B = _basis(t, f)
-    amp, ph, coef = _fit_tone(x, t, f, B)
-    parts = [_fit_tone(x[i * third:(i + 1) * third], t[i * third:(i + 1) * third], f,
-                       B[:, i * third:(i + 1) * third]) for i in range(3)]
+    rows = _basis(0, n, dt, f)  # the whole record's, of which the span's are a view
+    B = rows[:, idx[0]:idx[-1] + 1]
+    amp, ph, coef = _fit_tone(x, B)
+    parts = [_fit_tone(x[i * third:(i + 1) * third], B[:, i * third:(i + 1) * third]) for i in range(3)]
     amps = np.array([q[0] for q in parts])
     phases = np.array([q[1] for q in parts])
     dphase = float(np.max(np.abs(np.angle(np.exp(1j * (phases - ph))))))
@@ -848,7 +848,7 @@ def _stationary_tone(x: np.ndarray, idx: np.ndarray, t: np.ndarray, n: int, dt: 
     if not amp > 4.0 * noise * math.sqrt(2.0 / idx.size) * 3.0:
         return None
     if plain:
-        return coef @ _basis(np.arange(n) * dt, f), amp
+        return coef @ rows, amp
     # the two-route fit below must stand above the noise sample by sample; a peak whose sinusoid is
     # under half that is not worth its cost (no accepted tone of the training families was)
     if amp > 0.5 * noise:

@@ -112,6 +112,30 @@ def test_interference_tones_are_described_for_the_classifier():
     assert not any("interference" in w for w in a.warnings)
 
 
+
+@pytest.mark.parametrize("guard_s, quiet", [(None, True), (0.0, False)])
+def test_a_megahertz_tone_leaves_no_wavelet_peak_at_the_end_of_the_span(monkeypatch, guard_s, quiet):
+    """A healthy pair with a 1 MHz tone of 10 codes on both 14-bit recorders: the compensated difference
+    finds and removes the tone, the wavelet difference (test current against the unweighted prediction)
+    keeps it, and the stationary transform's padding at the end of the compared span breaks its phase.
+    Scored there, the fine levels read 27-53 noise units (a 'strong burst', what a discharge looks like);
+    the span's last WAVELET_END_GUARD_S are not scored. With the guard off the test must fail."""
+    import detector.features as features
+    from detection_cases import make_case
+
+    if guard_s is not None:
+        monkeypatch.setattr(features, "WAVELET_END_GUARD_S", guard_s)
+    rec = {"sample_rate_Hz": 100e6, "bits": 14, "interference_amplitude_lsb": 10.0, "interference_frequency_Hz": 1e6}
+    c = make_case(test_recorder=rec, reference_recorder=rec)
+    a = extract(c.reference, c.test)
+    d = a.as_dict()
+    assert d["tone_count"] >= 1.0  # the tone itself is found (and removed from the compensated difference)
+    fine = max(d[f"wv_D{k}_peak_sigma"] for k in (1, 2, 3))
+    if quiet:
+        assert fine < 6.0 and d["wv_fine_bursts_strong"] == 0.0
+    else:  # the artefact the guard is for, so that this test can fail
+        assert fine > 20.0 and d["wv_fine_bursts_strong"] >= 1.0
+
 def _window_mean(t, values, lo, hi, before):
     """Mean of the finite values in a window, by a boolean mask (the brute-force form)."""
     m = ((t >= lo) & (t < hi)) if before else ((t > lo) & (t <= hi))

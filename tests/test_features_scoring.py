@@ -120,8 +120,9 @@ def test_a_megahertz_tone_leaves_no_wavelet_peak_at_the_end_of_the_span(monkeypa
     keeps it, and the stationary transform's padding at the end of the compared span breaks its phase.
     Scored there, the fine levels read 27-53 noise units (a 'strong burst', what a discharge looks like);
     the span's last WAVELET_END_GUARD_S are not scored. With the guard off the test must fail."""
-    import detector.features as features
     from detection_cases import make_case
+
+    import detector.features as features
 
     if guard_s is not None:
         monkeypatch.setattr(features, "WAVELET_END_GUARD_S", guard_s)

@@ -112,7 +112,6 @@ def test_interference_tones_are_described_for_the_classifier():
     assert not any("interference" in w for w in a.warnings)
 
 
-
 @pytest.mark.parametrize("guard_s, quiet", [(None, True), (0.0, False)])
 def test_a_megahertz_tone_leaves_no_wavelet_peak_at_the_end_of_the_span(monkeypatch, guard_s, quiet):
     """A healthy pair with a 1 MHz tone of 10 codes on both 14-bit recorders: the compensated difference
@@ -136,6 +135,7 @@ def test_a_megahertz_tone_leaves_no_wavelet_peak_at_the_end_of_the_span(monkeypa
         assert fine < 6.0 and d["wv_fine_bursts_strong"] == 0.0
     else:  # the artefact the guard is for, so that this test can fail
         assert fine > 20.0 and d["wv_fine_bursts_strong"] >= 1.0
+
 
 def _window_mean(t, values, lo, hi, before):
     """Mean of the finite values in a window, by a boolean mask (the brute-force form)."""

@@ -25,4 +25,3 @@ def test_phasor_is_the_complex_exponential_of_each_sample(f_Hz, dt, start, count
 
 def test_phasor_of_no_samples_is_empty():
     assert phasor(1e6, 1e-8, 10, 0).shape == (0,)
-

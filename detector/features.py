@@ -324,6 +324,13 @@ def _oscillation_features(osc: OscillationScan, front_s: float) -> list[float]:
             float(osc.frequencies_Hz[best]) / 1e3, 1e6 * (float(osc.onset_s[best]) - front_s)]
 
 
+def _clipped_filled(pair: AlignedPair, cd: CompensatedDifference) -> np.ndarray:
+    """The test current [A/V] with its clipped samples replaced by the healthy winding's prediction
+    (beyond the span the prediction covers, by the reference current)."""
+    fill = np.where(np.isfinite(cd.predicted), cd.predicted, pair.ref_current_pu)
+    return np.where(pair.clipped, fill, pair.test_current_pu)
+
+
 def _slow_tone_warning(cd: CompensatedDifference, pretrigger_s: float) -> str | None:
     """A warning when an interference tone completes under one period in the pre-trigger, else None."""
     slow = [(f, f * pretrigger_s) for f, _ in cd.tones if f * pretrigger_s < 1.0]
@@ -570,10 +577,8 @@ def extract(
         # the difference's noise weight is a filter some 0.5 us long, which would carry the error of the
         # samples at a clipping limit into their measured neighbours: those samples take the healthy
         # winding's prediction (beyond its span, the reference current) and the difference is made again
-        fill = np.where(np.isfinite(cd.predicted), cd.predicted, pair.ref_current_pu)
         cd = compensated_difference(pair.ref_voltage_pu, pair.ref_current_pu, pair.test_voltage_pu,
-                                    np.where(pair.clipped, fill, pair.test_current_pu), dt,
-                                    pretrigger_samples=pair.pretrigger_samples)
+                                    _clipped_filled(pair, cd), dt, pretrigger_samples=pair.pretrigger_samples)
     pretrigger_s = pair.pretrigger_samples * dt
     tone_note = _slow_tone_warning(cd, pretrigger_s)
     if tone_note is not None:
@@ -586,10 +591,7 @@ def extract(
     # the test current where a recorder clipped is unknown: the transfer function and the wavelet
     # difference take the healthy winding's prediction there (no difference where nothing was measured);
     # beyond the span the prediction covers, the reference current (per unit: the same when healthy)
-    test_current = pair.test_current_pu
-    if pair.clipped.any():
-        fill = np.where(np.isfinite(cd.predicted), cd.predicted, pair.ref_current_pu)
-        test_current = np.where(pair.clipped, fill, test_current)
+    test_current = _clipped_filled(pair, cd) if pair.clipped.any() else pair.test_current_pu
     clock("compensated")
 
     # transfer functions over the whole records: valid across chopping (see metrics.transfer)

@@ -714,10 +714,10 @@ def _least_squares(B: np.ndarray, x: np.ndarray) -> np.ndarray:
     return np.linalg.solve(G + 1e-12 * np.trace(G) * np.eye(G.shape[0]), B @ x)
 
 
-def _basis(start: int, count: int, dt: float, f: float) -> np.ndarray:
-    """Rows cosine, sine and one of a tone of ``f`` [Hz] at samples ``start .. start + count - 1``."""
-    z = phasor(f, dt, start, count)
-    B = np.empty((3, int(count)))
+def _basis(n: int, dt: float, f: float) -> np.ndarray:
+    """Rows cosine, sine and one of a tone of ``f`` [Hz] at the samples ``0 .. n - 1`` of a record."""
+    z = phasor(f, dt, 0, n)
+    B = np.empty((3, int(n)))
     B[0] = z.real
     B[1] = z.imag
     B[2] = 1.0
@@ -832,7 +832,7 @@ def _stationary_tone(x: np.ndarray, idx: np.ndarray, n: int, dt: float, f: float
     """The tone of frequency ``f`` [Hz] over the whole record of ``n`` samples (its constant included)
     and its amplitude, if ``x`` (the difference over the span ``idx``, consecutive samples) holds it as
     interference."""
-    rows = _basis(0, n, dt, f)  # the whole record's, of which the span's are a view
+    rows = _basis(n, dt, f)  # the whole record's, of which the span's are a view
     B = rows[:, idx[0]:idx[-1] + 1]
     amp, ph, coef = _fit_tone(x, B)
     parts = [_fit_tone(x[i * third:(i + 1) * third], B[:, i * third:(i + 1) * third]) for i in range(3)]

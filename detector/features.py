@@ -252,6 +252,15 @@ def _quantisation_floor(reference: Record, test: Record, pair: AlignedPair) -> f
 
     Each current's step, and each voltage's step times the current-to-voltage ratio, in per unit of its
     record's test voltage; uniform quantisation error has the standard deviation step/sqrt(12).
+
+    That is the bound for a record without noise. With noise at the quantiser's input (dither) the
+    part of the error that does not average away shrinks fast: its mean for a given input keeps the
+    sawtooth's k-th harmonic times exp(-2 pi^2 k^2 sigma^2 / step^2) (Widrow and Kollar, Quantization
+    Noise, 2008; from memory), under 1 % of step/sqrt(12) with half a code of analogue noise. For most
+    records the floor therefore stands for other slow residuals that do not average down, chiefly
+    interference on the voltage channels, which reaches the difference through the prediction
+    (``test_a_tone_on_the_reference_record_leaves_no_slow_difference``). Replaced by the dithered bias
+    it lowered cross-validated detection (DEVELOPERS.md).
     """
     ut_r, ut_t = pair.ref_test_voltage_V, pair.test_test_voltage_V
     ratio = float(np.max(np.abs(pair.ref_current_pu)))  # current per unit of voltage [A/V]

@@ -455,8 +455,9 @@ def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ..
         Samples before the front, used to measure how the noise averages down (its correlation).
     floor_sigma : float
         Part of the noise that does not average down [unit of the difference]: the quantisation error
-        of a slowly varying, lightly dithered record is a deterministic function of the signal and
-        stays correlated over long spans (about step/sqrt(12) of each record).
+        of a slowly varying record without noise is a deterministic function of the signal and stays
+        correlated over long spans (step/sqrt(12) of each record; far less with half a code of noise
+        or more, see ``features._quantisation_floor`` for what the floor holds in practice).
     exclude : numpy.ndarray of bool, optional
         Samples not scored (e.g. around an intended chop, where the test wave holds frequencies the
         reference never had).

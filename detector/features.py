@@ -49,7 +49,7 @@ __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", 
            "INSTANT_INPUT_NAMES", "instant_inputs"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "21"
+SCHEMA_VERSION = "22"
 
 #: Averaging lengths [samples] scored again after the core term is removed (it is slow).
 CORE_SCALES = (64, 256, 1024)
@@ -72,7 +72,9 @@ BURST_GAP_S = 200e-9
 #: stationary transform pads the span with a continuation of its end, and an interference tone of a
 #: few MHz (one the compensated difference removes, but the wavelet difference, made of the test
 #: current and the unweighted prediction, keeps) loses its phase there: benign pairs showed fine-level
-#: peaks of 16-60 noise units on the span's last sample.
+#: peaks of 16-60 noise units on the span's last sample. Most of those tones were on a voltage channel,
+#: which since schema 22 is taken out before the prediction (``remove_voltage_tones``); the guard stays
+#: for the tones that are not.
 WAVELET_END_GUARD_S = 0.5e-6
 
 #: Log-spaced bands for the signed mean dB difference of the transfer functions [Hz].
@@ -257,10 +259,10 @@ def _quantisation_floor(reference: Record, test: Record, pair: AlignedPair) -> f
     part of the error that does not average away shrinks fast: its mean for a given input keeps the
     sawtooth's k-th harmonic times exp(-2 pi^2 k^2 sigma^2 / step^2) (Widrow and Kollar, Quantization
     Noise, 2008; from memory), under 1 % of step/sqrt(12) with half a code of analogue noise. For most
-    records the floor therefore stands for other slow residuals that do not average down, chiefly
-    interference on the voltage channels, which reaches the difference through the prediction
-    (``test_a_tone_on_the_reference_record_leaves_no_slow_difference``). Replaced by the dithered bias
-    it lowered cross-validated detection (DEVELOPERS.md).
+    records the floor therefore stands for other slow residuals that do not average down; the largest,
+    interference on the voltage channels, is removed before the prediction since schema 22
+    (:func:`~detector.metrics.compensated.remove_voltage_tones`). The dithered bias in place of the
+    floor lowered cross-validated detection before that and did not raise it after (DEVELOPERS.md).
     """
     ut_r, ut_t = pair.ref_test_voltage_V, pair.test_test_voltage_V
     ratio = float(np.max(np.abs(pair.ref_current_pu)))  # current per unit of voltage [A/V]
@@ -592,6 +594,8 @@ def extract(
     tone_note = _slow_tone_warning(cd, pretrigger_s)
     if tone_note is not None:
         notes.append(tone_note)
+    notes += [f"interference at {f / 1e3:.0f} kHz on the {owner} record's voltage channel ({100.0 * amp:.2g} % of "
+              "its test voltage) was taken out before the current was predicted" for f, amp, owner in cd.voltage_tones]
     floor = _quantisation_floor(reference, test, pair)
     chop_s = None
     if td.test_collapse is not None:

@@ -112,24 +112,35 @@ def test_interference_tones_are_described_for_the_classifier():
     assert not any("interference" in w for w in a.warnings)
 
 
-@pytest.mark.parametrize("guard_s, quiet", [(None, True), (0.0, False)])
-def test_a_megahertz_tone_leaves_no_wavelet_peak_at_the_end_of_the_span(monkeypatch, guard_s, quiet):
-    """A healthy pair with a 1 MHz tone of 10 codes on both 14-bit recorders: the compensated difference
-    finds and removes the tone, the wavelet difference (test current against the unweighted prediction)
-    keeps it, and the stationary transform's padding at the end of the compared span breaks its phase.
-    Scored there, the fine levels read 27-53 noise units (a 'strong burst', what a discharge looks like);
-    the span's last WAVELET_END_GUARD_S are not scored. With the guard off the test must fail."""
+@pytest.mark.parametrize("guard_s, voltage_tones_removed, quiet", [
+    (None, True, True), (None, False, True), (0.0, False, False),
+])
+def test_a_megahertz_tone_leaves_no_wavelet_peak_at_the_end_of_the_span(monkeypatch, guard_s, voltage_tones_removed,
+                                                                        quiet):
+    """A healthy pair with a 1 MHz tone of 10 codes on both channels of both 14-bit recorders. The tone
+    on a voltage channel reaches the prediction; left there (``remove_voltage_tones`` switched off),
+    the compensated difference finds and removes it as a tone of the difference, but the wavelet
+    difference (test current against the unweighted prediction) keeps it, and the stationary
+    transform's padding at the end of the compared span breaks its phase: scored there, the fine
+    levels read 27-53 noise units (a 'strong burst', what a discharge looks like). The span's last
+    WAVELET_END_GUARD_S are not scored; since schema 22 the voltage tones are also taken out before the
+    prediction (6.7 noise units there with the guard off). The last case switches both off, so that this
+    test can fail."""
     from detection_cases import make_case
 
     import detector.features as features
+    import detector.metrics.compensated as compensated
 
     if guard_s is not None:
         monkeypatch.setattr(features, "WAVELET_END_GUARD_S", guard_s)
+    if not voltage_tones_removed:
+        monkeypatch.setattr(compensated, "remove_voltage_tones", lambda rv, tv, dt, n0, span: (rv, tv, []))
     rec = {"sample_rate_Hz": 100e6, "bits": 14, "interference_amplitude_lsb": 10.0, "interference_frequency_Hz": 1e6}
     c = make_case(test_recorder=rec, reference_recorder=rec)
     a = extract(c.reference, c.test)
     d = a.as_dict()
     assert d["tone_count"] >= 1.0  # the tone itself is found (and removed from the compensated difference)
+    assert bool(a.compensated.voltage_tones) == voltage_tones_removed
     fine = max(d[f"wv_D{k}_peak_sigma"] for k in (1, 2, 3))
     if quiet:
         assert fine < 6.0 and d["wv_fine_bursts_strong"] == 0.0

@@ -51,7 +51,8 @@ from .._stats import median1d
 from .._validation import ShotcheckError, check_range
 
 __all__ = ["CompensatedDifference", "compensated_difference", "core_term", "driven_fraction", "multiscale_z",
-           "noise_weight", "quantisation_step", "remove_stationary_tones", "tone_aware_offsets", "SCALES"]
+           "noise_weight", "quantisation_step", "remove_stationary_tones", "remove_voltage_tones",
+           "tone_aware_offsets", "SCALES"]
 
 #: Averaging lengths of :func:`multiscale_z` [samples]: a slow change of a few per mille of the peak
 #: current lies in the noise sample by sample but stands out once averaged over microseconds.
@@ -78,6 +79,10 @@ class CompensatedDifference:
         Time constant of the exponential window [s].
     tones : tuple of (float, float)
         Stationary tones (interference) removed from the difference: (frequency [Hz], amplitude).
+    voltage_tones : tuple of (float, float, str)
+        Tones removed from a voltage channel before the prediction (:func:`remove_voltage_tones`):
+        (frequency [Hz], amplitude [per unit of that record's test voltage], ``"test"`` or
+        ``"reference"``).
     """
 
     predicted: np.ndarray
@@ -87,6 +92,7 @@ class CompensatedDifference:
     onset_index: int | None
     window_tau_s: float
     tones: tuple[tuple[float, float], ...] = ()
+    voltage_tones: tuple[tuple[float, float, str], ...] = ()
 
 
 def _robust_sigma(x: np.ndarray) -> float:
@@ -139,9 +145,11 @@ def compensated_difference(
     level_tolerance : float
         Relative uncertainty of the level normalisation [1]; adds ``level_tolerance * |i_pred|`` to sigma.
     remove_tones : bool
-        Remove stationary tones (narrow-band interference) from the difference first, see
-        :func:`remove_stationary_tones`. When tones are found, the pre-trigger baselines are corrected
-        for them (:func:`tone_aware_offsets`) and the prediction is made again.
+        Remove interference: tones on either voltage channel first, before the prediction
+        (:func:`remove_voltage_tones`), then stationary tones of the difference
+        (:func:`remove_stationary_tones`). When tones of the difference are found, the pre-trigger
+        baselines are corrected for them (:func:`tone_aware_offsets`) and the prediction is made
+        again.
 
     Returns
     -------
@@ -172,6 +180,9 @@ def compensated_difference(
     valid = gain <= max_gain
     span_idx = np.flatnonzero(valid & (k < n - max(8, n // 50))) if remove_tones else None
     n_fft = sfft.next_fast_len(2 * n, real=True)
+    voltage_tones: list[tuple[float, float, str]] = []
+    if remove_tones:
+        rv, tv, voltage_tones = remove_voltage_tones(rv, tv, dt, n0, span_idx)
     pred, pred_b, diff, tones, kg2, spec = _prediction(rv, ri, tv, ti, w, gain, valid, n0, n_fft, dt, span_idx)
     if tones and n0 >= 16:
         # the pre-trigger baselines were biased by the tones: correct them and predict again (the
@@ -207,7 +218,7 @@ def compensated_difference(
     c = np.concatenate(([0], np.cumsum(over)))
     full = np.flatnonzero(c[m:] - c[:-m] == m)
     onset = int(full[0]) if full.size else None
-    return CompensatedDifference(pred, diff, sig, z, onset, tau, tuple(tones))
+    return CompensatedDifference(pred, diff, sig, z, onset, tau, tuple(tones), tuple(voltage_tones))
 
 
 def _prediction(rv: np.ndarray, ri: np.ndarray, tv: np.ndarray, ti: np.ndarray, w: np.ndarray,
@@ -825,6 +836,108 @@ def remove_stationary_tones(
         x = x - tone[idx]
         tones.append((f, amp))
     return out, tones
+
+
+#: A line of the two voltages' difference is a candidate tone when it stands this many times above the
+#: median magnitude of its neighbourhood (bins 5-24 on either side of a Hann-windowed, 2x zero-padded
+#: spectrum): the wave shapes' own difference is smooth there.
+VOLTAGE_LINE_PROMINENCE = 8.0
+
+
+def _voltage_lines(rv: np.ndarray, tv: np.ndarray, dt: float, idx: np.ndarray, count: int = 2) -> tuple[float, ...]:
+    """Frequencies [Hz] of the (at most ``count``) most prominent narrow lines of ``tv - rv`` over the
+    consecutive samples ``idx``, refined by Gaussian interpolation of the peak."""
+    m = idx.size
+    d = tv[idx[0]:idx[-1] + 1] - rv[idx[0]:idx[-1] + 1]
+    n_fft = sfft.next_fast_len(2 * m, real=True)
+    mag = np.abs(sfft.rfft((d - d.mean()) * _hann(m), n_fft))
+    if mag.size < 64:
+        return ()
+    k = np.flatnonzero((mag[1:-1] > mag[:-2]) & (mag[1:-1] >= mag[2:])) + 1
+    k = k[(k > 8) & (k < mag.size - 25)]
+    if not k.size:
+        return ()
+    k = k[np.argsort(mag[k])[::-1][: 8 * count]]
+    df = 1.0 / (n_fft * dt)
+    out: list[float] = []
+    for kk in k:  # the few largest peaks
+        local = np.median(np.concatenate((mag[max(1, kk - 24):kk - 4], mag[kk + 5:kk + 25])))
+        if mag[kk] > VOLTAGE_LINE_PROMINENCE * local:
+            a, b, c = np.log(mag[kk - 1:kk + 2] + 1e-300)
+            den = a - 2 * b + c
+            shift = 0.5 * (a - c) / den if den != 0 else 0.0
+            out.append(float((kk + np.clip(shift, -0.5, 0.5)) * df))
+            if len(out) == count:
+                break
+    return tuple(out)
+
+
+def remove_voltage_tones(ref_voltage: np.ndarray, test_voltage: np.ndarray, dt: float, pretrigger_samples: int,
+                         span: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, list[tuple[float, float, str]]]:
+    """Find and remove interference tones on either voltage channel, before the current is predicted.
+
+    A tone picked up by a voltage channel is a voltage the winding never saw; the prediction answers it
+    through the winding's admittance (whose inductive part integrates it, and the window's transients
+    grow along the record), so it reaches the compensated difference as a slow residual, not as a
+    sinusoid the difference's tone search can find. The two per-unit voltages have one shape when the
+    winding is healthy, so a tone on either shows as a narrow line of their difference over the span;
+    the record whose pre-trigger holds that sinusoid owns it (a wave shape's own oscillation, of the
+    generator or of a chop, is not there before the front). The sinusoid fitted to the difference over
+    the span is removed from the owner's whole record, and that record's baseline is taken again from
+    its pre-trigger (the tone had biased it). The fitted sinusoid is the two records' tones' difference:
+    where both hold a tone of one frequency, both voltages keep the same tone afterwards, which the
+    prediction (made from their ratio) does not see.
+
+    A line is accepted when removing the fitted sinusoid from the owner's pre-trigger takes out more
+    than 18 noise variances of power (where there is no such tone, removing it adds power on average)
+    and at least four times what removing it from the other record's pre-trigger would.
+
+    Parameters
+    ----------
+    ref_voltage, test_voltage : numpy.ndarray
+        Aligned voltages, each in per unit of its own test voltage [1].
+    dt : float
+        Sample interval [s].
+    pretrigger_samples : int
+        Samples before the front [samples].
+    span : numpy.ndarray of int or None
+        Consecutive sample indices over which the lines are looked for and fitted (the compared span).
+
+    Returns
+    -------
+    ref_voltage, test_voltage : numpy.ndarray
+        The voltages with the tones found removed (copies).
+    tones : list of (float, float, str)
+        Frequency [Hz], amplitude [1], and the record it was on (``"test"`` or ``"reference"``).
+    """
+    rv = np.array(ref_voltage, dtype=np.float64, copy=True)
+    tv = np.array(test_voltage, dtype=np.float64, copy=True)
+    n0 = int(pretrigger_samples)
+    found: list[tuple[float, float, str]] = []
+    if span is None or span.size < 256 or n0 < 16:
+        return rv, tv, found
+    sl = slice(int(span[0]), int(span[-1]) + 1)
+    for f in _voltage_lines(rv, tv, dt, span):  # at most two lines
+        B = _basis(rv.size, dt, f)
+        coef = _least_squares(B[:, sl], tv[sl] - rv[sl])  # cosine, sine and constant of T_test - T_ref
+        tone = coef[:2] @ B[:2]
+        t_pre = tone[:n0] - tone[:n0].mean()
+        gains = []
+        for sign, x in ((1.0, tv), (-1.0, rv)):  # power the tone takes out of each pre-trigger
+            xp = x[:n0] - x[:n0].mean()
+            gains.append(float(np.sum(xp ** 2) - np.sum((xp - sign * t_pre) ** 2)))
+        owner = int(np.argmax(gains))
+        noise = _robust_sigma(np.diff((tv if owner == 0 else rv)[:n0])) / math.sqrt(2.0)
+        if not (gains[owner] > 18.0 * noise * noise and gains[owner] > 4.0 * max(gains[1 - owner], 0.0)):
+            continue
+        if owner == 0:
+            tv -= tone
+            tv -= tv[:n0].mean()
+        else:
+            rv += tone
+            rv -= rv[:n0].mean()
+        found.append((f, float(np.hypot(coef[0], coef[1])), "test" if owner == 0 else "reference"))
+    return rv, tv, found
 
 
 def _stationary_tone(x: np.ndarray, idx: np.ndarray, n: int, dt: float, f: float, third: int,

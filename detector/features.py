@@ -594,8 +594,12 @@ def extract(
     tone_note = _slow_tone_warning(cd, pretrigger_s)
     if tone_note is not None:
         notes.append(tone_note)
+    # the engineer is told of the tones of at least a tenth of the largest (a weak second line next to
+    # a strong one is mostly the first one's leakage, removed for what it is worth)
+    v_max = max((amp for _, amp, _ in cd.voltage_tones), default=0.0)
     notes += [f"interference at {f / 1e3:.0f} kHz on the {owner} record's voltage channel ({100.0 * amp:.2g} % of "
-              "its test voltage) was taken out before the current was predicted" for f, amp, owner in cd.voltage_tones]
+              "its test voltage) was taken out before the current was predicted"
+              for f, amp, owner in cd.voltage_tones if amp >= 0.1 * v_max]
     floor = _quantisation_floor(reference, test, pair)
     chop_s = None
     if td.test_collapse is not None:

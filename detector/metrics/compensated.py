@@ -909,9 +909,18 @@ def remove_voltage_tones(ref_voltage: np.ndarray, test_voltage: np.ndarray, dt: 
         The voltages with the tones found removed (copies).
     tones : list of (float, float, str)
         Frequency [Hz], amplitude [1], and the record it was on (``"test"`` or ``"reference"``).
+
+    Raises
+    ------
+    ShotcheckError
+        Voltages of unequal length, a sample interval that is not positive.
     """
     rv = np.array(ref_voltage, dtype=np.float64, copy=True)
     tv = np.array(test_voltage, dtype=np.float64, copy=True)
+    if rv.ndim != 1 or rv.shape != tv.shape:
+        raise ShotcheckError(f"remove_voltage_tones: the voltages must be 1-D arrays of one length, got {rv.shape} "
+                             f"and {tv.shape}")
+    dt = check_range("dt", dt, 0.0, None, low_inclusive=False, unit="s")
     n0 = int(pretrigger_samples)
     found: list[tuple[float, float, str]] = []
     if span is None or span.size < 256 or n0 < 16:

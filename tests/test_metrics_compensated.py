@@ -329,8 +329,6 @@ def test_a_faults_ringing_is_no_tone(chop_s):
 
 def _with_tone(rec, channel, codes, f_Hz, phase=0.7):
     """The record with a sinusoid of ``codes`` recorder codes added to one channel (and quantised again)."""
-    from detector.metrics.compensated import quantisation_step
-
     ch = rec.voltage if channel == "voltage" else rec.current
     q = quantisation_step(ch.samples)
     x = ch.samples + codes * q * np.sin(2 * np.pi * f_Hz * rec.times() + phase)
@@ -380,7 +378,7 @@ def test_a_tone_on_either_record_leaves_no_slow_difference(channel, f_Hz, record
 
 def test_a_voltage_tone_left_in_reads_as_a_slow_difference(monkeypatch):
     """The reason for ``remove_voltage_tones`` (so that the test above can fail): switched off, the
-    reference voltage's 120 kHz tone of 3 codes leaves 6-10 noise units in the long averages."""
+    reference voltage's 120 kHz tone of 3 codes leaves about 9.5 noise units in the long averages."""
     import sys
     from pathlib import Path
 

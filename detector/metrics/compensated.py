@@ -820,12 +820,7 @@ def remove_stationary_tones(
         peaks = np.flatnonzero((mag[1:-1] > mag[:-2]) & (mag[1:-1] >= mag[2:])) + 1
         peaks = peaks[np.argsort(mag[peaks])[::-1][:candidates]]
         for kpk in peaks:
-            a, b, c = np.log(mag[kpk - 1:kpk + 2] + 1e-300)
-            den = a - 2 * b + c
-            shift = 0.5 * (a - c) / den if den != 0 else 0.0
-            # Gaussian (log-parabolic) interpolation of the Hann-windowed, 2x zero-padded peak: a small
-            # fraction of a bin, so the fitted tone keeps its phase over the whole span
-            f = float((kpk + np.clip(shift, -0.5, 0.5)) * df)
+            f = _peak_Hz(mag, int(kpk), df)
             found = _stationary_tone(x, idx, out.size, dt, f, third, stationarity, routes, pretrigger_samples)
             if found is not None:
                 break
@@ -836,6 +831,16 @@ def remove_stationary_tones(
         x = x - tone[idx]
         tones.append((f, amp))
     return out, tones
+
+
+def _peak_Hz(mag: np.ndarray, k: int, df: float) -> float:
+    """Frequency [Hz] of the spectral peak at bin ``k`` of a Hann-windowed, 2x zero-padded magnitude
+    spectrum with bins ``df`` [Hz] apart: Gaussian (log-parabolic) interpolation, to a small fraction
+    of a bin, so that a tone fitted at it keeps its phase over the whole span."""
+    a, b, c = np.log(mag[k - 1:k + 2] + 1e-300)
+    den = a - 2 * b + c
+    shift = 0.5 * (a - c) / den if den != 0 else 0.0
+    return float((k + np.clip(shift, -0.5, 0.5)) * df)
 
 
 #: A line of the two voltages' difference is a candidate tone when it stands this many times above the
@@ -863,10 +868,7 @@ def _voltage_lines(rv: np.ndarray, tv: np.ndarray, dt: float, idx: np.ndarray, c
     for kk in k:  # the few largest peaks
         local = np.median(np.concatenate((mag[max(1, kk - 24):kk - 4], mag[kk + 5:kk + 25])))
         if mag[kk] > VOLTAGE_LINE_PROMINENCE * local:
-            a, b, c = np.log(mag[kk - 1:kk + 2] + 1e-300)
-            den = a - 2 * b + c
-            shift = 0.5 * (a - c) / den if den != 0 else 0.0
-            out.append(float((kk + np.clip(shift, -0.5, 0.5)) * df))
+            out.append(_peak_Hz(mag, int(kk), df))
             if len(out) == count:
                 break
     return tuple(out)

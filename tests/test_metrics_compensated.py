@@ -327,6 +327,16 @@ def test_a_faults_ringing_is_no_tone(chop_s):
     assert extract(c.reference, c.test).compensated.tones == ()
 
 
+def _long_averages(a):
+    """Largest |z| of the compensated difference of a :class:`~detector.features.PairAnalysis`
+    averaged over 64, 256 and 1024 samples after the front window, one per scale, without the
+    quantisation floor [noise units]."""
+    from detector.features import FRONT_WINDOW_S
+
+    start = int(np.searchsorted(a.pair.times_s, a.front_time_s + FRONT_WINDOW_S[1], side="right"))
+    return multiscale_z(a.compensated, start=start, scales=(64, 256, 1024), pretrigger_samples=a.pair.pretrigger_samples)[0]
+
+
 def _with_tone(rec, channel, codes, f_Hz, phase=0.7):
     """The record with a sinusoid of ``codes`` recorder codes added to one channel (and quantised again)."""
     ch = rec.voltage if channel == "voltage" else rec.current
@@ -351,7 +361,7 @@ def test_a_tone_on_either_record_leaves_no_slow_difference(channel, f_Hz, record
     import sys
     from pathlib import Path
 
-    from detector.features import FRONT_WINDOW_S, extract
+    from detector.features import extract
 
     sys.path.insert(0, str(Path(__file__).resolve().parent))
     from detection_cases import make_case
@@ -363,8 +373,7 @@ def test_a_tone_on_either_record_leaves_no_slow_difference(channel, f_Hz, record
     else:
         test = _with_tone(test, channel, 3.0, f_Hz)
     a = extract(ref, test)
-    start = int(np.searchsorted(a.pair.times_s, a.front_time_s + FRONT_WINDOW_S[1], side="right"))
-    z = multiscale_z(a.compensated, start=start, scales=(64, 256, 1024), pretrigger_samples=a.pair.pretrigger_samples)[0]
+    z = _long_averages(a)
     assert float(np.max(z)) < 3.5, z
     if channel == "voltage":  # the tone put there (weaker lines of the wave shapes may come along)
         f, amp, owner = min(a.compensated.voltage_tones, key=lambda vt: abs(vt[0] - f_Hz))
@@ -388,7 +397,7 @@ def test_a_voltage_tone_behind_a_chop_is_found_on_its_record(record):
     import sys
     from pathlib import Path
 
-    from detector.features import FRONT_WINDOW_S, extract
+    from detector.features import extract
 
     sys.path.insert(0, str(Path(__file__).resolve().parent))
     from detection_cases import make_case
@@ -405,8 +414,7 @@ def test_a_voltage_tone_behind_a_chop_is_found_on_its_record(record):
     ut = a.pair.ref_test_voltage_V if record == "reference" else a.pair.test_test_voltage_V
     step = quantisation_step((ref if record == "reference" else test).voltage.samples)
     assert amp == pytest.approx(3.0 * step / ut, rel=0.05)
-    start = int(np.searchsorted(a.pair.times_s, a.front_time_s + FRONT_WINDOW_S[1], side="right"))
-    z = multiscale_z(a.compensated, start=start, scales=(64, 256, 1024), pretrigger_samples=a.pair.pretrigger_samples)[0]
+    z = _long_averages(a)
     assert float(np.max(z)) < 3.5, z
 
 
@@ -446,7 +454,7 @@ def test_a_steady_voltage_tone_under_a_quarter_period_of_pretrigger_is_taken_out
     import sys
     from pathlib import Path
 
-    from detector.features import FRONT_WINDOW_S, extract
+    from detector.features import extract
 
     sys.path.insert(0, str(Path(__file__).resolve().parent))
     from detection_cases import make_case
@@ -458,8 +466,7 @@ def test_a_steady_voltage_tone_under_a_quarter_period_of_pretrigger_is_taken_out
     f, amp, owner = min(a.compensated.voltage_tones, key=lambda vt: abs(vt[0] - 130e3))
     assert f == pytest.approx(130e3, rel=0.005) and owner == "reference"
     assert amp == pytest.approx(3.0 * quantisation_step(ref.voltage.samples) / a.pair.ref_test_voltage_V, rel=0.05)
-    start = int(np.searchsorted(a.pair.times_s, a.front_time_s + FRONT_WINDOW_S[1], side="right"))
-    z = multiscale_z(a.compensated, start=start, scales=(64, 256, 1024), pretrigger_samples=a.pair.pretrigger_samples)[0]
+    z = _long_averages(a)
     assert float(np.max(z)) < 4.5, z
 
 
@@ -470,7 +477,7 @@ def test_a_voltage_tone_left_in_reads_as_a_slow_difference(monkeypatch):
     from pathlib import Path
 
     import detector.metrics.compensated as compensated
-    from detector.features import FRONT_WINDOW_S, extract
+    from detector.features import extract
 
     sys.path.insert(0, str(Path(__file__).resolve().parent))
     from detection_cases import make_case
@@ -478,8 +485,7 @@ def test_a_voltage_tone_left_in_reads_as_a_slow_difference(monkeypatch):
     monkeypatch.setattr(compensated, "remove_voltage_tones", lambda rv, tv, dt, n0, span: (rv, tv, []))
     c = make_case(seed=3)
     a = extract(_with_tone(c.reference, "voltage", 3.0, 120e3), c.test)
-    start = int(np.searchsorted(a.pair.times_s, a.front_time_s + FRONT_WINDOW_S[1], side="right"))
-    z = multiscale_z(a.compensated, start=start, scales=(64, 256, 1024), pretrigger_samples=a.pair.pretrigger_samples)[0]
+    z = _long_averages(a)
     assert float(np.max(z)) > 6.0, z
 
 

@@ -929,10 +929,9 @@ def remove_voltage_tones(ref_voltage: np.ndarray, test_voltage: np.ndarray, dt: 
     at the fault and is damped, a chop's oscillation decays), and pays only
     :data:`STEADY_TONE_PENALTY`: a pre-trigger of a quarter period holds an almost straight stretch of
     a slow tone, which takes out fewer than 18 noise variances at some phases. The lines are decided
-    together because a
-    pre-trigger shorter than a period cannot tell one sinusoid from another: the test record's tone of
-    one frequency may explain part of a sinusoid of another that the reference holds, and judged alone
-    such a line was left in or given to the wrong record.
+    together because a pre-trigger shorter than a period cannot tell one sinusoid from another: the
+    test record's tone of one frequency may explain part of a sinusoid of another that the reference
+    holds, and judged alone such a line was left in or given to the wrong record.
 
     Parameters
     ----------
@@ -979,7 +978,8 @@ def remove_voltage_tones(ref_voltage: np.ndarray, test_voltage: np.ndarray, dt: 
     if not lines:
         return rv, tv, found
     sl = slice(int(seg[0]), int(seg[-1]) + 1)
-    B = np.vstack([_basis(rv.size, dt, f)[:2, sl] for f in lines] + [_smooth_rows(seg.size)])
+    rows = np.vstack([_basis(rv.size, dt, f)[:2] for f in lines])  # cosine and sine of each line
+    B = np.vstack([rows[:, sl], _smooth_rows(seg.size)])
     w = np.sqrt(_hann(seg.size))
     d = tv[sl] - rv[sl]
     coef = _least_squares(B * w, d * w)  # T_test - T_ref and a smooth part, tapered
@@ -996,8 +996,7 @@ def remove_voltage_tones(ref_voltage: np.ndarray, test_voltage: np.ndarray, dt: 
         zq = cq[0:2 * len(lines):2] + 1j * cq[1:2 * len(lines):2]
         steady &= np.abs(zq - z_all) <= 0.35 * np.abs(z_all)
     penalty = np.where(steady, STEADY_TONE_PENALTY, VOLTAGE_TONE_PENALTY)
-    B = np.vstack([_basis(rv.size, dt, f)[:2] for f in lines])
-    tones = [coef[2 * j:2 * j + 2] @ B[2 * j:2 * j + 2] for j in range(len(lines))]
+    tones = [coef[2 * j:2 * j + 2] @ rows[2 * j:2 * j + 2] for j in range(len(lines))]
     pre = [t[:n0] - t[:n0].mean() for t in tones]
     xs = [x[:n0] - x[:n0].mean() for x in (tv, rv)]
     # each record's noise variance (a quantised pre-trigger with little noise has mostly equal

@@ -933,6 +933,17 @@ def remove_voltage_tones(ref_voltage: np.ndarray, test_voltage: np.ndarray, dt: 
     test record's tone of one frequency may explain part of a sinusoid of another that the reference
     holds, and judged alone such a line was left in or given to the wrong record.
 
+    Two recorders' tones less than about 1.5 periods of their difference apart over the three quarters
+    (20 kHz over 50 us) are not resolved there: their difference of voltages shows one line whose
+    envelope beats, or two lines each pulled towards the other. Fitted as one sinusoid such a line
+    explained neither pre-trigger and was left in, or was given to one record at a frequency between
+    the two. A line with no neighbour within two periods whose fit is not steady, and two lines
+    within two periods of each other, are therefore searched as a pair of frequencies (on block means
+    of the difference, over a grid of pairs within 1.6 periods of the line); a single line is replaced
+    where the pair explains :data:`SPLIT_GAIN` noise variances more than the line. The pairs are kept
+    only where each of them then goes to a record and more pre-trigger power is taken out than
+    without them.
+
     Parameters
     ----------
     ref_voltage, test_voltage : numpy.ndarray
@@ -978,41 +989,23 @@ def remove_voltage_tones(ref_voltage: np.ndarray, test_voltage: np.ndarray, dt: 
     if not lines:
         return rv, tv, found
     sl = slice(int(seg[0]), int(seg[-1]) + 1)
-    rows = np.vstack([_basis(rv.size, dt, f)[:2] for f in lines])  # cosine and sine of each line
-    B = np.vstack([rows[:, sl], _smooth_rows(seg.size)])
-    w = np.sqrt(_hann(seg.size))
     d = tv[sl] - rv[sl]
-    coef = _least_squares(B * w, d * w)  # T_test - T_ref and a smooth part, tapered
-    # a line of constant amplitude and phase over each third of the segment is interference, whether
-    # or not a short pre-trigger can tell whose: it needs less evidence there
-    third = seg.size // 3
-    steady = np.ones(len(lines), bool)
-    z_all = coef[0:2 * len(lines):2] + 1j * coef[1:2 * len(lines):2]
-    for i in range(3):
-        q = slice(i * third, (i + 1) * third)
-        Bq = np.vstack([B[:2 * len(lines), q], _smooth_rows(third)])
-        wq = np.sqrt(_hann(third))
-        cq = _least_squares(Bq * wq, d[q] * wq)
-        zq = cq[0:2 * len(lines):2] + 1j * cq[1:2 * len(lines):2]
-        steady &= np.abs(zq - z_all) <= 0.35 * np.abs(z_all)
-    penalty = np.where(steady, STEADY_TONE_PENALTY, VOLTAGE_TONE_PENALTY)
-    tones = [coef[2 * j:2 * j + 2] @ rows[2 * j:2 * j + 2] for j in range(len(lines))]
-    pre = [t[:n0] - t[:n0].mean() for t in tones]
+    coef, steady = _fit_lines(d, int(seg[0]), dt, lines)
     xs = [x[:n0] - x[:n0].mean() for x in (tv, rv)]
     # each record's noise variance (a quantised pre-trigger with little noise has mostly equal
     # neighbours, so the mean absolute difference bounds it from below)
     var = [max(_robust_sigma(np.diff(x[:n0])) ** 2, float(np.mean(np.abs(np.diff(x[:n0])))) ** 2 * math.pi / 2.0,
                1e-30) / 2.0 for x in (tv, rv)]
-    best, best_gain = (), 0.0
-    for owners in itertools.product((0, 1, None), repeat=len(lines)):  # test, reference or neither
-        gain = -float(sum(pj for pj, o in zip(penalty, owners, strict=True) if o is not None))
-        for r, sign in ((0, 1.0), (1, -1.0)):  # noise variances taken out of each pre-trigger
-            mine = [p for p, o in zip(pre, owners, strict=True) if o == r]
-            if mine:
-                t = sign * np.sum(mine, axis=0)
-                gain += (2.0 * float(np.dot(xs[r], t)) - float(np.dot(t, t))) / var[r]
-        if gain > best_gain:
-            best, best_gain = owners, gain
+    best, best_gain, tones = _owners(lines, coef, steady, rv.size, dt, n0, xs, var)
+    # two recorders' tones closer than the segment resolves show as one line whose envelope beats (its
+    # fit changes along the segment), or as two lines pulled apart: searched as a pair of frequencies,
+    # kept where each of the pair then goes to a record and more pre-trigger power is taken out
+    lines2, k = _close_pairs(d, int(seg[0]), dt, lines, steady)
+    if k < len(lines2):  # lines2[k:] are the pairs found
+        coef2, steady2 = _fit_lines(d, int(seg[0]), dt, lines2)
+        best2, gain2, tones2 = _owners(lines2, coef2, steady2, rv.size, dt, n0, xs, var)
+        if best2 and all(o is not None for o in best2[k:]) and gain2 > best_gain:
+            lines, coef, best, best_gain, tones = lines2, coef2, best2, gain2, tones2
     if not best:
         return rv, tv, found
     for f, c, tone, owner in zip(lines, coef[:2 * len(lines)].reshape(-1, 2), tones, best, strict=True):
@@ -1028,6 +1021,156 @@ def remove_voltage_tones(ref_voltage: np.ndarray, test_voltage: np.ndarray, dt: 
     if 1 in best:
         rv -= rv[:n0].mean()
     return rv, tv, found
+
+
+#: Noise variances of the tapered difference that a pair of sinusoids must explain beyond the one line
+#: it replaces (:func:`_close_pairs`): a fault's difference or a chop's remainder, fitted as two
+#: sinusoids, gains a little anywhere.
+SPLIT_GAIN = 50.0
+
+
+def _fit_lines(d: np.ndarray, start: int, dt: float, lines: list[float]) -> tuple[np.ndarray, np.ndarray]:
+    """Tapered least-squares fit of sinusoids of the frequencies ``lines`` [Hz] beside a cubic to ``d``
+    (consecutive samples from sample ``start`` of the record), and whether each line keeps the whole
+    fit's amplitude and phase (within 35 %) over each third of ``d``.
+
+    Returns
+    -------
+    coef : numpy.ndarray
+        Cosine and sine coefficient of each line in turn [unit of ``d``], then the cubic's four.
+    steady : numpy.ndarray of bool
+        One per line.
+    """
+    m = d.size
+    rows = np.vstack([_basis(start + m, dt, f)[:2, start:] for f in lines])
+    B = np.vstack([rows, _smooth_rows(m)])
+    w = np.sqrt(_hann(m))
+    coef = _least_squares(B * w, d * w)  # T_test - T_ref and a smooth part, tapered
+    third = m // 3
+    n = 2 * len(lines)
+    steady = np.ones(len(lines), bool)
+    z_all = coef[0:n:2] + 1j * coef[1:n:2]
+    wq = np.sqrt(_hann(third))
+    for i in range(3):
+        q = slice(i * third, (i + 1) * third)
+        Bq = np.vstack([B[:n, q], _smooth_rows(third)])
+        cq = _least_squares(Bq * wq, d[q] * wq)
+        zq = cq[0:n:2] + 1j * cq[1:n:2]
+        steady &= np.abs(zq - z_all) <= 0.35 * np.abs(z_all)
+    return coef, steady
+
+
+def _owners(lines: list[float], coef: np.ndarray, steady: np.ndarray, n: int, dt: float, n0: int,
+            xs: list[np.ndarray], var: list[float]) -> tuple[tuple, float, list[np.ndarray]]:
+    """The assignment of each line to the test record (0), the reference (1) or neither (None) that takes
+    the most noise-normalised power out of the two pre-triggers ``xs`` (means removed; noise variances
+    ``var``) less the lines' penalties (``()`` if none gains), its gain [noise variances], and each
+    line's sinusoid over the ``n`` samples (``coef`` and ``steady`` from :func:`_fit_lines`)."""
+    rows = np.vstack([_basis(n, dt, f)[:2] for f in lines])  # cosine and sine of each line
+    penalty = np.where(steady, STEADY_TONE_PENALTY, VOLTAGE_TONE_PENALTY)
+    tones = [coef[2 * j:2 * j + 2] @ rows[2 * j:2 * j + 2] for j in range(len(lines))]
+    pre = [t[:n0] - t[:n0].mean() for t in tones]
+    best, best_gain = (), 0.0
+    for owners in itertools.product((0, 1, None), repeat=len(lines)):  # test, reference or neither
+        gain = -float(sum(pj for pj, o in zip(penalty, owners, strict=True) if o is not None))
+        for r, sign in ((0, 1.0), (1, -1.0)):  # noise variances taken out of each pre-trigger
+            mine = [p for p, o in zip(pre, owners, strict=True) if o == r]
+            if mine:
+                t = sign * np.sum(mine, axis=0)
+                gain += (2.0 * float(np.dot(xs[r], t)) - float(np.dot(t, t))) / var[r]
+        if gain > best_gain:
+            best, best_gain = owners, gain
+    return best, best_gain, tones
+
+
+def _close_pairs(d: np.ndarray, start: int, dt: float, lines: list[float], steady: np.ndarray,
+                 ) -> tuple[list[float], int]:
+    """Lines that may be two tones closer than ``d`` resolves, searched as pairs of frequencies.
+
+    Over ``T`` (the duration of ``d``) two sinusoids less than about ``1.5 / T`` apart make one line
+    whose envelope beats; a little further apart, two lines each pulled away from its tone by the
+    other's. Candidates are a line with no other within ``2 / T`` whose fit is not steady, and two
+    lines within ``2 / T`` of each other and of no third (:func:`_split_line`).
+
+    Returns
+    -------
+    lines : list of float
+        The lines not replaced, then the pairs found [Hz].
+    first_pair : int
+        Index of the first line of the pairs (``len(lines)`` when none was found).
+    """
+    T = d.size * dt
+    sig2 = _robust_sigma(np.diff(d)) ** 2 / 2.0  # noise variance of d per sample (the lines are slow)
+    groups = []
+    for j in range(len(lines)):
+        near = [k for k in range(len(lines)) if k != j and abs(lines[k] - lines[j]) * T <= 2.0]
+        if not near and not steady[j]:
+            groups.append((j,))
+        elif len(near) == 1 and near[0] > j and not any(
+                abs(lines[k] - lines[near[0]]) * T <= 2.0 for k in range(len(lines)) if k not in (j, near[0])):
+            groups.append((j, near[0]))
+    found = {}
+    for grp in groups:
+        pair = _split_line(d, start, dt, lines, grp, sig2)
+        if pair is not None:
+            found[grp] = pair
+    gone = {j for grp in found for j in grp}
+    kept = [f for j, f in enumerate(lines) if j not in gone]
+    return kept + [f for pair in found.values() for f in pair], len(kept)
+
+
+def _split_line(d: np.ndarray, start: int, dt: float, lines: list[float], group: tuple[int, ...], sig2: float,
+                ) -> tuple[float, float] | None:
+    """Two frequencies [Hz] within 1.6 over the segment's duration of the lines ``group`` (one line, or
+    two close ones) whose sinusoids fit ``d`` better than those lines by :data:`SPLIT_GAIN` noise
+    variances ``sig2`` (one line) or at all (two), or None."""
+    m = d.size
+    T = m * dt
+    q = max(1, int(1.0 / (10.0 * (max(lines) + 2.0 / T) * dt)))  # block means: 10 per period of the top line
+    md = m // q
+    if md < 32:
+        return None
+    dd = d[:md * q].reshape(md, q).mean(axis=1)
+    w = np.sqrt(_hann(md))
+    t0 = (start + (q - 1) / 2.0) * dt  # time of the first block's centre [s]
+
+    def cs(fs: np.ndarray) -> np.ndarray:  # cosines and sines of fs at the block centres, tapered
+        z = np.exp(2j * np.pi * np.outer(fs, t0 + np.arange(md) * q * dt))
+        return np.concatenate((z.real, z.imag)) * w
+
+    others = np.array([f for i, f in enumerate(lines) if i not in group])
+    R = np.vstack([cs(others), _smooth_rows(md) * w]) if others.size else _smooth_rows(md) * w
+    Q, _ = np.linalg.qr(R.T)
+    y = dd * w
+    y = y - Q @ (Q.T @ y)
+
+    def best_pair(fs: np.ndarray, sep: float) -> tuple[float, float, float]:
+        K = fs.size
+        Bt = cs(fs)
+        Bt = Bt - (Bt @ Q) @ Q.T
+        G = Bt @ Bt.T
+        b = Bt @ y
+        i, k = np.triu_indices(K, 1)
+        ok = fs[k] - fs[i] >= sep
+        i, k = i[ok], k[ok]
+        idx = np.stack((i, i + K, k, k + K), axis=1)
+        Gp = G[idx[:, :, None], idx[:, None, :]] + 1e-12 * np.trace(G) / (2 * K) * np.eye(4)
+        bp = b[idx]
+        red = np.einsum("pi,pi->p", bp, np.linalg.solve(Gp, bp[..., None])[..., 0])
+        p = int(np.argmax(red))
+        return float(red[p]), float(fs[i[p]]), float(fs[k[p]])
+
+    f0 = float(np.mean([lines[j] for j in group]))
+    _, f1, f2 = best_pair(f0 + np.arange(-16, 17) * 0.1 / T, 0.2 / T)
+    fine = np.arange(-5, 6) * 0.02 / T
+    red2, f1, f2 = best_pair(np.concatenate((f1 + fine, f2 + fine)), 0.15 / T)
+    now = cs(np.array([lines[j] for j in group]))
+    now = now - (now @ Q) @ Q.T
+    c1 = np.linalg.lstsq(now.T, y, rcond=None)[0]
+    red1 = float(y @ (now.T @ c1))
+    if (red2 - red1) / (sig2 / q) > (SPLIT_GAIN if len(group) == 1 else 0.0):
+        return f1, f2
+    return None
 
 
 def _stationary_tone(x: np.ndarray, idx: np.ndarray, n: int, dt: float, f: float, third: int,

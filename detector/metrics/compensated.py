@@ -990,20 +990,22 @@ def remove_voltage_tones(ref_voltage: np.ndarray, test_voltage: np.ndarray, dt: 
         return rv, tv, found
     sl = slice(int(seg[0]), int(seg[-1]) + 1)
     d = tv[sl] - rv[sl]
-    coef, steady = _fit_lines(d, int(seg[0]), dt, lines)
+    rows = np.vstack([_basis(rv.size, dt, f)[:2] for f in lines])  # cosine and sine of each line
+    coef, steady = _fit_lines(d, rows[:, sl])
     xs = [x[:n0] - x[:n0].mean() for x in (tv, rv)]
     # each record's noise variance (a quantised pre-trigger with little noise has mostly equal
     # neighbours, so the mean absolute difference bounds it from below)
     var = [max(_robust_sigma(np.diff(x[:n0])) ** 2, float(np.mean(np.abs(np.diff(x[:n0])))) ** 2 * math.pi / 2.0,
                1e-30) / 2.0 for x in (tv, rv)]
-    best, best_gain, tones = _owners(lines, coef, steady, rv.size, dt, n0, xs, var)
+    best, best_gain, tones = _owners(rows, coef, steady, n0, xs, var)
     # two recorders' tones closer than the segment resolves show as one line whose envelope beats (its
     # fit changes along the segment), or as two lines pulled apart: searched as a pair of frequencies,
     # kept where each of the pair then goes to a record and more pre-trigger power is taken out
     lines2, k = _close_pairs(d, int(seg[0]), dt, lines, steady)
     if k < len(lines2):  # lines2[k:] are the pairs found
-        coef2, steady2 = _fit_lines(d, int(seg[0]), dt, lines2)
-        best2, gain2, tones2 = _owners(lines2, coef2, steady2, rv.size, dt, n0, xs, var)
+        rows2 = np.vstack([_basis(rv.size, dt, f)[:2] for f in lines2])
+        coef2, steady2 = _fit_lines(d, rows2[:, sl])
+        best2, gain2, tones2 = _owners(rows2, coef2, steady2, n0, xs, var)
         if best2 and all(o is not None for o in best2[k:]) and gain2 > best_gain:
             lines, coef, best, best_gain, tones = lines2, coef2, best2, gain2, tones2
     if not best:
@@ -1029,10 +1031,10 @@ def remove_voltage_tones(ref_voltage: np.ndarray, test_voltage: np.ndarray, dt: 
 SPLIT_GAIN = 50.0
 
 
-def _fit_lines(d: np.ndarray, start: int, dt: float, lines: list[float]) -> tuple[np.ndarray, np.ndarray]:
-    """Tapered least-squares fit of sinusoids of the frequencies ``lines`` [Hz] beside a cubic to ``d``
-    (consecutive samples from sample ``start`` of the record), and whether each line keeps the whole
-    fit's amplitude and phase (within 35 %) over each third of ``d``.
+def _fit_lines(d: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Tapered least-squares fit of lines (``rows``: the cosine and sine of each over the samples of
+    ``d``) beside a cubic to ``d``, and whether each line keeps the whole fit's amplitude and phase
+    (within 35 %) over each third of ``d``.
 
     Returns
     -------
@@ -1042,13 +1044,12 @@ def _fit_lines(d: np.ndarray, start: int, dt: float, lines: list[float]) -> tupl
         One per line.
     """
     m = d.size
-    rows = np.vstack([_basis(start + m, dt, f)[:2, start:] for f in lines])
     B = np.vstack([rows, _smooth_rows(m)])
     w = np.sqrt(_hann(m))
     coef = _least_squares(B * w, d * w)  # T_test - T_ref and a smooth part, tapered
     third = m // 3
-    n = 2 * len(lines)
-    steady = np.ones(len(lines), bool)
+    n = rows.shape[0]
+    steady = np.ones(n // 2, bool)
     z_all = coef[0:n:2] + 1j * coef[1:n:2]
     wq = np.sqrt(_hann(third))
     for i in range(3):
@@ -1060,18 +1061,20 @@ def _fit_lines(d: np.ndarray, start: int, dt: float, lines: list[float]) -> tupl
     return coef, steady
 
 
-def _owners(lines: list[float], coef: np.ndarray, steady: np.ndarray, n: int, dt: float, n0: int,
-            xs: list[np.ndarray], var: list[float]) -> tuple[tuple, float, list[np.ndarray]]:
+def _owners(rows: np.ndarray, coef: np.ndarray, steady: np.ndarray, n0: int, xs: list[np.ndarray],
+            var: list[float]) -> tuple[tuple, float, list[np.ndarray]]:
     """The assignment of each line to the test record (0), the reference (1) or neither (None) that takes
     the most noise-normalised power out of the two pre-triggers ``xs`` (means removed; noise variances
     ``var``) less the lines' penalties (``()`` if none gains), its gain [noise variances], and each
-    line's sinusoid over the ``n`` samples (``coef`` and ``steady`` from :func:`_fit_lines`)."""
-    rows = np.vstack([_basis(n, dt, f)[:2] for f in lines])  # cosine and sine of each line
+    line's sinusoid over the whole record (``rows``: each line's cosine and sine there; ``coef`` and
+    ``steady`` from :func:`_fit_lines`)."""
+    # a line of constant amplitude and phase over each third of the segment is interference, whether
+    # or not a short pre-trigger can tell whose: it needs less evidence there
     penalty = np.where(steady, STEADY_TONE_PENALTY, VOLTAGE_TONE_PENALTY)
-    tones = [coef[2 * j:2 * j + 2] @ rows[2 * j:2 * j + 2] for j in range(len(lines))]
+    tones = [coef[2 * j:2 * j + 2] @ rows[2 * j:2 * j + 2] for j in range(steady.size)]
     pre = [t[:n0] - t[:n0].mean() for t in tones]
     best, best_gain = (), 0.0
-    for owners in itertools.product((0, 1, None), repeat=len(lines)):  # test, reference or neither
+    for owners in itertools.product((0, 1, None), repeat=steady.size):  # test, reference or neither
         gain = -float(sum(pj for pj, o in zip(penalty, owners, strict=True) if o is not None))
         for r, sign in ((0, 1.0), (1, -1.0)):  # noise variances taken out of each pre-trigger
             mine = [p for p, o in zip(pre, owners, strict=True) if o == r]

@@ -49,7 +49,7 @@ __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", 
            "INSTANT_INPUT_NAMES", "instant_inputs"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "26"
+SCHEMA_VERSION = "25"
 
 #: Averaging lengths [samples] scored again after the core term is removed (it is slow).
 CORE_SCALES = (64, 256, 1024)
@@ -245,9 +245,8 @@ def _band_mean_dB(f: np.ndarray, ref_dB: np.ndarray, test_dB: np.ndarray) -> lis
 #: beyond what the reduced-level voltage resolves), so it is scored separately.
 FRONT_WINDOW_S = (-0.3e-6, 1.0e-6)
 #: Around a voltage collapse of the test shot the steep chop excites frequencies the reference barely
-#: holds; that window is scored with the front. Its residual can outlast 1 us (healthy training pairs
-#: peaked at 1.03-1.3 us after the collapse, 8-10 noise units; schema 26 made the window 1.5 us long).
-CHOP_WINDOW_S = (-0.3e-6, 1.5e-6)
+#: holds; that window is scored with the front.
+CHOP_WINDOW_S = (-0.3e-6, 1.0e-6)
 
 
 def _quantisation_floor(reference: Record, test: Record, pair: AlignedPair) -> float:

@@ -470,7 +470,6 @@ def test_a_steady_voltage_tone_under_a_quarter_period_of_pretrigger_is_taken_out
     assert float(np.max(z)) < 4.5, z
 
 
-
 @pytest.mark.parametrize("f_ref_Hz, phase_ref, f_test_Hz, phase_test", [
     (150e3, 0.3, 170e3, 2.0), (150e3, 2.5, 170e3, 0.5), (250e3, 2.5, 270e3, 0.5), (500e3, 0.3, 520e3, 2.0),
 ])

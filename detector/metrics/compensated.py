@@ -1103,7 +1103,6 @@ def _close_pairs(d: np.ndarray, start: int, dt: float, lines: list[float], stead
         Index of the first line of the pairs (``len(lines)`` when none was found).
     """
     T = d.size * dt
-    sig2 = _robust_sigma(np.diff(d)) ** 2 / 2.0  # noise variance of d per sample (the lines are slow)
     groups = []
     for j in range(len(lines)):
         near = [k for k in range(len(lines)) if k != j and abs(lines[k] - lines[j]) * T <= 2.0]
@@ -1113,6 +1112,8 @@ def _close_pairs(d: np.ndarray, start: int, dt: float, lines: list[float], stead
                 abs(lines[k] - lines[near[0]]) * T <= 2.0 for k in range(len(lines)) if k not in (j, near[0])):
             groups.append((j, near[0]))
     found = {}
+    if groups:  # most pairs have none: the noise's median is not taken for them
+        sig2 = _robust_sigma(np.diff(d)) ** 2 / 2.0  # noise variance of d per sample (the lines are slow)
     for grp in groups:
         pair = _split_line(d, start, dt, lines, grp, sig2)
         if pair is not None:

@@ -200,6 +200,35 @@ def test_tone_aware_offset_recovers_the_baseline_a_short_pretrigger_biases():
     assert tone_aware_offsets(pre, dt, [20e3]) is None  # 0.05 periods: cannot be told from an offset
 
 
+def test_tone_aware_offset_is_not_applied_where_the_pretrigger_does_not_determine_it():
+    # Two slow tones of 0.33 and 0.58 periods in a 3.15 us pre-trigger (the difference's tones of a
+    # healthy chopped pair) and a channel that holds only the remainder of a third one near them, as a
+    # voltage channel does after its own tone was taken out: the F test accepts the two-tone fit, but
+    # a constant and tones under a period are nearly collinear there, and the fitted constant was off
+    # by many noise units (its standard error is that large). Applied, such an offset moved the
+    # prediction's baseline and the healthy pair's difference grew into a slow false alarm.
+    from detector.metrics.compensated import tone_aware_offsets
+
+    dt, n0 = 8e-9, 394
+    t = np.arange(n0) * dt
+    err_free, err_guard, bias_all, applied = [], [], [], 0
+    for seed in range(100):
+        rng = np.random.default_rng(seed)
+        x = np.sin(2 * np.pi * 179e3 * t + rng.uniform(0, 2 * np.pi)) + rng.normal(0, 1.0, n0) + 1.5
+        pre = (x - x.mean())[None, :]
+        bias = 1.5 - x.mean()
+        free = tone_aware_offsets(pre, dt, [106e3, 183e3], min_offset_se=0.0)
+        guarded = tone_aware_offsets(pre, dt, [106e3, 183e3])
+        applied += guarded is not None
+        err_free.append((0.0 if free is None else free[0]) - bias)
+        err_guard.append((0.0 if guarded is None else guarded[0]) - bias)
+        bias_all.append(bias)
+    rms = lambda v: float(np.sqrt(np.mean(np.square(v))))  # noqa: E731
+    assert rms(err_free) > 5.0 * rms(bias_all)  # without the guard: far worse than the bias itself
+    assert applied <= 2  # with it the offset is (nearly) never applied
+    assert rms(err_guard) < 0.35 * rms(err_free)
+
+
 @pytest.mark.parametrize("test_pre", [260, 400])
 def test_interference_biased_voltage_baseline_leaves_no_ramp(test_pre):
     # the same network and wave in both shots, the network with an inductive path to ground (a

@@ -595,7 +595,8 @@ def _correlation_length(d: np.ndarray, n0: int) -> float:
 
 
 def tone_aware_offsets(pretrigger: np.ndarray, dt: float, freqs_Hz: list[float], *,
-                       min_periods: float = 0.25, f_accept: float = 8.0) -> np.ndarray | None:
+                       min_periods: float = 0.25, f_accept: float = 8.0,
+                       min_offset_se: float = 3.0) -> np.ndarray | None:
     """Baseline errors left by interference tones in pre-trigger means.
 
     A baseline taken as the mean of a short pre-trigger is biased when the channel carries a tone
@@ -620,6 +621,12 @@ def tone_aware_offsets(pretrigger: np.ndarray, dt: float, freqs_Hz: list[float],
         offset) [1].
     f_accept : float
         Smallest F statistic (tones against a constant) that accepts the fit [1].
+    min_offset_se : float
+        An accepted fit's constant is applied only where it lies at least this many of its standard
+        errors from zero [1]. Under about a period, a tone and a constant are nearly collinear over the
+        pre-trigger, and the fitted constant then follows the noise and the tone's phase (seen: a test
+        voltage's offset 13 times the tone that was removed from it, from two tones of 0.3 and 0.6
+        periods, which the prediction turned into a slow false difference).
 
     Returns
     -------
@@ -640,7 +647,9 @@ def tone_aware_offsets(pretrigger: np.ndarray, dt: float, freqs_Hz: list[float],
     rss0 = np.sum((pre - mean[:, None]) ** 2, axis=1)
     p = A.shape[1] - 1
     f_stat = (rss0 - rss1) / p / np.maximum(rss1 / (n0 - p - 1), 1e-300)
-    off = np.where(f_stat > f_accept, coef[0], 0.0)
+    # standard error of the fitted constant: residual variance times the (0, 0) entry of (A'A)^-1
+    se = np.sqrt(np.maximum(rss1, 0.0) / (n0 - p - 1) * float(np.linalg.pinv(A.T @ A)[0, 0]))
+    off = np.where((f_stat > f_accept) & (np.abs(coef[0]) > min_offset_se * se), coef[0], 0.0)
     return off if np.any(off != 0.0) else None
 
 

@@ -605,7 +605,8 @@ def tone_aware_offsets(pretrigger: np.ndarray, dt: float, freqs_Hz: list[float],
     the tone) but not in a voltage channel: the impulse response turns a constant voltage error into
     a slowly growing current (the winding's inductance). Each channel's pre-trigger is fitted with a
     constant plus the given tones by least squares; where the tones explain significantly more than
-    a constant alone (F statistic above ``f_accept``), the fitted constant is the channel's offset.
+    a constant alone (F statistic above ``f_accept``) and the fitted constant is determined (at least
+    ``min_offset_se`` standard errors from zero), it is the channel's offset.
 
     Parameters
     ----------
@@ -646,9 +647,10 @@ def tone_aware_offsets(pretrigger: np.ndarray, dt: float, freqs_Hz: list[float],
     mean = pre.mean(axis=1)
     rss0 = np.sum((pre - mean[:, None]) ** 2, axis=1)
     p = A.shape[1] - 1
-    f_stat = (rss0 - rss1) / p / np.maximum(rss1 / (n0 - p - 1), 1e-300)
+    s2 = rss1 / (n0 - p - 1)  # residual variance per channel
+    f_stat = (rss0 - rss1) / p / np.maximum(s2, 1e-300)
     # standard error of the fitted constant: residual variance times the (0, 0) entry of (A'A)^-1
-    se = np.sqrt(np.maximum(rss1, 0.0) / (n0 - p - 1) * float(np.linalg.pinv(A.T @ A)[0, 0]))
+    se = np.sqrt(s2 * float(np.linalg.pinv(A.T @ A)[0, 0]))
     off = np.where((f_stat > f_accept) & (np.abs(coef[0]) > min_offset_se * se), coef[0], 0.0)
     return off if np.any(off != 0.0) else None
 

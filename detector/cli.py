@@ -228,13 +228,14 @@ def _cmd_evaluate(args: argparse.Namespace) -> int:
 def _cmd_calibrate(args: argparse.Namespace) -> int:
     from .compare import default_model
     from .model import save_model
-    from .scoring import calibrate_thresholds, false_alarm_rate
+    from .scoring import calibrate_thresholds, decisive_thresholds, false_alarm_rate
     from .training import extract_dataset
 
     model = default_model(args.model)
     data = extract_dataset(args.data, workers=args.workers, progress=not args.no_progress)
     benign = data.X[data.event == "none"]
     thr = calibrate_thresholds(benign, false_alarm_rate=args.false_alarm_rate)
+    thr.update(decisive_thresholds(benign))  # faults on their own: above every benign pair of the set
     model.thresholds = thr
     card = dict(model.card)
     card["thresholds_calibrated_on"] = f"{args.data} ({benign.shape[0]} benign pairs)"

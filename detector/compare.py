@@ -35,7 +35,7 @@ from .features import (
 )
 from .model import EVENT_CLASSES, ShotModel, load_model, missing_model_error
 from .record import Record
-from .scoring import exceeded
+from .scoring import DECISIVE, exceeded
 from .waveshape import WaveShape
 
 __all__ = ["Verdict", "compare", "default_model", "DEFAULT_MODEL_PATH"]
@@ -241,12 +241,22 @@ def compare(
     probs = {c: 0.0 for c in EVENT_CLASSES}
     for c, p in zip(m.classifier.classes_, proba, strict=True):
         probs[str(c)] = float(p)
-    fault = probs["none"] < m.none_threshold
+    over = exceeded(a.features, m.thresholds)
+    decisive = [e for e in over if e["metric"] in DECISIVE]
+    fault = probs["none"] < m.none_threshold or bool(decisive)
     event = "none"
     if fault:
         event = max((c for c in EVENT_CLASSES if c != "none"), key=lambda c: probs[c])
-    over = exceeded(a.features, m.thresholds)
     warnings = list(a.warnings) + level_warnings(a.pair.ref_test_voltage_V, a.pair.test_test_voltage_V)
+    if decisive and probs["none"] >= m.none_threshold:
+        e = decisive[0]
+        warnings.append(
+            f"fault indicated by the current difference after the span the compensated prediction covers "
+            f"({e['metric']} {e['value']:.1f} against a threshold of {e['threshold']:.1f}, above every "
+            f"benign pair it was set on); the classifier alone saw no fault (faults that late are too rare "
+            f"in training): the instant is that difference's onset, the event class and location are less "
+            f"certain"
+        )
     if (a.test_shape is not None and a.test_shape.kind == "lightning_chopped" and a.reference_shape is not None
             and a.reference_shape.kind == "lightning_full" and test.meta.get("shot_kind") != "reduced_chopped"
             and a.pair.test_test_voltage_V > REDUCED_CHOPPED_MAX_RATIO * a.pair.ref_test_voltage_V):
@@ -261,7 +271,10 @@ def compare(
     if fault:
         sharp = float(sharp_onset_after_front_us(a.features)[0])
         chooses = m.timer is not None and m.timer.chooses
-        if t_pred is not None and math.isfinite(t_pred) and chooses:  # a detector's onset or the regression
+        late = bool(decisive) and probs["none"] >= m.none_threshold and a.beyond_onset_s is not None
+        if late:  # indicated only after the compensated span: the timer never learnt such faults
+            t_fault = a.to_test_time_s(a.beyond_onset_s)
+        elif t_pred is not None and math.isfinite(t_pred) and chooses:  # a detector's onset or the regression
             t_fault = a.front_test_time_s + 1e-6 * t_pred
         elif math.isfinite(sharp):
             t_fault = a.front_test_time_s + 1e-6 * sharp

@@ -20,6 +20,7 @@ import time
 from typing import Any
 
 import numpy as np
+import pywt
 
 from ._stats import agreeing_onset, median1d
 from ._validation import NoImpulseError, RecordError, ShotcheckError
@@ -49,7 +50,7 @@ __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", 
            "INSTANT_INPUT_NAMES", "instant_inputs"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "27"
+SCHEMA_VERSION = "28"
 
 #: Averaging lengths [samples] scored again after the core term is removed (it is slow).
 CORE_SCALES = (64, 256, 1024)
@@ -76,6 +77,14 @@ BURST_GAP_S = 200e-9
 #: which since schema 22 is taken out before the prediction (``remove_voltage_tones``); the guard stays
 #: for the tones that are not.
 WAVELET_END_GUARD_S = 0.5e-6
+
+#: Wavelet levels of the plain current difference scored beyond the compensated span (the finest
+#: three and the next three are reported), and how many samples of the span go into the transform
+#: before the scored part, so that the transform's padded start lies away from it.
+BEYOND_LEVELS = 6
+BEYOND_LEAD_SAMPLES = 256
+#: Fewest samples the part beyond the span must hold to be scored (its noise is a median over them).
+BEYOND_MIN_SAMPLES = 256
 
 #: Log-spaced bands for the signed mean dB difference of the transfer functions [Hz].
 LOG_BANDS_HZ: tuple[tuple[float, float], ...] = tuple(
@@ -149,6 +158,9 @@ def _names() -> tuple[str, ...]:
     # are biased by it and the slow scores of the pair are less to be trusted) and the largest one's
     # amplitude in noise units
     n += ["tone_count", "tone_pretrigger_periods", "tone_amplitude_sigma"]
+    # beyond the span the compensated prediction covers (about the last 30 % of the record), the plain
+    # difference's finest levels D1-D3 and the next ones D4-D6, each in units of its own noise there
+    n += ["wv_beyond_fine_peak_sigma", "wv_beyond_mid_peak_sigma"]
     return tuple(n)
 
 
@@ -181,6 +193,9 @@ class PairAnalysis:
         Test current against the current predicted from the reference under the test voltage.
     compensated_onset_s : float or None
         First significant compensated difference after the front window [s, pair axis].
+    beyond_onset_s : float or None
+        First significant (6 noise units) wavelet coefficient of the plain current difference after the
+        compensated span, levels D1-D6 [s, pair axis]; None where there is none.
     """
 
     features: np.ndarray
@@ -196,6 +211,7 @@ class PairAnalysis:
     warnings: tuple[str, ...]
     compensated: CompensatedDifference | None = None
     compensated_onset_s: float | None = None
+    beyond_onset_s: float | None = None
 
     def as_dict(self) -> dict[str, float]:
         """Feature name -> value (NaN kept)."""
@@ -382,6 +398,42 @@ def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[floa
     first[:k] = 1e6 * (wd.first_time_s[:k] - front_s)
     first[-1] = 1e6 * (wd.first_time_s[-1] - front_s)
     return [*energy.tolist(), *peak.tolist(), fine, coarse, ft, *first.tolist()]
+
+
+def _beyond_span_peaks(pair: AlignedPair, test_current: np.ndarray, stop: int,
+                       chop_s: float | None) -> tuple[list[float], float | None]:
+    """Peaks of the plain current difference's wavelet levels after the compensated span [noise units].
+
+    The compensated prediction stops where its unwindowing gain reaches its limit (about 70 % into the
+    record) and the scores above stop with it. A discharge or a breakdown later in the tail still shows
+    in the test current minus the reference current (both per unit): the tail is slow, so its benign
+    differences (core effects, generator drift) lie in the coarse levels while the fine levels hold the
+    two recorders' noise. Each level is measured in units of its own noise over the scored part (MAD,
+    robust to a few events); the last ``WAVELET_END_GUARD_S``, the samples at a clipping limit and an
+    intended chop's window are not scored.
+
+    Returns
+    -------
+    peaks : list of float
+        Largest of D1-D3 and of D4-D6 [1]; NaN where fewer than ``BEYOND_MIN_SAMPLES`` are scored.
+    onset_s : float or None
+        First scored coefficient of D1-D6 above 6 noise units [s, pair axis]; None where there is none.
+    """
+    nan = math.nan
+    t = pair.times_s
+    n = t.size
+    lo = max(0, stop - BEYOND_LEAD_SAMPLES)
+    k = np.arange(lo, n)
+    scored = (k >= stop) & (t[lo:] < t[-1] - WAVELET_END_GUARD_S) & ~pair.unmeasured[lo:]
+    if chop_s is not None:
+        scored &= ~((t[lo:] >= chop_s + CHOP_WINDOW_S[0]) & (t[lo:] <= chop_s + CHOP_WINDOW_S[1]))
+    if scored.sum() < BEYOND_MIN_SAMPLES or pywt.dwt_max_level(n - lo, 8) < BEYOND_LEVELS:
+        return [nan, nan], None
+    wd = wavelet_difference(pair.ref_current_pu[lo:], test_current[lo:], pair.sample_interval_s,
+                            level=BEYOND_LEVELS, scored=scored, t0_s=float(t[lo]))
+    first = wd.first_time_s[:BEYOND_LEVELS]
+    onset = float(np.min(first[np.isfinite(first)])) if np.isfinite(first).any() else None
+    return [float(np.max(wd.peak_sigma[:3])), float(np.max(wd.peak_sigma[3:BEYOND_LEVELS]))], onset
 
 
 class _Clock:
@@ -643,6 +695,7 @@ def extract(
         strong, _ = burst_counts(np.max(wd.difference_map[:2], axis=0)[None, :], scored, dt,
                                  k_sigma=BURST_STRONG_SIGMA, gap_s=BURST_GAP_S)
         bursts = [*counts.astype(float).tolist(), *(1e6 * spans).tolist(), float(strong[0])]
+    beyond, beyond_onset_s = _beyond_span_peaks(pair, test_current, stop, chop_s)
     clock("wavelet")
 
     f: list[float] = []
@@ -699,6 +752,7 @@ def extract(
         *bursts,
         *cd_f[12],
         *_tone_features(cd, pretrigger_s),
+        *beyond,
     ]
     vec = np.asarray(f, dtype=np.float64)
     if vec.size != len(FEATURE_NAMES):  # a programming error, never a user's
@@ -706,7 +760,8 @@ def extract(
     clock("features")
     warnings = tuple(dict.fromkeys([*notes, *(ws_r.warnings if ws_r else ()), *(ws_t.warnings if ws_t else ()),
                                     *pair.warnings]))
-    return PairAnalysis(vec, ws_r, ws_t, pair, td, tf_r, tf_t, tc, wd, front_s, warnings, cd, cd_f[6])
+    return PairAnalysis(vec, ws_r, ws_t, pair, td, tf_r, tf_t, tc, wd, front_s, warnings, cd, cd_f[6],
+                        beyond_onset_s)
 
 
 #: Onset features that mark a sharp change to within a few samples (fine wavelet levels, short averages).

@@ -34,7 +34,7 @@ from .features import (
     sharp_onset_after_front_us,
 )
 from .model import EVENT_CLASSES, FaultClassifier, InstantRegressor, LocationRegressor, ShotModel
-from .scoring import calibrate_thresholds, false_alarm_rate
+from .scoring import calibrate_thresholds, decisive_exceeded, decisive_thresholds, false_alarm_rate
 
 __all__ = ["extract_dataset", "train", "evaluate", "LabelledFeatures"]
 
@@ -423,12 +423,14 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
                     Xl_tr, Xl_te = X[tr], X[te]
                 loc[te] = LocationRegressor(random_state=seed).fit(Xl_tr[fa], pos[tr][fa]).predict(Xl_te)
         none_threshold = operating_point(proba[y == "none", 0], false_alarm_rate_target)
-        pred = cross_fitted_decisions(proba, y == "none", folds, false_alarm_rate_target)
+        pred = cross_fitted_decisions(proba, y == "none", folds, false_alarm_rate_target, X=X)
         report = _figures(data, proba, pred, loc, data.front_us + inst_rel)
         report["none_threshold"] = none_threshold
         report["cv_folds"] = cv_folds
     benign = X[y == "none"]
     thresholds = calibrate_thresholds(benign, false_alarm_rate=false_alarm_rate_target) if benign.shape[0] >= 10 else {}
+    if thresholds:
+        thresholds.update(decisive_thresholds(benign))
     clf = FaultClassifier(random_state=seed).fit(X, y)
     all_rows = np.arange(y.size)
     Xl = locator_rows(all_rows, timer, final_inst, 0) if timer is not None and located.sum() >= 10 else X
@@ -473,9 +475,11 @@ def _out_of_fold_instants(X: np.ndarray, rel: np.ndarray, y: np.ndarray, groups:
     return out
 
 
-def _decide(proba: np.ndarray, none_threshold: float = 0.5) -> np.ndarray:
+def _decide(proba: np.ndarray, none_threshold: float = 0.5, forced: np.ndarray | None = None) -> np.ndarray:
     out = np.empty(proba.shape[0], dtype=object)
     fault = proba[:, 0] < none_threshold
+    if forced is not None:  # a decisive feature above its threshold (scoring.DECISIVE)
+        fault |= forced
     out[~fault] = "none"
     out[fault] = np.array(EVENT_CLASSES[1:], dtype=object)[np.argmax(proba[fault, 1:], axis=1)]
     return out
@@ -602,7 +606,7 @@ def _instant(X: np.ndarray, timer: InstantRegressor) -> np.ndarray:
 
 
 def cross_fitted_decisions(proba: np.ndarray, benign: np.ndarray, folds: list[tuple[np.ndarray, np.ndarray]],
-                           false_alarm_rate: float) -> np.ndarray:
+                           false_alarm_rate: float, *, X: np.ndarray | None = None) -> np.ndarray:
     """Decisions for the cross-validated figures, each fold's at a threshold set without its rows.
 
     The model's threshold is set on all out-of-fold benign probabilities (:func:`operating_point`); scored
@@ -620,6 +624,9 @@ def cross_fitted_decisions(proba: np.ndarray, benign: np.ndarray, folds: list[tu
         The cross-validation's folds (each row in one test part).
     false_alarm_rate : float
         Target share of benign pairs indicated as faults [1].
+    X : numpy.ndarray, shape (n, len(FEATURE_NAMES)), optional
+        Feature matrix: with it, each fold's rows are also faults where a decisive feature exceeds the
+        threshold the other folds' benign rows give (:func:`detector.scoring.decisive_thresholds`).
 
     Returns
     -------
@@ -629,7 +636,10 @@ def cross_fitted_decisions(proba: np.ndarray, benign: np.ndarray, folds: list[tu
     pred = np.empty(proba.shape[0], dtype=object)
     for tr, te in folds:
         thr = operating_point(proba[tr][benign[tr], 0], false_alarm_rate)
-        pred[te] = _decide(proba[te], thr)
+        forced = None
+        if X is not None and benign[tr].any():
+            forced = decisive_exceeded(X[te], decisive_thresholds(X[tr][benign[tr]]))
+        pred[te] = _decide(proba[te], thr, forced)
     return pred
 
 
@@ -661,7 +671,7 @@ def _predict(model: ShotModel, X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     proba = np.zeros((X.shape[0], len(EVENT_CLASSES)))
     for k, c in enumerate(model.classifier.classes_):
         proba[:, EVENT_CLASSES.index(str(c))] = p[:, k]
-    return proba, _decide(proba, model.none_threshold)
+    return proba, _decide(proba, model.none_threshold, decisive_exceeded(X, model.thresholds))
 
 
 def _by_effect(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:

@@ -10,7 +10,16 @@ from hypothesis import strategies as st
 from detector._validation import ShotcheckError
 from detector.data import example_record
 from detector.features import FEATURE_NAMES, SCHEMA_VERSION, extract
-from detector.scoring import THRESHOLDED, calibrate_thresholds, exceeded, false_alarm_rate
+from detector.scoring import (
+    DECISIVE,
+    DECISIVE_MIN_SIGMA,
+    THRESHOLDED,
+    calibrate_thresholds,
+    decisive_exceeded,
+    decisive_thresholds,
+    exceeded,
+    false_alarm_rate,
+)
 
 
 def test_feature_names_are_unique_and_match_the_vector():
@@ -39,6 +48,25 @@ def test_chopped_example_against_full_example_is_compared_across_the_chop():
     chopped = example_record("chopped", seed=2)
     rc = chopped.replace(meta={**chopped.meta, "shot_kind": "reduced_chopped"})
     assert extract(example_record("full", seed=1), rc).as_dict()["test_declared_chopped"] == 1.0
+
+
+def test_a_burst_after_the_compensated_span_is_scored_by_the_plain_difference():
+    ref, test = example_record("full", seed=1), example_record("full", seed=2)
+    quiet = extract(ref, test).as_dict()
+    assert quiet["cd_compared_span_us"] < 90.0  # the compensated prediction stops before the burst below
+    assert max(quiet["wv_beyond_fine_peak_sigma"], quiet["wv_beyond_mid_peak_sigma"]) < 6.0
+    # a damped 5 MHz burst of ten noise standard deviations, 95 us after the impulse start
+    cur = test.channels[1]
+    t = np.arange(cur.samples.size) * 1e-8 - 10e-6
+    s = np.clip(t - 95e-6, 0.0, None)
+    burst = np.where(t >= 95e-6, np.exp(-s / 0.3e-6) * np.sin(2 * np.pi * 5e6 * s), 0.0)
+    noisy = cur.samples + 10.0 * np.std(cur.samples[:900]) * burst
+    a = extract(ref, test.replace(channels=(test.channels[0], cur.with_samples(noisy)), step="burst"))
+    late = a.as_dict()
+    assert max(late["wv_beyond_fine_peak_sigma"], late["wv_beyond_mid_peak_sigma"]) > 10.0
+    assert a.to_test_time_s(a.beyond_onset_s) == pytest.approx(95e-6, abs=0.3e-6)
+    # the scores over the compensated span do not see it
+    assert max(late["cd_max_z"], late["wv_fine_peak_sigma"]) < 6.0
 
 
 @given(rate=st.sampled_from([0.002, 0.01, 0.05]), seed=st.integers(0, 10_000))
@@ -77,6 +105,27 @@ def test_false_alarm_rate_counts_what_exceeded_lists():
     listed = [bool(exceeded(x, thr)) for x in X]
     assert listed == [False, False, False, True]
     assert false_alarm_rate(X, thr) == pytest.approx(np.mean(listed))
+
+
+def test_decisive_thresholds_lie_above_every_benign_pair_and_never_below_their_floor():
+    rng = np.random.default_rng(11)
+    Xb = np.abs(rng.standard_normal((500, len(FEATURE_NAMES))))
+    cols = [FEATURE_NAMES.index(f) for f in DECISIVE]
+    Xb[:, cols[0]] *= 3.0  # noise-unit maxima of about 3 x 3 for the first, about 3 for the second
+    Xb[7, cols[0]] = 14.0  # one benign pair far out: the threshold follows it
+    Xb[9, cols[1]] = np.nan  # no part after the span: no measurement
+    thr = decisive_thresholds(Xb)
+    assert set(thr) == set(DECISIVE)
+    assert thr[list(DECISIVE)[0]] == 14.0
+    assert thr[list(DECISIVE)[1]] == DECISIVE_MIN_SIGMA
+    assert not decisive_exceeded(Xb, thr).any()
+    x = Xb[:3].copy()
+    x[1, cols[1]] = DECISIVE_MIN_SIGMA + 0.5
+    assert decisive_exceeded(x, thr).tolist() == [False, True, False]
+    # a model file without decisive thresholds never decides through them
+    assert not decisive_exceeded(x, {"td_i_max_sigma": 0.0}).any()
+    listed = exceeded(x[1], thr)
+    assert listed[0]["metric"] == list(DECISIVE)[1] and listed[0]["description"]
 
 
 def test_calibration_input_errors():

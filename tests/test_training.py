@@ -12,6 +12,7 @@ import pytest
 
 from detector._validation import ShotcheckError
 from detector.features import FEATURE_NAMES
+from detector.scoring import DECISIVE
 from detector.training import (
     COMPARISONS,
     LabelledFeatures,
@@ -130,6 +131,29 @@ def test_cross_validated_false_alarms_are_measured_not_met_by_construction():
         want = _decide(proba[te], operating_point(p_none[tr], 0.01))
         assert list(pred[te]) == list(want)
     assert np.mean(pred != "none") > 0.05  # the third fold: about a third of its pairs below 0.3
+
+
+def test_cross_validated_decisions_take_the_decisive_features_at_each_folds_own_thresholds():
+    """A pair whose decisive feature lies above every benign pair of the other folds is a fault whatever
+    the classifier says; a benign pair's own value never sets its fold's threshold."""
+    n = 300
+    folds_of = np.repeat(np.arange(3), n // 3)
+    folds = [(np.flatnonzero(folds_of != k), np.flatnonzero(folds_of == k)) for k in range(3)]
+    benign = np.arange(n) % 2 == 0
+    proba = np.tile([0.9, 0.05, 0.03, 0.02], (n, 1))  # the classifier sees nothing anywhere
+    X = np.zeros((n, len(FEATURE_NAMES)))
+    col = FEATURE_NAMES.index(next(iter(DECISIVE)))
+    X[:, col] = 3.0
+    X[1, col] = 50.0  # a fault late in the record (odd rows are faults)
+    X[0, col] = 9.0  # a benign pair under the floor: no false alarm
+    X[150, col] = 30.0  # a benign pair far out, in the second fold: it raises the other folds' thresholds
+    pred = cross_fitted_decisions(proba, benign, folds, 0.01, X=X)
+    assert pred[1] == "turn_to_turn"  # the classifier's most probable fault class
+    assert pred[0] == "none"
+    assert pred[150] == "turn_to_turn"  # its own value is not among those that set its threshold
+    X[1, col] = 25.0  # under the 30 of the second fold's benign pair: the first fold keeps it benign
+    assert cross_fitted_decisions(proba, benign, folds, 0.01, X=X)[1] == "none"
+    assert (cross_fitted_decisions(proba, benign, folds, 0.01) == "none").all()
 
 
 def test_too_small_a_training_set_is_an_input_error():

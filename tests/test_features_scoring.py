@@ -20,6 +20,8 @@ from detector.scoring import (
     exceeded,
     false_alarm_rate,
 )
+from synthetic.dataset import make_case
+from synthetic.scenario import bundled_families
 
 
 def test_feature_names_are_unique_and_match_the_vector():
@@ -105,6 +107,19 @@ def test_false_alarm_rate_counts_what_exceeded_lists():
     listed = [bool(exceeded(x, thr)) for x in X]
     assert listed == [False, False, False, True]
     assert false_alarm_rate(X, thr) == pytest.approx(np.mean(listed))
+
+
+def test_the_end_of_the_record_leaves_no_peak_after_the_compensated_span():
+    """Training pair 31724 of `shotcheck synth --seed 1` (benign, 50 MS/s, interference on both voltage
+    channels): the transform's continuation past the record's end made D6 peak at 11 noise units 0.66 us
+    before the end, higher than any other benign pair of the 32000; each level is now scored no closer
+    to the end than its half support."""
+    ref, test, labels = make_case(1, 31724, list(bundled_families().values()))
+    assert labels["event"] == "none" and labels["sample_rate_Hz"] == 50e6
+    a = extract(ref, test)
+    d = a.as_dict()
+    assert max(d["wv_beyond_fine_peak_sigma"], d["wv_beyond_mid_peak_sigma"]) < 6.0
+    assert a.beyond_onset_s is None
 
 
 def test_decisive_thresholds_lie_above_every_benign_pair_and_never_below_their_floor():

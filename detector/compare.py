@@ -243,12 +243,13 @@ def compare(
         probs[str(c)] = float(p)
     over = exceeded(a.features, m.thresholds)
     decisive = [e for e in over if e["metric"] in DECISIVE]
-    fault = probs["none"] < m.none_threshold or bool(decisive)
+    by_decisive_alone = bool(decisive) and probs["none"] >= m.none_threshold
+    fault = probs["none"] < m.none_threshold or by_decisive_alone
     event = "none"
     if fault:
         event = max((c for c in EVENT_CLASSES if c != "none"), key=lambda c: probs[c])
     warnings = list(a.warnings) + level_warnings(a.pair.ref_test_voltage_V, a.pair.test_test_voltage_V)
-    if decisive and probs["none"] >= m.none_threshold:
+    if by_decisive_alone:
         e = decisive[0]
         warnings.append(
             f"fault indicated by the current difference after the span the compensated prediction covers "
@@ -271,8 +272,7 @@ def compare(
     if fault:
         sharp = float(sharp_onset_after_front_us(a.features)[0])
         chooses = m.timer is not None and m.timer.chooses
-        late = bool(decisive) and probs["none"] >= m.none_threshold and a.beyond_onset_s is not None
-        if late:  # indicated only after the compensated span: the timer never learnt such faults
+        if by_decisive_alone and a.beyond_onset_s is not None:  # the timer never learnt faults that late
             t_fault = a.to_test_time_s(a.beyond_onset_s)
         elif t_pred is not None and math.isfinite(t_pred) and chooses:  # a detector's onset or the regression
             t_fault = a.front_test_time_s + 1e-6 * t_pred

@@ -419,7 +419,9 @@ def _beyond_span_peaks(pair: AlignedPair, test_current: np.ndarray, stop: int,
     peaks : list of float
         Largest of D1-D3 and of D4-D6 [1]; NaN where fewer than ``BEYOND_MIN_SAMPLES`` are scored.
     onset_s : float or None
-        First scored coefficient of D1-D6 above 6 noise units [s, pair axis]; None where there is none.
+        Earliest of the levels' first significant differences (6 noise units; each level's time is its
+        largest coefficient within a support after the crossing, as :func:`wavelet_difference` gives it)
+        [s, pair axis]; None where there is none.
     """
     nan = math.nan
     t = pair.times_s

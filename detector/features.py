@@ -41,7 +41,12 @@ from .metrics.transfer import (
     compare_transfer,
     transfer_function,
 )
-from .metrics.wavelet import WaveletDifference, burst_counts, wavelet_difference
+from .metrics.wavelet import (
+    WaveletDifference,
+    burst_counts,
+    level_half_supports,
+    wavelet_difference,
+)
 from .preprocess import AlignedPair, align_pair
 from .record import Record
 from .waveshape import MAX_SAMPLE_RATE_HZ, WaveShape, evaluate_waveshape
@@ -427,17 +432,16 @@ def _beyond_span_peaks(pair: AlignedPair, test_current: np.ndarray, stop: int,
     t = pair.times_s
     n = t.size
     lo = max(0, stop - BEYOND_LEAD_SAMPLES)
-    k = np.arange(lo, n)
-    scored = (k >= stop) & (t[lo:] < t[-1] - WAVELET_END_GUARD_S) & ~pair.unmeasured[lo:]
+    k = np.arange(n - lo)  # index into the part transformed
+    scored = (k >= stop - lo) & (t[lo:] < t[-1] - WAVELET_END_GUARD_S) & ~pair.unmeasured[lo:]
     if chop_s is not None:
         scored &= ~((t[lo:] >= chop_s + CHOP_WINDOW_S[0]) & (t[lo:] <= chop_s + CHOP_WINDOW_S[1]))
     if scored.sum() < BEYOND_MIN_SAMPLES or pywt.dwt_max_level(n - lo, 8) < BEYOND_LEVELS:
         return [nan, nan], None
     wd = wavelet_difference(pair.ref_current_pu[lo:], test_current[lo:], pair.sample_interval_s,
                             level=BEYOND_LEVELS, scored=scored, t0_s=float(t[lo]))
-    j = np.arange(1, BEYOND_LEVELS + 1)
-    half_support = np.ceil((pywt.Wavelet(wd.wavelet).dec_len - 1) * (2.0 ** j - 1) / 2.0).astype(np.int64)
-    rows = np.where(scored[None, :] & (np.arange(n - lo)[None, :] < (n - lo) - half_support[:, None]),
+    half_support = level_half_supports(wd.wavelet, BEYOND_LEVELS)[:BEYOND_LEVELS].astype(np.int64)
+    rows = np.where(scored[None, :] & (k[None, :] < (n - lo) - half_support[:, None]),
                     wd.difference_map[:BEYOND_LEVELS], 0.0)
     peak = rows.max(axis=1)
     # each row's first significant coefficient (its time refined to the largest one within a support

@@ -33,6 +33,7 @@ __all__ = [
     "WaveletDifference",
     "burst_counts",
     "level_bands_Hz",
+    "level_half_supports",
     "resolve_level",
     "resolve_wavelet",
     "wavelet_difference",
@@ -167,6 +168,28 @@ def level_bands_Hz(level: int, dt: float) -> np.ndarray:
     j = np.arange(1, level + 1, dtype=np.float64)
     det = np.column_stack((fs / 2.0 ** (j + 1), fs / 2.0**j))
     return np.vstack((det, [[0.0, fs / 2.0 ** (level + 1)]]))
+
+
+def level_half_supports(wavelet: str | pywt.Wavelet, level: int) -> np.ndarray:
+    """Half support of each detail level's wavelet and of the final approximation [samples].
+
+    Parameters
+    ----------
+    wavelet : str or pywt.Wavelet
+        Discrete wavelet.
+    level : int
+        Number of levels L.
+
+    Returns
+    -------
+    numpy.ndarray
+        Shape (L + 1,): ``ceil((filter length - 1) (2**j - 1) / 2)`` for details j = 1..L, then the same
+        as level L for the approximation; how far a coefficient's response reaches either side of the
+        sample it describes (and how far a record end's padding reaches into a level).
+    """
+    w = resolve_wavelet(wavelet)
+    j = np.arange(1, level + 2)
+    return np.ceil((w.dec_len - 1) * (2.0 ** np.minimum(j, level) - 1) / 2.0)
 
 
 @functools.lru_cache(maxsize=64)
@@ -538,8 +561,7 @@ def wavelet_difference(
         dmap /= sigma[:, None]
     scored_map = dmap if scored is None else np.where(mask[None, :], dmap, 0.0)
     peak = scored_map.max(axis=1)
-    j = np.arange(1, lev + 2)
-    half_support = np.ceil((w.dec_len - 1) * (2.0 ** np.minimum(j, lev) - 1) / 2.0)
+    half_support = level_half_supports(w, lev)
     # in local noise units the map is comparable everywhere, so the first significant difference is
     # looked for over the whole record (a fault on the front is found there); peaks stay on the scored span
     first_idx = _first_event_times(dmap if noise_scale is not None else scored_map, k_sigma, half_support)

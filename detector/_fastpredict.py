@@ -138,7 +138,7 @@ def estimators_of(obj: Any) -> list[Any]:
                 walk(v, depth + 1)
             return
         for name in ("classifier", "locator", "timer", "members_", "calibrated_", "calibrated_classifiers_",
-                     "estimator", "model_", "chooser_"):
+                     "estimator", "model_", "chooser_", "detector_"):
             walk(getattr(o, name, None), depth + 1)
 
     walk(obj, 0)
@@ -290,6 +290,13 @@ def score(model: Any, X: np.ndarray, at_instant: Callable[[np.ndarray], np.ndarr
                 proba = proba + p
             if len(parts) > 1:
                 proba = proba / len(parts)
+        detector = getattr(clf, "detector_", None)
+        if proba is not None and detector is not None:  # P(none) from the fault-against-none detector
+            from .model import with_detector  # (model imports this module)
+
+            raw_d = _raw(detector, X)
+            proba = (None if raw_d is None else
+                     with_detector(proba, detector._loss.predict_proba(raw_d.ravel())[:, 0], clf.classes_))
     if proba is None:
         proba = clf.predict_proba(X)
 

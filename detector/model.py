@@ -46,6 +46,7 @@ __all__ = [
     "save_model",
     "load_model",
     "TRUSTED_TYPES",
+    "with_detector",
 ]
 
 #: Event classes in a fixed order (the classifier's probability columns follow it when all are seen).
@@ -98,6 +99,21 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
         alarms), where one model's answer depends on its seed; the average is steadier (grouped
         cross-validation on the bundled training set: AUC 0.975 -> 0.982, turn-to-turn detection at 1 %
         false alarms 0.86 -> 0.89).
+    fault_detector : bool, default=False
+        Also fit a binary gradient-boosting detector of fault against none (when the training pairs hold
+        both), on all of them, and take P(none) from it; the four-class models then only split the rest
+        among the fault classes. The decision between fault and none is the one that matters most, and a
+        booster trained for it alone, on all pairs (the members hold out a share for calibration and
+        early stopping), ranks the pairs better (grouped cross-validation in DEVELOPERS.md).
+    detector_iterations : int, default=300
+        Boosting iterations of the detector. No early stopping: stopped where a held-out share's log loss
+        stops improving (as the members are), it ranked the pairs in the far tail of P(none) no better
+        than the members do.
+    detector_min_pairs : int, default=1000
+        Fewest benign pairs, and fewest faulted pairs, the detector is fitted on; below, P(none) is the
+        members'. The detector is made for the far tail of the benign pairs (the 1 % false-alarm
+        operating point); with a few hundred pairs that tail holds a handful, and 300 unstopped
+        iterations learn their noise.
 
     Attributes
     ----------
@@ -109,6 +125,9 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
         The fitted, calibrated models (uncalibrated boosters if a class was too rare to hold some out).
     calibrated_ : CalibratedClassifierCV or HistGradientBoostingClassifier
         The first member (kept for code that expects one model).
+    detector_ : HistGradientBoostingClassifier or None
+        The fault-against-none detector (classes 0 none, 1 fault); None without ``fault_detector`` or
+        with fewer than ``detector_min_pairs`` pairs of either kind.
     """
 
     _constraints = {
@@ -118,6 +137,9 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
         "l2_regularization": (float, 0.0, None),
         "calibration_fraction": (float, 0.05, 0.5),
         "n_members": (int, 1, 50),
+        "detector_iterations": (int, 1, None),
+        "fault_detector": (bool, None, None),
+        "detector_min_pairs": (int, 1, None),
     }
 
     def __init__(
@@ -131,6 +153,9 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
         calibration_fraction: float = 0.2,
         random_state: int | None = 0,
         n_members: int = 5,
+        fault_detector: bool = False,
+        detector_iterations: int = 300,
+        detector_min_pairs: int = 1000,
     ):
         self.max_iter = max_iter
         self.learning_rate = learning_rate
@@ -140,6 +165,9 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
         self.calibration_fraction = calibration_fraction
         self.random_state = random_state
         self.n_members = n_members
+        self.fault_detector = fault_detector
+        self.detector_iterations = detector_iterations
+        self.detector_min_pairs = detector_min_pairs
 
     def fit(self, X: Any, y: Any, sample_weight: Any = None) -> FaultClassifier:
         """Fit on a feature matrix and event labels.
@@ -195,7 +223,23 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
             n_iter.append(base.n_iter_)
         self.calibrated_ = self.members_[0]
         self.n_iter_ = int(round(float(np.mean(n_iter))))  # mean boosting iterations of the members
+        self.detector_ = self._fit_detector(X, y, sw)
         return self
+
+    def _fit_detector(self, X: np.ndarray, y: np.ndarray, sw: np.ndarray | None
+                      ) -> HistGradientBoostingClassifier | None:
+        """The fault-against-none booster, or None (not asked for, or too few pairs of either kind)."""
+        fault = (y != "none").astype(np.int64)
+        if not self.fault_detector or min(int(fault.sum()), int((1 - fault).sum())) < self.detector_min_pairs:
+            return None
+        return HistGradientBoostingClassifier(
+            max_iter=self.detector_iterations,
+            learning_rate=self.learning_rate,
+            max_leaf_nodes=self.max_leaf_nodes,
+            l2_regularization=self.l2_regularization,
+            early_stopping=False,
+            random_state=self.random_state,
+        ).fit(X, fault, sample_weight=sw)
 
     def __sklearn_tags__(self):  # missing features (NaN) are handled by the boosted trees
         tags = super().__sklearn_tags__()
@@ -210,12 +254,44 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
         proba = members[0].predict_proba(X)
         for m in members[1:]:
             proba = proba + m.predict_proba(X)
-        return proba / len(members) if len(members) > 1 else proba
+        proba = proba / len(members) if len(members) > 1 else proba
+        detector = getattr(self, "detector_", None)
+        if detector is None:
+            return proba
+        return with_detector(proba, detector.predict_proba(X)[:, 0], self.classes_)
 
     def predict(self, X: Any) -> np.ndarray:
         """Most probable event class of each sample."""
         check_is_fitted(self)
         return self.classes_[np.argmax(self.predict_proba(X), axis=1)]
+
+
+def with_detector(proba: np.ndarray, p_none: np.ndarray, classes: np.ndarray) -> np.ndarray:
+    """Class probabilities whose ``none`` column is a detector's, the rest split as the classes' models do.
+
+    Parameters
+    ----------
+    proba : numpy.ndarray, shape (n_samples, n_classes)
+        Probabilities of the four-class models, columns in ``classes`` order [1].
+    p_none : numpy.ndarray, shape (n_samples,)
+        The fault-against-none detector's probability of ``none`` [1].
+    classes : numpy.ndarray of str
+        Class of each column (one of them ``none``).
+
+    Returns
+    -------
+    numpy.ndarray, shape (n_samples, n_classes)
+        Rows summing to 1: ``none`` is ``p_none``; each fault class keeps its share of the fault classes'
+        total (equal shares where the four-class models gave them nothing).
+    """
+    out = np.array(proba, dtype=np.float64, copy=True)
+    k = int(np.flatnonzero(np.asarray(classes) == "none")[0])
+    rest = np.delete(out, k, axis=1)
+    total = rest.sum(axis=1, keepdims=True)
+    share = np.divide(rest, total, out=np.full_like(rest, 1.0 / rest.shape[1]), where=total > 0)
+    out[:, [j for j in range(out.shape[1]) if j != k]] = share * (1.0 - p_none)[:, None]
+    out[:, k] = p_none
+    return out
 
 
 class LocationRegressor(RegressorMixin, BaseEstimator):

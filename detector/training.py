@@ -409,7 +409,7 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
         proba = np.zeros((y.size, len(EVENT_CLASSES)))
         loc = np.full(y.size, np.nan)
         for k, (tr, te) in enumerate(folds):
-            clf = FaultClassifier(random_state=seed).fit(X[tr], y[tr])
+            clf = _classifier(seed).fit(X[tr], y[tr])
             p = clf.predict_proba(X[te])
             for j, c in enumerate(clf.classes_):
                 proba[te, EVENT_CLASSES.index(str(c))] = p[:, j]
@@ -431,7 +431,7 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     thresholds = calibrate_thresholds(benign, false_alarm_rate=false_alarm_rate_target) if benign.shape[0] >= 10 else {}
     if thresholds:
         thresholds.update(decisive_thresholds(benign))
-    clf = FaultClassifier(random_state=seed).fit(X, y)
+    clf = _classifier(seed).fit(X, y)
     all_rows = np.arange(y.size)
     Xl = locator_rows(all_rows, timer, final_inst, 0) if timer is not None and located.sum() >= 10 else X
     locator = LocationRegressor(random_state=seed).fit(Xl[located], pos[located]) if located.sum() >= 10 else None
@@ -446,6 +446,9 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
         "false_alarm_rate_target": false_alarm_rate_target,
         "threshold_false_alarm_rate_on_training": false_alarm_rate(benign, thresholds) if thresholds else None,
         "cross_validation": {k: v for k, v in report.items() if k != "roc"},
+        "none_probability_from": (
+            "the four-class models" if getattr(clf, "detector_", None) is None else
+            "a booster of fault against none fitted on all training pairs"),
         "locator_inputs": ("features" if locator is None or Xl is X else
                            "features, instant and onset delays" + ("" if at is None else
                                                                    ", " + ", ".join(INSTANT_INPUT_NAMES))),
@@ -454,6 +457,11 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     model = ShotModel(clf, locator, FEATURE_NAMES, SCHEMA_VERSION, thresholds, card, timer, none_threshold,
                       INSTANT_INPUT_NAMES if at is not None else ())
     return model, report
+
+
+def _classifier(seed: int) -> FaultClassifier:
+    """The event classifier as training fits it: P(none) from its fault-against-none detector."""
+    return FaultClassifier(random_state=seed, fault_detector=True)
 
 
 def _out_of_fold_instants(X: np.ndarray, rel: np.ndarray, y: np.ndarray, groups: np.ndarray, seed: int,

@@ -54,13 +54,14 @@ def test_regressor_and_large_batch_bit_identical():
 def test_shot_model_install_and_save_round_trip(tmp_path):
     X, score = _data(900)
     y = np.where(score > 1.0, "turn_to_turn", np.where(score < -0.5, "to_ground", "none"))
-    clf = FaultClassifier(max_iter=30).fit(X, y)
+    clf = FaultClassifier(max_iter=30, fault_detector=True, detector_iterations=30,
+                          detector_min_pairs=50).fit(X, y)
     loc = LocationRegressor(max_iter=30).fit(X, np.clip(0.5 + 0.2 * np.nan_to_num(X[:, 0]), 0, 1))
     model = ShotModel(classifier=clf, locator=loc, feature_names=[f"f{i}" for i in range(X.shape[1])],
                       schema_version="test")
     Xq, _ = _data(30, seed=3)
     p0 = np.vstack([clf.predict_proba(x) for x in _rows(Xq)[:30]])
-    n = clf.n_members + 1  # the booster of each calibrated member, and the locator's
+    n = clf.n_members + 2  # the booster of each calibrated member, the fault detector and the locator's
     assert _fastpredict.install(model) == n
     assert _fastpredict.install(model) == n  # idempotent
     p1 = np.vstack([clf.predict_proba(x) for x in _rows(Xq)[:30]])
@@ -73,16 +74,20 @@ def test_shot_model_install_and_save_round_trip(tmp_path):
     assert np.array_equal(np.vstack([again.classifier.predict_proba(x) for x in _rows(Xq)[:30]]), p0)
 
 
+@pytest.mark.parametrize("detector", [False, True])
 @pytest.mark.parametrize("calibration", ["isotonic", "sigmoid"])
 @pytest.mark.parametrize("n_classes", [2, 4])
-def test_score_equals_scikit_learn(calibration, n_classes):
-    """score() leaves out scikit-learn's checks and calibrates itself: same numbers, to the last bit."""
+def test_score_equals_scikit_learn(calibration, n_classes, detector):
+    """score() leaves out scikit-learn's checks and calibrates itself: same numbers, to the last bit
+    (also with the fault-against-none detector, whose P(none) replaces the classes')."""
     from detector.model import InstantRegressor
 
     X, score_ = _data(1200)
     names = np.array(["none", "turn_to_turn", "to_ground", "discharge_only"])[:n_classes]
     y = names[np.digitize(score_, np.quantile(score_, np.linspace(0, 1, n_classes + 1)[1:-1]))]
-    clf = FaultClassifier(max_iter=30, calibration=calibration).fit(X, y)
+    clf = FaultClassifier(max_iter=30, calibration=calibration, fault_detector=detector,
+                          detector_iterations=40, detector_min_pairs=50).fit(X, y)
+    assert (clf.detector_ is not None) == detector
     loc = LocationRegressor(max_iter=30).fit(X, np.clip(0.5 + 0.3 * np.nan_to_num(X[:, 0]), 0, 1))
     timer = InstantRegressor(max_iter=30).fit(X, 3.0 + np.nan_to_num(X[:, 1]))
     model = ShotModel(classifier=clf, locator=loc, timer=timer, feature_names=[f"f{i}" for i in range(7)],

@@ -72,6 +72,56 @@ def test_classifier_averages_its_members():
     np.testing.assert_array_equal(one.predict_proba(X[:50]), one.members_[0].predict_proba(X[:50]))
 
 
+def test_detector_gives_p_none_and_classes_split_the_rest():
+    """With ``fault_detector`` a booster of fault against none gives P(none); the classes' models split
+    the rest among the fault classes in their own proportions."""
+    X, y, _ = _toy(800, seed=5)
+    X = X + np.random.default_rng(2).normal(0.0, 1.5, X.shape)  # overlapping classes
+    plain = FaultClassifier(max_iter=30, n_members=2).fit(X, y)
+    clf = FaultClassifier(max_iter=30, n_members=2, fault_detector=True, detector_iterations=60,
+                          detector_min_pairs=100).fit(X, y)
+    assert plain.detector_ is None
+    assert list(clf.detector_.classes_) == [0, 1]  # none, fault
+    assert clf.detector_.n_iter_ == 60  # no early stopping: the same detector whatever the seed
+    p = clf.predict_proba(X[:100])
+    np.testing.assert_allclose(p.sum(axis=1), 1.0, atol=1e-12)
+    k = list(clf.classes_).index("none")
+    np.testing.assert_array_equal(p[:, k], clf.detector_.predict_proba(X[:100])[:, 0])
+    q = plain.predict_proba(X[:100])  # the same members (same seeds and splits)
+    faults = [j for j in range(4) if j != k]
+    np.testing.assert_allclose(p[:, faults] / p[:, faults].sum(axis=1, keepdims=True),
+                               q[:, faults] / q[:, faults].sum(axis=1, keepdims=True), rtol=1e-12)
+    # it detects: benign pairs (column 0 shifted by 4, see _toy) get the highest P(none)
+    from sklearn.metrics import roc_auc_score
+
+    assert roc_auc_score(y[100:] == "none", clf.predict_proba(X[100:])[:, k]) > 0.9
+
+
+def test_detector_needs_enough_pairs_of_both_kinds():
+    X, y, _ = _toy(400, seed=6)
+    faults = y != "none"
+    n_none = int((~faults).sum())
+    clf = FaultClassifier(max_iter=10, n_members=1, fault_detector=True, detector_min_pairs=10)
+    assert clf.fit(X[faults], y[faults]).detector_ is None  # no benign pairs: P(none) has nothing to learn
+    assert clf.fit(X, y).detector_ is not None
+    clf.set_params(detector_min_pairs=n_none + 1)
+    assert clf.fit(X, y).detector_ is None  # too few benign pairs for the far tail it is made for
+    assert FaultClassifier(max_iter=10, n_members=1, fault_detector=True).fit(X, y).detector_ is None  # 1000
+    with pytest.raises(ShotcheckError, match="'fault_detector' parameter of FaultClassifier must be a bool"):
+        FaultClassifier(fault_detector="yes").fit(X, y)
+
+
+def test_with_detector_keeps_fault_shares():
+    from detector.model import with_detector
+
+    classes = np.array(["none", "turn_to_turn", "to_ground", "discharge_only"])
+    proba = np.array([[0.4, 0.3, 0.2, 0.1], [1.0, 0.0, 0.0, 0.0]])
+    out = with_detector(proba, np.array([0.1, 0.7]), classes)
+    np.testing.assert_allclose(out[0], [0.1, 0.45, 0.3, 0.15])
+    np.testing.assert_allclose(out[1], [0.7, 0.1, 0.1, 0.1])  # no share given: equal shares
+    np.testing.assert_array_equal(proba[0], [0.4, 0.3, 0.2, 0.1])  # input untouched
+
+
 def test_locator_recovers_position():
     X, _, pos = _toy()
     loc = LocationRegressor(max_iter=100).fit(X, pos)

@@ -112,6 +112,16 @@ def test_the_model_keeps_the_threshold_of_all_out_of_fold_benign_pairs(trained):
     assert cv["detection_rate"]["to_ground"] > 0.5  # the classes are separable: far above chance
 
 
+def test_training_takes_p_none_from_a_fault_detector_given_enough_pairs(trained):
+    """With 1000 pairs of each kind or more the trained classifier decides fault against none with its
+    own booster (FaultClassifier's ``fault_detector``); the fixture's 60 pairs per class are too few,
+    and the model card says where P(none) comes from."""
+    model, _ = trained
+    assert model.classifier.fault_detector and model.classifier.detector_min_pairs == 1000
+    assert model.classifier.detector_ is None
+    assert model.card["none_probability_from"] == "the four-class models"
+
+
 def test_cross_validated_false_alarms_are_measured_not_met_by_construction():
     """Each fold is decided at the threshold the other folds' benign pairs give: a fold whose benign
     pairs look more like faults than the others' raises the reported rate above the target, which a

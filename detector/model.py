@@ -18,6 +18,7 @@ from __future__ import annotations
 import copy
 import dataclasses
 import datetime as _dt
+import inspect
 import types
 import zipfile
 from collections.abc import Mapping, Sequence
@@ -783,6 +784,19 @@ def missing_model_error(path: Path) -> ShotcheckError:
     return ShotcheckError(f"{path}: {what}")
 
 
+def _add_missing_parameters(est: Any) -> None:
+    """Give one of our estimators, loaded from a file written before some of its parameters existed,
+    those parameters at their defaults (which describe how it was fitted: a classifier from before
+    ``fault_detector`` has no detector), so that ``get_params``, ``repr`` and ``clone`` work on it."""
+    if not isinstance(est, FaultClassifier | LocationRegressor):
+        return
+    for name, par in inspect.signature(type(est).__init__).parameters.items():
+        if par.default is not inspect.Parameter.empty and name not in vars(est):
+            setattr(est, name, par.default)
+    if isinstance(est, FaultClassifier) and "detector_" not in vars(est):
+        est.detector_ = None
+
+
 def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotModel:
     """Load a model file written by :func:`save_model`, trusting only :data:`TRUSTED_TYPES`.
 
@@ -837,6 +851,8 @@ def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotM
     clf = payload.get("classifier")
     if not isinstance(clf, FaultClassifier):
         raise ShotcheckError(f"{p}: the model file holds no FaultClassifier")
+    for est in (clf, payload.get("locator"), payload.get("timer")):
+        _add_missing_parameters(est)
     loc = payload.get("locator")
     if loc is not None and (not isinstance(loc, LocationRegressor) or isinstance(loc, InstantRegressor)):
         raise ShotcheckError(f"{p}: the 'locator' entry is not a LocationRegressor")

@@ -122,6 +122,22 @@ def test_with_detector_keeps_fault_shares():
     np.testing.assert_array_equal(proba[0], [0.4, 0.3, 0.2, 0.1])  # input untouched
 
 
+def test_a_model_file_from_before_the_detector_loads_with_the_new_parameters_at_their_defaults(tmp_path):
+    """A classifier saved before ``fault_detector`` existed has none of the new parameters: loaded, it
+    gets them at their defaults (no detector), so ``repr``/``get_params`` work and P(none) is the
+    members', as it was."""
+    model, X = _model()
+    clf = model.classifier
+    for name in ("fault_detector", "detector_iterations", "detector_min_pairs", "detector_"):
+        delattr(clf, name)
+    expected = np.mean([m.predict_proba(X[:20]) for m in clf.members_], axis=0)
+    save_model(model, tmp_path / "old.skops")
+    again = load_model(tmp_path / "old.skops").classifier
+    assert again.get_params()["fault_detector"] is False and again.detector_ is None
+    assert "FaultClassifier(" in repr(again)
+    np.testing.assert_allclose(again.predict_proba(X[:20]), expected, rtol=0, atol=1e-15)
+
+
 def test_locator_recovers_position():
     X, _, pos = _toy()
     loc = LocationRegressor(max_iter=100).fit(X, pos)

@@ -1,7 +1,11 @@
 """Speed of compare() on a pair of 20 000-sample records with the model loaded (DESIGN section 7).
 
 Prints the median time per pair and the share of each stage. The budget is a median under 30 ms on one
-core; on the shared 2-core CI machine the assertion allows three times that.
+core. The assertion is a guard against the code getting slower, not a test of the machine: the machines
+this runs on differ in speed by a factor of three or more (the same code took 19 ms on one, 55-98 ms on
+another, whose own speed drifted by a third within minutes), so each run of ``compare`` is timed beside a
+fixed reference workload of the same kinds of work (:func:`reference_workload`) and the guard is on the
+ratio of their medians, which stayed within 5.0-6.3 where the times alone spread over 55-87 ms.
 """
 
 from __future__ import annotations
@@ -10,6 +14,7 @@ import time
 
 import numpy as np
 import pytest
+import scipy.fft as sfft
 from threadpoolctl import threadpool_limits
 
 from detector.compare import compare, default_model
@@ -18,6 +23,33 @@ from detector.features import extract
 pytestmark = pytest.mark.benchmark
 
 BUDGET_S = 0.030
+
+#: Largest median time of a comparison in units of the reference workload's median time. Measured on
+#: 2026-12-04 on a 2-core machine: 5.0-5.3 for the clean pair, 5.7-6.3 with the interference tone
+#: (three runs each); the limit leaves room for the scatter, and fails when the code gets some 60 %
+#: slower.
+RATIO_LIMIT = 10.0
+
+
+def reference_workload() -> None:
+    """A fixed piece of work of the kinds ``compare`` spends its time on, to time the machine with.
+
+    Real FFTs of four 20 000-sample rows padded to 40 000 points and back (three times), a median, a
+    sort and a cumulative sum of 20 000 samples, and 300 rounds of small-array numpy calls (the per-call
+    overhead that makes up much of a comparison of one pair).
+    """
+    rng = np.random.default_rng(0)
+    x = rng.standard_normal((4, 20000))
+    for _ in range(3):
+        s = sfft.rfft(x, 40000, axis=-1)
+        back = sfft.irfft(s * s.conj(), 40000, axis=-1)
+    np.median(x[0])
+    np.cumsum(back[0])
+    np.sort(x[1])
+    small = x[2, :200]
+    for _ in range(300):
+        float(np.mean(small))
+        np.flatnonzero(small > 1.0)
 
 
 @pytest.fixture(scope="module", params=["clean", "interference"])
@@ -43,19 +75,26 @@ def test_compare_speed(pair):
     model = default_model()
     with threadpool_limits(1):
         compare(ref, test, model=model)  # warm caches and imports
-        runs = []
+        reference_workload()
+        runs, units = [], []
         stages: dict[str, float] = {}
-        for _ in range(9):
+        for _ in range(9):  # interleaved, so that a drift of the machine's speed touches both alike
             t0 = time.perf_counter()
+            reference_workload()
+            t1 = time.perf_counter()
             compare(ref, test, model=model)
-            runs.append(time.perf_counter() - t0)
+            runs.append(time.perf_counter() - t1)
+            units.append(t1 - t0)
         for _ in range(5):
             extract(ref, test, timings=stages)
     med = float(np.median(runs))
+    unit = float(np.median(units))
     total = sum(stages.values())
     shares = ", ".join(f"{k} {100 * v / total:.0f} %" for k, v in sorted(stages.items(), key=lambda kv: -kv[1]))
     tones = extract(ref, test).compensated.tones
     print(f"\ncompare of two {ref.n_samples}-sample records ({len(tones)} interference tone(s) found): "
           f"median {1e3 * med:.1f} ms "
-          f"(target {1e3 * BUDGET_S:.0f} ms); stages: {shares}")
-    assert med < 3 * BUDGET_S
+          f"(target {1e3 * BUDGET_S:.0f} ms: {'met' if med < BUDGET_S else 'NOT met'} on this machine); "
+          f"stages: {shares}; reference workload {1e3 * unit:.1f} ms, ratio {med / unit:.2f} "
+          f"(guard {RATIO_LIMIT:g})")
+    assert med / unit < RATIO_LIMIT, f"compare takes {med / unit:.2f} reference workloads (guard {RATIO_LIMIT:g})"

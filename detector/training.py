@@ -515,11 +515,18 @@ def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: n
     fa = detected & np.isfinite(data.position) & np.isfinite(loc)
     rep["location_error_median"] = float(np.median(np.abs(loc[fa] - data.position[fa]))) if fa.any() else None
     rep["location_error_p90"] = float(np.quantile(np.abs(loc[fa] - data.position[fa]), 0.9)) if fa.any() else None
+    # per class: the overall median is that of a mixture, and the classes differ by a factor of three
+    rep["location_error_median_by_class"] = {
+        c: (float(np.median(np.abs(loc[fa & (y == c)] - data.position[fa & (y == c)])))
+            if (fa & (y == c)).any() else None) for c in EVENT_CLASSES[1:]}
     est = data.onset_us if instant_us is None else instant_us
     ft = detected & np.isfinite(data.fault_time_us) & np.isfinite(est)
     errs = np.abs(est[ft] - data.fault_time_us[ft])
     rep["fault_time_error_median_us"] = float(np.median(errs)) if errs.size else None
     rep["fault_time_error_p90_us"] = float(np.quantile(errs, 0.9)) if errs.size else None
+    rep["fault_time_error_median_us_by_class"] = {
+        c: (float(np.median(np.abs(est[ft & (y == c)] - data.fault_time_us[ft & (y == c)])))
+            if (ft & (y == c)).any() else None) for c in EVENT_CLASSES[1:]}
     rep["fault_time_found_share"] = float(ft.sum() / max(1, detected.sum()))
     score = 1.0 - proba[:, 0]
     if none.any() and (~none).any():
@@ -537,7 +544,9 @@ def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float 
     dict
         ``detection_rate`` per class, ``false_alarm_rate``, ``class_accuracy_on_detected``,
         ``confusion_matrix``, ``location_error_median`` (fraction of the winding), ``location_error_p90``,
-        ``fault_time_error_median_us``, ``fault_time_error_p90_us``, ``roc_auc``, ``roc``,
+        ``location_error_median_by_class``, ``fault_time_error_median_us``, ``fault_time_error_p90_us``,
+        ``fault_time_error_median_us_by_class`` (each per fault class, over its detected faults),
+        ``roc_auc``, ``roc``,
         ``threshold_false_alarm_rate``, ``detection_by_effect_lsb`` (all faults by the size of their
         effect in recorder codes) and ``by_comparison`` (false alarms and detection per kind of
         comparison: full or chopped reference and test shots).
@@ -731,6 +740,10 @@ def report_text(rep: dict[str, Any]) -> str:
         v = rep.get(k)
         unit = " us" if k.endswith("_us") and v is not None else ""
         lines.append(f"{lab:<31}{'-' if v is None else f'{v:.3f}'}{unit}")
+        per = rep.get(f"{k}_by_class")
+        if per:
+            lines.append(" " * 31 + "by class: " + ", ".join(
+                f"{c} {'-' if x is None else f'{x:.3f}'}{unit if x is not None else ''}" for c, x in per.items()))
     byc = rep.get("by_comparison")
     if byc:
         classes = list(next(iter(byc.values()))["detection_rate"])

@@ -92,8 +92,13 @@ def test_evaluation_counts_match_the_models_decisions(trained):
             assert e["detection_rate"][c] == pytest.approx(np.mean(pred[sel & (ev == c)] != "none"))
     # the invisible faults sit in the lowest effect bin
     assert rep["detection_by_effect_lsb"]["0-0.5"]["n"] == int(np.sum(data.effect_lsb < 0.5))
+    # the overall medians are those of a mixture of the classes: each lies between its classes' medians
+    for key in ("location_error_median", "fault_time_error_median_us"):
+        per = [v for v in rep[f"{key}_by_class"].values() if v is not None]
+        assert per and min(per) <= rep[key] <= max(per), (key, rep[key], per)
     text = report_text(rep)
     assert "full reference, chopped test" in text and "confusion matrix" in text
+    assert text.count("by class: turn_to_turn") == 2
 
 
 def test_the_locator_takes_the_instant_and_each_onsets_delay(trained):

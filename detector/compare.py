@@ -243,8 +243,9 @@ def compare(
         probs[str(c)] = float(p)
     over = exceeded(a.features, m.thresholds)
     decisive = [e for e in over if e["metric"] in DECISIVE]
-    by_decisive_alone = bool(decisive) and probs["none"] >= m.none_threshold
-    fault = probs["none"] < m.none_threshold or by_decisive_alone
+    none_threshold = float(m.none_thresholds(x)[0])  # the one of this kind of comparison (full or chopped)
+    by_decisive_alone = bool(decisive) and probs["none"] >= none_threshold
+    fault = probs["none"] < none_threshold or by_decisive_alone
     event = "none"
     if fault:
         event = max((c for c in EVENT_CLASSES if c != "none"), key=lambda c: probs[c])
@@ -286,7 +287,7 @@ def compare(
     info = {
         "name": str(m.card.get("name", "custom")),
         "schema_version": m.schema_version,
-        "none_threshold": m.none_threshold,
+        "none_threshold": none_threshold,
         "created": m.card.get("created"),
     }
     return Verdict(fault, event, probs, t_fault, None if loc is None or not math.isfinite(loc) else loc,

@@ -267,6 +267,32 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
         return self.classes_[np.argmax(self.predict_proba(X), axis=1)]
 
 
+#: Feature that tells a chopped test shot at run time: the test voltage's collapse was found (1) or not (0).
+CHOPPED_TEST_FEATURE = "td_test_collapse"
+
+
+def chopped_test(X: np.ndarray, feature_names: Sequence[str]) -> np.ndarray:
+    """Rows whose test shot is chopped, as measured on the records (:data:`CHOPPED_TEST_FEATURE`).
+
+    Parameters
+    ----------
+    X : numpy.ndarray, shape (n_samples, n_features)
+        Feature vectors in ``feature_names`` order.
+    feature_names : sequence of str
+        Column names of ``X``.
+
+    Returns
+    -------
+    numpy.ndarray of bool, shape (n_samples,)
+        True where the test voltage collapsed (a chop, or a breakdown to ground that collapses it).
+    """
+    X = np.atleast_2d(np.asarray(X, dtype=np.float64))
+    names = list(feature_names)
+    if CHOPPED_TEST_FEATURE not in names:
+        return np.zeros(X.shape[0], dtype=bool)
+    return X[:, names.index(CHOPPED_TEST_FEATURE)] == 1.0
+
+
 def with_detector(proba: np.ndarray, p_none: np.ndarray, classes: np.ndarray) -> np.ndarray:
     """Class probabilities whose ``none`` column is a detector's, the rest split as the classes' models do.
 
@@ -616,7 +642,13 @@ class ShotModel:
         Fitted regressor of the fault instant relative to the voltage front [us].
     none_threshold : float
         A fault is indicated when the classifier gives ``none`` a probability below this [1]; chosen in
-        training on cross-validated benign pairs to keep the stated false-alarm rate.
+        training on cross-validated benign pairs to keep the stated false-alarm rate. With
+        ``none_threshold_chopped`` set, it applies to comparisons of a full test shot only.
+    none_threshold_chopped : float or None
+        The same for comparisons whose test shot is chopped (the test voltage's collapse found, feature
+        ``td_test_collapse``), chosen on those benign pairs alone, so that the false-alarm rate holds for
+        each kind of comparison rather than for the training set's mixture of them; None: ``none_threshold``
+        for every comparison (models trained before it, or on too few chopped benign pairs).
     instant_input_names : sequence of str
         Names of the inputs measured at the fault instant the locator was trained on
         (:data:`detector.features.INSTANT_INPUT_NAMES` when it was trained; empty if none).
@@ -631,6 +663,27 @@ class ShotModel:
     timer: InstantRegressor | None = None
     none_threshold: float = 0.5
     instant_input_names: Sequence[str] = ()
+    none_threshold_chopped: float | None = None
+
+    def none_thresholds(self, X: np.ndarray) -> np.ndarray:
+        """The threshold on P(none) that applies to each row of ``X`` [1].
+
+        Parameters
+        ----------
+        X : numpy.ndarray, shape (n_samples, n_features)
+            Feature vectors in :attr:`feature_names` order.
+
+        Returns
+        -------
+        numpy.ndarray, shape (n_samples,)
+            ``none_threshold_chopped`` where the test shot is chopped (``td_test_collapse`` is 1) and that
+            threshold is set, else ``none_threshold``.
+        """
+        X = np.atleast_2d(np.asarray(X, dtype=np.float64))
+        out = np.full(X.shape[0], float(self.none_threshold))
+        if self.none_threshold_chopped is not None:
+            out[chopped_test(X, self.feature_names)] = float(self.none_threshold_chopped)
+        return out
 
     def locator_input(self, X: np.ndarray, instant_us: np.ndarray | None,
                       at_instant: np.ndarray | None = None) -> np.ndarray:
@@ -740,6 +793,8 @@ def save_model(model: ShotModel, path: str | Path) -> None:
         "locator": model.locator,
         "timer": model.timer,
         "none_threshold": float(model.none_threshold),
+        "none_threshold_chopped": (None if model.none_threshold_chopped is None
+                                   else float(model.none_threshold_chopped)),
         "instant_input_names": [str(n) for n in model.instant_input_names],
     }
     with _fastpredict.detached(model):  # the file holds scikit-learn's estimators as they are
@@ -862,8 +917,12 @@ def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotM
     thr = payload.get("none_threshold", 0.5)
     if not isinstance(thr, float) or not 0.0 < thr <= 1.0:
         raise ShotcheckError(f"{p}: 'none_threshold' must be a probability in (0, 1], got {thr!r}")
+    thr_c = payload.get("none_threshold_chopped")  # absent from files written before it
+    if thr_c is not None and (not isinstance(thr_c, float) or not 0.0 < thr_c <= 1.0):
+        raise ShotcheckError(f"{p}: 'none_threshold_chopped' must be a probability in (0, 1] or null, got {thr_c!r}")
     model = ShotModel(
         none_threshold=thr,
+        none_threshold_chopped=thr_c,
         timer=timer,
         classifier=clf,
         locator=loc,

@@ -33,7 +33,7 @@ from .features import (
     instant_inputs,
     sharp_onset_after_front_us,
 )
-from .model import EVENT_CLASSES, FaultClassifier, InstantRegressor, LocationRegressor, ShotModel
+from .model import EVENT_CLASSES, FaultClassifier, InstantRegressor, LocationRegressor, ShotModel, chopped_test
 from .scoring import calibrate_thresholds, decisive_exceeded, decisive_thresholds, false_alarm_rate
 
 __all__ = ["extract_dataset", "train", "evaluate", "LabelledFeatures"]
@@ -366,7 +366,8 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
                              f"{MIN_PAIRS_PER_CLASS} of each class present are needed, and hundreds for a "
                              "useful model (make more with `shotcheck synth --cases N`)")
     report: dict[str, Any] = {}
-    none_threshold = 0.5
+    none_threshold, none_threshold_chopped = 0.5, None
+    chopped = chopped_test(X, FEATURE_NAMES)
     rel = data.fault_time_us - data.front_us  # target of the instant regressor [us after the front]
     located = (y != "none") & np.isfinite(pos)
     folds = list(GroupKFold(n_splits=cv_folds).split(X, y, groups)) if cv_folds and cv_folds >= 2 else []
@@ -422,10 +423,12 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
                 else:
                     Xl_tr, Xl_te = X[tr], X[te]
                 loc[te] = LocationRegressor(random_state=seed).fit(Xl_tr[fa], pos[tr][fa]).predict(Xl_te)
-        none_threshold = operating_point(proba[y == "none", 0], false_alarm_rate_target)
-        pred = cross_fitted_decisions(proba, y == "none", folds, false_alarm_rate_target, X=X)
+        none_threshold, none_threshold_chopped = kind_operating_points(proba[:, 0], y == "none", chopped,
+                                                                       false_alarm_rate_target)
+        pred = cross_fitted_decisions(proba, y == "none", folds, false_alarm_rate_target, X=X, chopped=chopped)
         report = _figures(data, proba, pred, loc, data.front_us + inst_rel)
         report["none_threshold"] = none_threshold
+        report["none_threshold_chopped"] = none_threshold_chopped
         report["cv_folds"] = cv_folds
     benign = X[y == "none"]
     thresholds = calibrate_thresholds(benign, false_alarm_rate=false_alarm_rate_target) if benign.shape[0] >= 10 else {}
@@ -454,8 +457,9 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
                                                                    ", " + ", ".join(INSTANT_INPUT_NAMES))),
     }
     card["none_threshold"] = none_threshold
+    card["none_threshold_chopped"] = none_threshold_chopped
     model = ShotModel(clf, locator, FEATURE_NAMES, SCHEMA_VERSION, thresholds, card, timer, none_threshold,
-                      INSTANT_INPUT_NAMES if at is not None else ())
+                      INSTANT_INPUT_NAMES if at is not None else (), none_threshold_chopped)
     return model, report
 
 
@@ -483,7 +487,8 @@ def _out_of_fold_instants(X: np.ndarray, rel: np.ndarray, y: np.ndarray, groups:
     return out
 
 
-def _decide(proba: np.ndarray, none_threshold: float = 0.5, forced: np.ndarray | None = None) -> np.ndarray:
+def _decide(proba: np.ndarray, none_threshold: float | np.ndarray = 0.5, forced: np.ndarray | None = None
+            ) -> np.ndarray:
     out = np.empty(proba.shape[0], dtype=object)
     fault = proba[:, 0] < none_threshold
     if forced is not None:  # a decisive feature above its threshold (scoring.DECISIVE)
@@ -623,7 +628,8 @@ def _instant(X: np.ndarray, timer: InstantRegressor) -> np.ndarray:
 
 
 def cross_fitted_decisions(proba: np.ndarray, benign: np.ndarray, folds: list[tuple[np.ndarray, np.ndarray]],
-                           false_alarm_rate: float, *, X: np.ndarray | None = None) -> np.ndarray:
+                           false_alarm_rate: float, *, X: np.ndarray | None = None,
+                           chopped: np.ndarray | None = None) -> np.ndarray:
     """Decisions for the cross-validated figures, each fold's at a threshold set without its rows.
 
     The model's threshold is set on all out-of-fold benign probabilities (:func:`operating_point`); scored
@@ -644,6 +650,9 @@ def cross_fitted_decisions(proba: np.ndarray, benign: np.ndarray, folds: list[tu
     X : numpy.ndarray, shape (n, len(FEATURE_NAMES)), optional
         Feature matrix: with it, each fold's rows are also faults where a decisive feature exceeds the
         threshold the other folds' benign rows give (:func:`detector.scoring.decisive_thresholds`).
+    chopped : numpy.ndarray of bool, shape (n,), optional
+        Rows whose test shot is chopped (:func:`detector.model.chopped_test`): with it, each kind of
+        comparison is decided at its own threshold as the model sets them (:func:`kind_operating_points`).
 
     Returns
     -------
@@ -652,7 +661,13 @@ def cross_fitted_decisions(proba: np.ndarray, benign: np.ndarray, folds: list[tu
     """
     pred = np.empty(proba.shape[0], dtype=object)
     for tr, te in folds:
-        thr = operating_point(proba[tr][benign[tr], 0], false_alarm_rate)
+        if chopped is None:
+            thr: float | np.ndarray = operating_point(proba[tr][benign[tr], 0], false_alarm_rate)
+        else:
+            thr_full, thr_chopped = kind_operating_points(proba[tr, 0], benign[tr], chopped[tr], false_alarm_rate)
+            thr = np.full(te.size, thr_full)
+            if thr_chopped is not None:
+                thr[chopped[te]] = thr_chopped
         forced = None
         if X is not None and benign[tr].any():
             forced = decisive_exceeded(X[te], decisive_thresholds(X[tr][benign[tr]]))
@@ -683,12 +698,57 @@ def operating_point(p_none_benign: np.ndarray, false_alarm_rate: float) -> float
     return float(min(max(thr, 1e-6), 0.5))
 
 
+#: Fewest benign pairs of each kind of comparison (full or chopped test shot), in false alarms' worth at
+#: the target rate, for each kind to get its own threshold: 10 (1000 pairs at 1 %), so that the tail
+#: it is set in holds ten pairs, not one or two.
+MIN_FALSE_ALARMS_PER_KIND = 10
+
+
+def kind_operating_points(p_none: np.ndarray, benign: np.ndarray, chopped: np.ndarray, false_alarm_rate: float
+                          ) -> tuple[float, float | None]:
+    """Thresholds on P(none) for comparisons of a full and of a chopped test shot, each at the target rate.
+
+    Chopped test shots hold more that no prediction from a full or chopped reference fully explains
+    (the chop's oscillation, chopping-time scatter), so one threshold over both kinds gives them more
+    than the target rate of false alarms and full shots fewer (cross-validated on the bundled training
+    set: 1.5-1.6 % against 0.45 %). Each kind's own threshold keeps the rate for each, whatever the
+    share of chopped shots in the training set or in a lab's use.
+
+    Parameters
+    ----------
+    p_none : numpy.ndarray, shape (n,)
+        Cross-validated probability of ``none`` of each row [1].
+    benign : numpy.ndarray of bool, shape (n,)
+        Rows without a fault.
+    chopped : numpy.ndarray of bool, shape (n,)
+        Rows whose test shot is chopped (:func:`detector.model.chopped_test`).
+    false_alarm_rate : float
+        Target share of benign pairs indicated as faults, for each kind [1].
+
+    Returns
+    -------
+    none_threshold : float
+        For full test shots; for all comparisons when the second value is None.
+    none_threshold_chopped : float or None
+        For chopped test shots; None when either kind has fewer than
+        ``MIN_FALSE_ALARMS_PER_KIND / false_alarm_rate`` benign pairs (then one threshold over all).
+    """
+    p_none = np.asarray(p_none, dtype=float)
+    benign = np.asarray(benign, dtype=bool)
+    chopped = np.asarray(chopped, dtype=bool)
+    need = MIN_FALSE_ALARMS_PER_KIND / max(false_alarm_rate, 1e-12)
+    if min(int((benign & chopped).sum()), int((benign & ~chopped).sum())) < need:
+        return operating_point(p_none[benign], false_alarm_rate), None
+    return (operating_point(p_none[benign & ~chopped], false_alarm_rate),
+            operating_point(p_none[benign & chopped], false_alarm_rate))
+
+
 def _predict(model: ShotModel, X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     p = model.classifier.predict_proba(X)
     proba = np.zeros((X.shape[0], len(EVENT_CLASSES)))
     for k, c in enumerate(model.classifier.classes_):
         proba[:, EVENT_CLASSES.index(str(c))] = p[:, k]
-    return proba, _decide(proba, model.none_threshold, decisive_exceeded(X, model.thresholds))
+    return proba, _decide(proba, model.none_thresholds(X), decisive_exceeded(X, model.thresholds))
 
 
 def _by_effect(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:

@@ -174,6 +174,19 @@ def test_round_trip_keeps_predictions_and_card(tmp_path):
     np.testing.assert_array_equal(m2.locator.predict(X), m.locator.predict(X))
     assert m2.thresholds == {"f0": 1.5}
     assert m2.card["training"] == "toy" and "sklearn_version" in m2.card
+    assert m2.none_threshold_chopped is None  # one threshold for every comparison, as saved
+    m.none_threshold, m.none_threshold_chopped = 0.25, 0.125
+    save_model(m, p)
+    m3 = load_model(p, expected_schema="test-1")
+    assert (m3.none_threshold, m3.none_threshold_chopped) == (0.25, 0.125)
+
+
+def test_a_chopped_threshold_outside_0_1_is_refused(tmp_path):
+    m, _ = _model()
+    m.none_threshold_chopped = 1.5
+    save_model(m, tmp_path / "bad.skops")
+    with pytest.raises(ShotcheckError, match="none_threshold_chopped"):
+        load_model(tmp_path / "bad.skops")
 
 
 def test_model_file_leaves_out_training_statistics(tmp_path):

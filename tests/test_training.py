@@ -11,7 +11,8 @@ import numpy as np
 import pytest
 
 from detector._validation import ShotcheckError
-from detector.features import FEATURE_NAMES
+from detector.features import FEATURE_NAMES, SCHEMA_VERSION
+from detector.model import ShotModel
 from detector.scoring import DECISIVE
 from detector.training import (
     COMPARISONS,
@@ -114,6 +115,9 @@ def test_the_locator_takes_the_instant_and_each_onsets_delay(trained):
 def test_the_model_keeps_the_threshold_of_all_out_of_fold_benign_pairs(trained):
     model, cv = trained
     assert model.none_threshold == pytest.approx(cv["none_threshold"])
+    # 60 benign pairs are far from 1000 of each kind of comparison: one threshold over all
+    assert model.none_threshold_chopped is None and cv["none_threshold_chopped"] is None
+    assert model.card["none_threshold_chopped"] is None
     assert cv["detection_rate"]["to_ground"] > 0.5  # the classes are separable: far above chance
 
 
@@ -146,6 +150,71 @@ def test_cross_validated_false_alarms_are_measured_not_met_by_construction():
         want = _decide(proba[te], operating_point(p_none[tr], 0.01))
         assert list(pred[te]) == list(want)
     assert np.mean(pred != "none") > 0.05  # the third fold: about a third of its pairs below 0.3
+
+
+def _two_kinds(n_per_kind: int, seed: int = 5):
+    """Benign P(none) of full test shots (uniform 0.3..1) and chopped ones (uniform 0.1..1: less sure)."""
+    rng = np.random.default_rng(seed)
+    chopped = np.repeat([False, True], n_per_kind)
+    p_none = np.where(chopped, rng.uniform(0.1, 1.0, 2 * n_per_kind), rng.uniform(0.3, 1.0, 2 * n_per_kind))
+    return p_none, chopped
+
+
+def test_each_kind_of_comparison_gets_its_own_threshold():
+    """One threshold over a mixture gives the less sure kind (chopped test shots) more than the target
+    and the other kind less; each kind's own threshold keeps the target for each."""
+    from detector.training import kind_operating_points
+
+    p_none, chopped = _two_kinds(3000)
+    benign = np.ones(p_none.size, dtype=bool)
+    pooled = operating_point(p_none, 0.01)
+    assert np.mean(p_none[chopped] < pooled) > 0.015 and np.mean(p_none[~chopped] < pooled) < 0.005
+    full, chop = kind_operating_points(p_none, benign, chopped, 0.01)
+    assert chop is not None and chop < full  # the less sure kind is held to a lower P(none)
+    for sel, thr in ((~chopped, full), (chopped, chop)):
+        assert 0.009 <= np.mean(p_none[sel] < thr) <= 0.01
+    # too few of a kind (fewer than 10 false alarms' worth: 1000 at 1 %): one threshold over all
+    few = np.concatenate([np.flatnonzero(~chopped), np.flatnonzero(chopped)[:999]])
+    assert kind_operating_points(p_none[few], benign[few], chopped[few], 0.01) == (
+        operating_point(p_none[few], 0.01), None)
+    # faults never set a threshold
+    faults = np.concatenate([p_none, np.zeros(500)])
+    flags = np.concatenate([benign, np.zeros(500, dtype=bool)])
+    kinds = np.concatenate([chopped, np.ones(500, dtype=bool)])
+    assert kind_operating_points(faults, flags, kinds, 0.01) == (full, chop)
+
+
+def test_cross_validated_decisions_take_each_kinds_threshold_from_the_other_folds():
+    from detector.training import kind_operating_points
+
+    p_none, chopped = _two_kinds(4500, seed=6)
+    n = p_none.size
+    folds_of = np.arange(n) % 3
+    folds = [(np.flatnonzero(folds_of != k), np.flatnonzero(folds_of == k)) for k in range(3)]
+    benign = np.ones(n, dtype=bool)
+    proba = np.column_stack([p_none, (1 - p_none) / 3, (1 - p_none) / 3, (1 - p_none) / 3])
+    pred = cross_fitted_decisions(proba, benign, folds, 0.01, chopped=chopped)
+    for tr, te in folds:
+        full, chop = kind_operating_points(p_none[tr], benign[tr], chopped[tr], 0.01)
+        thr = np.where(chopped[te], chop, full)
+        assert list(pred[te]) == list(_decide(proba[te], thr))
+    for sel in (chopped, ~chopped):  # measured, so near the target rather than at it by construction
+        assert 0.005 < np.mean(pred[sel] != "none") < 0.015
+    # without the kinds: one threshold, under which the chopped shots raise more false alarms
+    one = cross_fitted_decisions(proba, benign, folds, 0.01)
+    assert np.mean(one[chopped] != "none") > 0.015
+
+
+def test_a_model_applies_the_chopped_threshold_where_the_test_voltage_collapsed():
+    from detector.model import CHOPPED_TEST_FEATURE
+
+    X = np.zeros((3, len(FEATURE_NAMES)))
+    X[1, FEATURE_NAMES.index(CHOPPED_TEST_FEATURE)] = 1.0
+    X[2, FEATURE_NAMES.index(CHOPPED_TEST_FEATURE)] = np.nan  # not measured: a full shot's threshold
+    model = ShotModel(None, None, FEATURE_NAMES, SCHEMA_VERSION, none_threshold=0.2)
+    np.testing.assert_array_equal(model.none_thresholds(X), [0.2, 0.2, 0.2])
+    model.none_threshold_chopped = 0.1
+    np.testing.assert_array_equal(model.none_thresholds(X), [0.2, 0.1, 0.2])
 
 
 def test_cross_validated_decisions_take_the_decisive_features_at_each_folds_own_thresholds():

@@ -33,7 +33,14 @@ from .features import (
     instant_inputs,
     sharp_onset_after_front_us,
 )
-from .model import EVENT_CLASSES, FaultClassifier, InstantRegressor, LocationRegressor, ShotModel, chopped_test
+from .model import (
+    EVENT_CLASSES,
+    FaultClassifier,
+    InstantRegressor,
+    LocationRegressor,
+    ShotModel,
+    chopped_test,
+)
 from .scoring import calibrate_thresholds, decisive_exceeded, decisive_thresholds, false_alarm_rate
 
 __all__ = ["extract_dataset", "train", "evaluate", "LabelledFeatures"]
@@ -570,6 +577,9 @@ def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float 
     rep = _evaluate_subset(model, _subset(full, full.effect_lsb >= min_effect_lsb))
     rep["min_effect_lsb"] = min_effect_lsb
     rep["n_failed_extractions"] = n_failed
+    rep["none_threshold"] = float(model.none_threshold)
+    rep["none_threshold_chopped"] = (None if model.none_threshold_chopped is None
+                                     else float(model.none_threshold_chopped))
     rep["all_faults_including_invisible"] = {
         k: v for k, v in _evaluate_subset(model, full).items() if k in ("detection_rate", "n_pairs")
     }
@@ -804,6 +814,11 @@ def report_text(rep: dict[str, Any]) -> str:
         if per:
             lines.append(" " * 31 + "by class: " + ", ".join(
                 f"{c} {'-' if x is None else f'{x:.3f}'}{unit if x is not None else ''}" for c, x in per.items()))
+    if rep.get("none_threshold") is not None:
+        thr = rep["none_threshold"]
+        chop = rep.get("none_threshold_chopped")
+        lines.append("fault indicated below P(none) " + (f"{thr:.4f}" if chop is None else
+                                                         f"{thr:.4f} (full test shots), {chop:.4f} (chopped)"))
     byc = rep.get("by_comparison")
     if byc:
         classes = list(next(iter(byc.values()))["detection_rate"])

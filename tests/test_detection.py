@@ -178,11 +178,12 @@ def test_a_burst_late_in_the_tail_is_indicated_after_the_compensated_span():
                                          for ch in c.test.channels), step="late burst")
     model = default_model()
     deaf = copy.copy(model)
-    deaf.none_threshold = 1e-12  # the classifier alone indicates nothing
+    deaf.none_threshold = deaf.none_threshold_chopped = 1e-12  # the classifier alone indicates nothing
     for m in (model, deaf):
         v = compare(c.reference, late, model=m)
         assert v.fault_indicated
         assert any(e["metric"] in DECISIVE for e in v.exceeded)
+        assert v.model["none_threshold"] == m.none_threshold  # a full test shot's threshold
         alone = v.probabilities["none"] >= m.none_threshold
         assert alone == any("after the span the compensated prediction covers" in w for w in v.warnings)
         assert alone == (m is deaf)
@@ -215,6 +216,11 @@ def test_a_chopped_shot_against_a_full_reference_carries_the_sensitivity_warning
     assert CHOPPED_AGAINST_FULL_WARNING in full_ref.warnings
     assert CHOPPED_AGAINST_FULL_WARNING not in chopped_ref.warnings
     assert CHOPPED_AGAINST_FULL_WARNING not in both_full.warnings
+    # each kind of comparison is decided at its own threshold (the bundled model has both)
+    m = default_model()
+    assert m.none_threshold_chopped is not None
+    assert full_ref.model["none_threshold"] == chopped_ref.model["none_threshold"] == m.none_threshold_chopped
+    assert both_full.model["none_threshold"] == m.none_threshold
     # a reduced-level chopped wave compared with the reduced full wave is the chopped reference's own
     # check, not a test shot: no advice to use a chopped reference
     import dataclasses

@@ -100,6 +100,8 @@ def test_evaluation_counts_match_the_models_decisions(trained):
     text = report_text(rep)
     assert "full reference, chopped test" in text and "confusion matrix" in text
     assert text.count("by class: turn_to_turn") == 2
+    assert rep["none_threshold"] == model.none_threshold and rep["none_threshold_chopped"] is None
+    assert f"fault indicated below P(none) {model.none_threshold:.4f}\n" in text
 
 
 def test_the_locator_takes_the_instant_and_each_onsets_delay(trained):

@@ -33,7 +33,7 @@ from .features import (
     instant_inputs,
     sharp_onset_after_front_us,
 )
-from .model import EVENT_CLASSES, ShotModel, load_model, missing_model_error
+from .model import EVENT_CLASSES, ShotModel, chopped_test, load_model, missing_model_error
 from .record import Record
 from .scoring import DECISIVE, exceeded
 from .waveshape import WaveShape
@@ -94,7 +94,9 @@ class Verdict:
         All measurements (for reports).
     warnings : tuple of str
     model : dict
-        Name, schema version and creation time of the model used.
+        Name, schema version and creation time of the model used, the decision threshold on P(none) it
+        applied (``none_threshold`` [1]) and the kind of comparison that threshold is for
+        (``none_threshold_kind``: ``"full test shots"``, ``"chopped test shots"`` or ``"all comparisons"``).
     """
 
     fault_indicated: bool
@@ -244,6 +246,10 @@ def compare(
     over = exceeded(a.features, m.thresholds)
     decisive = [e for e in over if e["metric"] in DECISIVE]
     none_threshold = float(m.none_thresholds(x)[0])  # the one of this kind of comparison (full or chopped)
+    if m.none_threshold_chopped is None:
+        threshold_kind = "all comparisons"
+    else:
+        threshold_kind = "chopped test shots" if bool(chopped_test(x, m.feature_names)[0]) else "full test shots"
     by_decisive_alone = bool(decisive) and probs["none"] >= none_threshold
     fault = probs["none"] < none_threshold or by_decisive_alone
     event = "none"
@@ -288,6 +294,7 @@ def compare(
         "name": str(m.card.get("name", "custom")),
         "schema_version": m.schema_version,
         "none_threshold": none_threshold,
+        "none_threshold_kind": threshold_kind,
         "created": m.card.get("created"),
     }
     return Verdict(fault, event, probs, t_fault, None if loc is None or not math.isfinite(loc) else loc,

@@ -229,6 +229,16 @@ def figure_data_uri(fig: Figure, *, dpi: float = 100.0) -> str:
 # --------------------------------------------------------------------------------------------------
 # sections
 # --------------------------------------------------------------------------------------------------
+def _decision_text(probs: Mapping[str, float], model: Mapping[str, Any]) -> str:
+    """P(none) against the threshold the model applied to this kind of comparison (HTML)."""
+    thr = model.get("none_threshold")
+    if thr is None or probs.get("none") is None:
+        return '<span class="na">not recorded</span>'
+    kind = model.get("none_threshold_kind", "all comparisons")
+    return (f"probability of no fault {_num(probs['none'], '.3f')} against the threshold "
+            f"{_num(thr, '.3f')} for {_esc(kind)}; a fault is indicated below it")
+
+
 def _verdict_section(verdict: Verdict, fig_uri: str | None) -> str:
     d = verdict.to_dict()
     fault = bool(d["fault_indicated"])
@@ -249,6 +259,7 @@ def _verdict_section(verdict: Verdict, fig_uri: str | None) -> str:
         ("Fault instant", '<span class="na">—</span>' if t_us is None
          else f"{_num(t_us, '.3f')} µs on the test record's own time axis"),
         ("Location along the winding", loc_text),
+        ("Decision", _decision_text(probs, model)),
         ("Thresholds exceeded", f"{len(d['exceeded'])}"),
         ("Model", _esc(model.get("name", "unknown"))
          + f' <span class="na">(feature schema {_esc(model.get("schema_version", "?"))}'

@@ -72,6 +72,8 @@ def test_upload_two_files_and_see_the_verdict(tmp_path, model_path, record_files
                 page.wait_for_selector("#verdict-line", timeout=60_000)
                 line = page.inner_text("#verdict-line")
                 assert line.startswith(("Fault indicated", "No fault indicated")) and "(advisory)" in line
+                decision = page.inner_text("#decision-line")  # P(none) against the threshold it was decided at
+                assert decision.startswith("Decision: probability of no fault") and "a fault is indicated below it" in decision
                 rows = page.locator("#waveshape tbody tr")
                 assert rows.count() == 9
                 assert "lightning_" in rows.nth(0).inner_text()
@@ -93,7 +95,7 @@ def test_upload_two_files_and_see_the_verdict(tmp_path, model_path, record_files
                 assert "terminal 2V" in page.inner_text("#sequence-summary")
                 page.locator("#shots tbody tr").nth(1).locator("button.show-shot").click()  # that shot's verdict
                 page.wait_for_function("document.getElementById('verdict-line').textContent.includes('TX_05') || "
-                                       "document.querySelector('#verdict p:nth-child(3)').textContent.includes('TX_05')",
+                                       "document.getElementById('comparison-line').textContent.includes('TX_05')",
                                        timeout=30_000)
                 # the API page, with every request from outside the service refused (an offline lab)
                 outside: list[str] = []

@@ -52,7 +52,16 @@ function showVerdict(v) {
   const probs = document.createElement("p");
   text(probs, "Probabilities: " + Object.entries(v.probabilities).map(([k, x]) => k + " " + (100 * x).toFixed(1) + " %").join(", "));
   box.appendChild(probs);
+  if (v.model && v.model.none_threshold !== undefined && v.model.none_threshold !== null) {
+    const dec = document.createElement("p");
+    dec.id = "decision-line";
+    text(dec, "Decision: probability of no fault " + (100 * v.probabilities.none).toFixed(1) + " % against the threshold "
+      + (100 * v.model.none_threshold).toFixed(1) + " % for " + (v.model.none_threshold_kind || "all comparisons")
+      + "; a fault is indicated below it");
+    box.appendChild(dec);
+  }
   const ids = document.createElement("p");
+  ids.id = "comparison-line";
   text(ids, "Comparison " + v.id + ": " + v.reference_name + " vs " + v.test_name);
   box.appendChild(ids);
 

@@ -150,8 +150,8 @@ def verdict_text(d: dict[str, Any], reference: str, test: str) -> str:
     thr = (d.get("model") or {}).get("none_threshold")
     if thr is not None and d["probabilities"].get("none") is not None:
         kind = (d.get("model") or {}).get("none_threshold_kind", "all comparisons")
-        lines.append(f"  decision: P(none) {d['probabilities']['none']:.3f} against the threshold {thr:.3f} "
-                     f"for {kind}; a fault is indicated below it")
+        lines.append(f"  decision: P(none) {d['probabilities']['none']:.4f} against the threshold {thr:.4f} "
+                     f"for {kind}; a fault is indicated below it (or by a decisive metric alone)")
     if d.get("fault_time_us") is not None:
         lines.append(f"  fault instant: {d['fault_time_us']:.2f} us on the test record's time axis")
     if d.get("location") is not None:

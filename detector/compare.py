@@ -96,7 +96,7 @@ class Verdict:
     model : dict
         Name, schema version and creation time of the model used, the decision threshold on P(none) it
         applied (``none_threshold`` [1]) and the kind of comparison that threshold is for
-        (``none_threshold_kind``: ``"full test shots"``, ``"chopped test shots"`` or ``"all comparisons"``).
+        (``none_threshold_kind``: ``"full test shots"``, :data:`COLLAPSED_TEST_KIND` or ``"all comparisons"``).
     """
 
     fault_indicated: bool
@@ -128,6 +128,11 @@ class Verdict:
             "model": dict(self.model),
         }
 
+
+#: The kind of comparison a model's chopped-shot threshold is for, as a verdict names it: the test voltage
+#: collapsed, which a chop does and a breakdown that collapses the voltage does too (the threshold, set on
+#: benign chopped shots, is the stricter one; held-out, breakdowns to ground are still all detected).
+COLLAPSED_TEST_KIND = "test shots whose voltage collapsed (chopped, or broken down)"
 
 #: A chopped shot whose test voltage is at most this many times the full-wave reference's is taken for
 #: a reduced-level chopped wave (the future reference of the chopped shots), not for a test shot [1].
@@ -249,7 +254,7 @@ def compare(
     if m.none_threshold_chopped is None:
         threshold_kind = "all comparisons"
     else:
-        threshold_kind = "chopped test shots" if bool(chopped_test(x, m.feature_names)[0]) else "full test shots"
+        threshold_kind = (COLLAPSED_TEST_KIND if bool(chopped_test(x, m.feature_names)[0]) else "full test shots")
     by_decisive_alone = bool(decisive) and probs["none"] >= none_threshold
     fault = probs["none"] < none_threshold or by_decisive_alone
     event = "none"

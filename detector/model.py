@@ -648,7 +648,7 @@ class ShotModel:
         The same for comparisons whose test shot is chopped (the test voltage's collapse found, feature
         ``td_test_collapse``), chosen on those benign pairs alone, so that the false-alarm rate holds for
         each kind of comparison rather than for the training set's mixture of them; None: ``none_threshold``
-        for every comparison (models trained before it, or on too few chopped benign pairs).
+        for every comparison (models trained before it, or on too few benign pairs of either kind).
     instant_input_names : sequence of str
         Names of the inputs measured at the fault instant the locator was trained on
         (:data:`detector.features.INSTANT_INPUT_NAMES` when it was trained; empty if none).
@@ -920,6 +920,9 @@ def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotM
     thr_c = payload.get("none_threshold_chopped")  # absent from files written before it
     if thr_c is not None and (not isinstance(thr_c, float) or not 0.0 < thr_c <= 1.0):
         raise ShotcheckError(f"{p}: 'none_threshold_chopped' must be a probability in (0, 1] or null, got {thr_c!r}")
+    if thr_c is not None and CHOPPED_TEST_FEATURE not in payload.get("feature_names", ()):
+        raise ShotcheckError(f"{p}: the model has a threshold for chopped test shots but no feature "
+                             f"{CHOPPED_TEST_FEATURE!r} to tell them by; retrain it with `shotcheck train`")
     model = ShotModel(
         none_threshold=thr,
         none_threshold_chopped=thr_c,

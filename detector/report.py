@@ -235,8 +235,8 @@ def _decision_text(probs: Mapping[str, float], model: Mapping[str, Any]) -> str:
     if thr is None or probs.get("none") is None:
         return '<span class="na">not recorded</span>'
     kind = model.get("none_threshold_kind", "all comparisons")
-    return (f"probability of no fault {_num(probs['none'], '.3f')} against the threshold "
-            f"{_num(thr, '.3f')} for {_esc(kind)}; a fault is indicated below it")
+    return (f"probability of no fault {_num(probs['none'], '.4f')} against the threshold "
+            f"{_num(thr, '.4f')} for {_esc(kind)}; a fault is indicated below it (or by a decisive metric alone)")
 
 
 def _verdict_section(verdict: Verdict, fig_uri: str | None) -> str:

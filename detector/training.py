@@ -560,8 +560,9 @@ def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float 
         ``fault_time_error_median_us_by_class`` (each per fault class, over its detected faults),
         ``roc_auc``, ``roc``,
         ``threshold_false_alarm_rate``, ``detection_by_effect_lsb`` (all faults by the size of their
-        effect in recorder codes) and ``by_comparison`` (false alarms and detection per kind of
-        comparison: full or chopped reference and test shots).
+        effect in recorder codes), ``by_comparison`` (false alarms and detection per kind of
+        comparison: full or chopped reference and test shots), and the model's decision thresholds
+        ``none_threshold`` and ``none_threshold_chopped`` (None with one threshold for all) [1].
     """
     ok = _usable(data)
     n_failed = int((~ok).sum())
@@ -642,7 +643,8 @@ def cross_fitted_decisions(proba: np.ndarray, benign: np.ndarray, folds: list[tu
                            chopped: np.ndarray | None = None) -> np.ndarray:
     """Decisions for the cross-validated figures, each fold's at a threshold set without its rows.
 
-    The model's threshold is set on all out-of-fold benign probabilities (:func:`operating_point`); scored
+    The model's thresholds are set on all out-of-fold benign probabilities (:func:`operating_point`, or
+    :func:`kind_operating_points` for each kind of test shot); scored
     on those same rows, the false-alarm rate could never exceed the target. Here the rows of each fold are
     decided at the threshold the other folds' benign rows give, so the reported false-alarm rate (and the
     detection rates beside it) is measured, not met by construction.
@@ -721,7 +723,7 @@ def kind_operating_points(p_none: np.ndarray, benign: np.ndarray, chopped: np.nd
     Chopped test shots hold more that no prediction from a full or chopped reference fully explains
     (the chop's oscillation, chopping-time scatter), so one threshold over both kinds gives them more
     than the target rate of false alarms and full shots fewer (cross-validated on the bundled training
-    set: 1.5-1.6 % against 0.45 %). Each kind's own threshold keeps the rate for each, whatever the
+    set: 1.6 % against 0.4 %). Each kind's own threshold keeps the rate for each, whatever the
     share of chopped shots in the training set or in a lab's use.
 
     Parameters
@@ -738,9 +740,9 @@ def kind_operating_points(p_none: np.ndarray, benign: np.ndarray, chopped: np.nd
     Returns
     -------
     none_threshold : float
-        For full test shots; for all comparisons when the second value is None.
+        For full test shots; for all comparisons when the second value is None [1].
     none_threshold_chopped : float or None
-        For chopped test shots; None when either kind has fewer than
+        For chopped test shots [1]; None when either kind has fewer than
         ``MIN_FALSE_ALARMS_PER_KIND / false_alarm_rate`` benign pairs (then one threshold over all).
     """
     p_none = np.asarray(p_none, dtype=float)

@@ -221,13 +221,14 @@ def test_a_chopped_shot_against_a_full_reference_carries_the_sensitivity_warning
     assert m.none_threshold_chopped is not None
     assert full_ref.model["none_threshold"] == chopped_ref.model["none_threshold"] == m.none_threshold_chopped
     assert both_full.model["none_threshold"] == m.none_threshold
-    assert full_ref.model["none_threshold_kind"] == chopped_ref.model["none_threshold_kind"] == "chopped test shots"
-    assert both_full.model["none_threshold_kind"] == "full test shots"
     from detector.cli import verdict_text
+    from detector.compare import COLLAPSED_TEST_KIND
 
+    assert full_ref.model["none_threshold_kind"] == chopped_ref.model["none_threshold_kind"] == COLLAPSED_TEST_KIND
+    assert both_full.model["none_threshold_kind"] == "full test shots"
     text = verdict_text(full_ref.to_dict(), "ref", "test")
-    assert (f"decision: P(none) {full_ref.probabilities['none']:.3f} against the threshold "
-            f"{m.none_threshold_chopped:.3f} for chopped test shots") in text
+    assert (f"decision: P(none) {full_ref.probabilities['none']:.4f} against the threshold "
+            f"{m.none_threshold_chopped:.4f} for {COLLAPSED_TEST_KIND}") in text
     # a reduced-level chopped wave compared with the reduced full wave is the chopped reference's own
     # check, not a test shot: no advice to use a chopped reference
     import dataclasses

@@ -176,6 +176,7 @@ def test_round_trip_keeps_predictions_and_card(tmp_path):
     assert m2.card["training"] == "toy" and "sklearn_version" in m2.card
     assert m2.none_threshold_chopped is None  # one threshold for every comparison, as saved
     m.none_threshold, m.none_threshold_chopped = 0.25, 0.125
+    m.feature_names = ["f0", "f1", "f2", "f3", "td_test_collapse"]  # the feature that tells chopped shots
     save_model(m, p)
     m3 = load_model(p, expected_schema="test-1")
     assert (m3.none_threshold, m3.none_threshold_chopped) == (0.25, 0.125)
@@ -187,6 +188,15 @@ def test_a_chopped_threshold_outside_0_1_is_refused(tmp_path):
     save_model(m, tmp_path / "bad.skops")
     with pytest.raises(ShotcheckError, match="none_threshold_chopped"):
         load_model(tmp_path / "bad.skops")
+
+
+def test_a_chopped_threshold_without_the_feature_that_tells_chopped_shots_is_refused(tmp_path):
+    """Every row would silently take the full shots' threshold: refused on load instead."""
+    m, _ = _model()  # features f0..f4, no td_test_collapse
+    m.none_threshold_chopped = 0.1
+    save_model(m, tmp_path / "m.skops")
+    with pytest.raises(ShotcheckError, match="td_test_collapse"):
+        load_model(tmp_path / "m.skops")
 
 
 def test_model_file_leaves_out_training_statistics(tmp_path):

@@ -175,8 +175,8 @@ def test_report_holds_the_verdict_and_the_caution(fault_html, fault_case):
     for cls, p in d["probabilities"].items():
         assert f"{p:.3f}" in plain, cls
     assert d["model"]["name"] in plain
-    assert (f"probability of no fault {d['probabilities']['none']:.3f} against the threshold "
-            f"{d['model']['none_threshold']:.3f} for {d['model']['none_threshold_kind']}") in " ".join(plain.split())
+    assert (f"probability of no fault {d['probabilities']['none']:.4f} against the threshold "
+            f"{d['model']['none_threshold']:.4f} for {d['model']['none_threshold_kind']}") in " ".join(plain.split())
     for w in d["warnings"]:
         assert w in plain
     assert " ".join(SAFETY_CAUTION.split()) in " ".join(plain.split())

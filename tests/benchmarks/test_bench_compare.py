@@ -5,7 +5,10 @@ core. The assertion is a guard against the code getting slower, not a test of th
 this runs on differ in speed by a factor of three or more (the same code took 19 ms on one, 55-98 ms on
 another, whose own speed drifted by a third within minutes), so each run of ``compare`` is timed beside a
 fixed reference workload of the same kinds of work (:func:`reference_workload`) and the guard is on the
-ratio of their medians, which stayed within 5.0-6.3 where the times alone spread over 55-87 ms.
+ratio of their medians, which stayed within 4.6-6.3 on that machine where the times alone spread over
+55-103 ms. (How well the ratio carries over to other processors, whose FFTs and per-call overheads
+scale differently, is not yet measured; the times printed here follow a run of the workload, so they
+are not strictly comparable with earlier figures taken without it.)
 """
 
 from __future__ import annotations
@@ -25,9 +28,9 @@ pytestmark = pytest.mark.benchmark
 BUDGET_S = 0.030
 
 #: Largest median time of a comparison in units of the reference workload's median time. Measured on
-#: 2026-12-04 on a 2-core machine: 5.0-5.3 for the clean pair, 5.7-6.3 with the interference tone
-#: (three runs each); the limit leaves room for the scatter, and fails when the code gets some 60 %
-#: slower.
+#: 2026-12-04 on a 2-core machine: 4.6-5.3 for the clean pair, 5.7-6.3 with the interference tone
+#: (five runs each); the limit leaves room for the scatter, and fails when the code gets some 60 %
+#: slower for the pair with the tone, some 90 % for the clean pair.
 RATIO_LIMIT = 10.0
 
 

@@ -52,12 +52,12 @@ function showVerdict(v) {
   const probs = document.createElement("p");
   text(probs, "Probabilities: " + Object.entries(v.probabilities).map(([k, x]) => k + " " + (100 * x).toFixed(1) + " %").join(", "));
   box.appendChild(probs);
-  if (v.model && v.model.none_threshold !== undefined && v.model.none_threshold !== null) {
+  if (v.model && typeof v.model.none_threshold === "number" && typeof v.probabilities.none === "number") {
     const dec = document.createElement("p");
     dec.id = "decision-line";
-    text(dec, "Decision: probability of no fault " + (100 * v.probabilities.none).toFixed(1) + " % against the threshold "
-      + (100 * v.model.none_threshold).toFixed(1) + " % for " + (v.model.none_threshold_kind || "all comparisons")
-      + "; a fault is indicated below it");
+    text(dec, "Decision: probability of no fault " + (100 * v.probabilities.none).toFixed(2) + " % against the threshold "
+      + (100 * v.model.none_threshold).toFixed(2) + " % for " + (v.model.none_threshold_kind || "all comparisons")
+      + "; a fault is indicated below it (or by a decisive metric alone)");
     box.appendChild(dec);
   }
   const ids = document.createElement("p");

@@ -312,12 +312,12 @@ def with_detector(proba: np.ndarray, p_none: np.ndarray, classes: np.ndarray) ->
         total (equal shares where the four-class models gave them nothing).
     """
     out = np.array(proba, dtype=np.float64, copy=True)
-    k = int(np.flatnonzero(np.asarray(classes) == "none")[0])
-    rest = np.delete(out, k, axis=1)
+    fault = np.asarray(classes) != "none"
+    rest = out[:, fault]
     total = rest.sum(axis=1, keepdims=True)
     share = np.divide(rest, total, out=np.full_like(rest, 1.0 / rest.shape[1]), where=total > 0)
-    out[:, [j for j in range(out.shape[1]) if j != k]] = share * (1.0 - p_none)[:, None]
-    out[:, k] = p_none
+    out[:, fault] = share * (1.0 - p_none)[:, None]
+    out[:, ~fault] = np.asarray(p_none, dtype=np.float64)[:, None]
     return out
 
 

@@ -505,6 +505,12 @@ def _decide(proba: np.ndarray, none_threshold: float | np.ndarray = 0.5, forced:
     return out
 
 
+def _median_by_class(err: np.ndarray, counted: np.ndarray, y: np.ndarray) -> dict[str, float | None]:
+    """Median of ``err`` over the ``counted`` rows of each fault class (None where it has none)."""
+    return {c: (float(np.median(err[counted & (y == c)])) if (counted & (y == c)).any() else None)
+            for c in EVENT_CLASSES[1:]}
+
+
 def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: np.ndarray,
              instant_us: np.ndarray | None = None) -> dict[str, Any]:
     from sklearn.metrics import confusion_matrix, roc_auc_score, roc_curve
@@ -525,20 +531,17 @@ def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: n
         "counts": confusion_matrix(y, pred.astype(str), labels=list(EVENT_CLASSES)).tolist(),
     }
     fa = detected & np.isfinite(data.position) & np.isfinite(loc)
-    rep["location_error_median"] = float(np.median(np.abs(loc[fa] - data.position[fa]))) if fa.any() else None
-    rep["location_error_p90"] = float(np.quantile(np.abs(loc[fa] - data.position[fa]), 0.9)) if fa.any() else None
+    loc_err = np.abs(loc - data.position)
+    rep["location_error_median"] = float(np.median(loc_err[fa])) if fa.any() else None
+    rep["location_error_p90"] = float(np.quantile(loc_err[fa], 0.9)) if fa.any() else None
     # per class: the overall median is that of a mixture, and the classes differ by a factor of three
-    rep["location_error_median_by_class"] = {
-        c: (float(np.median(np.abs(loc[fa & (y == c)] - data.position[fa & (y == c)])))
-            if (fa & (y == c)).any() else None) for c in EVENT_CLASSES[1:]}
+    rep["location_error_median_by_class"] = _median_by_class(loc_err, fa, y)
     est = data.onset_us if instant_us is None else instant_us
     ft = detected & np.isfinite(data.fault_time_us) & np.isfinite(est)
-    errs = np.abs(est[ft] - data.fault_time_us[ft])
-    rep["fault_time_error_median_us"] = float(np.median(errs)) if errs.size else None
-    rep["fault_time_error_p90_us"] = float(np.quantile(errs, 0.9)) if errs.size else None
-    rep["fault_time_error_median_us_by_class"] = {
-        c: (float(np.median(np.abs(est[ft & (y == c)] - data.fault_time_us[ft & (y == c)])))
-            if (ft & (y == c)).any() else None) for c in EVENT_CLASSES[1:]}
+    t_err = np.abs(est - data.fault_time_us)
+    rep["fault_time_error_median_us"] = float(np.median(t_err[ft])) if ft.any() else None
+    rep["fault_time_error_p90_us"] = float(np.quantile(t_err[ft], 0.9)) if ft.any() else None
+    rep["fault_time_error_median_us_by_class"] = _median_by_class(t_err, ft, y)
     rep["fault_time_found_share"] = float(ft.sum() / max(1, detected.sum()))
     score = 1.0 - proba[:, 0]
     if none.any() and (~none).any():
@@ -672,14 +675,11 @@ def cross_fitted_decisions(proba: np.ndarray, benign: np.ndarray, folds: list[tu
         Decided event of each row.
     """
     pred = np.empty(proba.shape[0], dtype=object)
+    if chopped is None:  # one kind: kind_operating_points gives the one threshold over all benign rows
+        chopped = np.zeros(proba.shape[0], dtype=bool)
     for tr, te in folds:
-        if chopped is None:
-            thr: float | np.ndarray = operating_point(proba[tr][benign[tr], 0], false_alarm_rate)
-        else:
-            thr_full, thr_chopped = kind_operating_points(proba[tr, 0], benign[tr], chopped[tr], false_alarm_rate)
-            thr = np.full(te.size, thr_full)
-            if thr_chopped is not None:
-                thr[chopped[te]] = thr_chopped
+        thr_full, thr_chopped = kind_operating_points(proba[tr, 0], benign[tr], chopped[tr], false_alarm_rate)
+        thr = np.where(chopped[te], thr_full if thr_chopped is None else thr_chopped, thr_full)
         forced = None
         if X is not None and benign[tr].any():
             forced = decisive_exceeded(X[te], decisive_thresholds(X[tr][benign[tr]]))

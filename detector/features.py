@@ -55,7 +55,7 @@ __all__ = ["SCHEMA_VERSION", "FEATURE_NAMES", "WAVELET_LEVELS", "LOG_BANDS_HZ", 
            "INSTANT_INPUT_NAMES", "instant_inputs"]
 
 #: Version of the feature schema: bump it whenever a name, its order or its definition changes.
-SCHEMA_VERSION = "29"
+SCHEMA_VERSION = "30"
 
 #: Averaging lengths [samples] scored again after the core term is removed (it is slow).
 CORE_SCALES = (64, 256, 1024)
@@ -146,7 +146,7 @@ def _names() -> tuple[str, ...]:
     n += [f"vs_{_ns(s)}ns_z" for s in VOLTAGE_STEP_SCALES_S]
     n += [f"vs_{_ns(s)}ns_step_after_front_us" for s in VOLTAGE_STEP_SCALES_S]
     n += ["ws_front_time_change", "ws_time_to_half_change", "ws_test_voltage_ratio_change",
-          "noise_i_ref_ppm", "noise_i_test_ppm", "sample_rate_MHz"]
+          "noise_i_ref_ppm", "noise_i_test_ppm"]
     # time each current spends at a clipping limit (those samples are not compared): a healthy chopped
     # shot may clip in the oscillation after the chop, a large fault current anywhere
     n += ["clip_ref_current_us", "clip_test_current_us"]
@@ -763,7 +763,6 @@ def extract(
         _ratio_change(_overshoot_ratio(ws_r), _overshoot_ratio(ws_t)),
         1e6 * pair.ref_noise.current_mad_pu / peak_i,
         1e6 * pair.test_noise.current_mad_pu / peak_i,
-        1e-6 / dt,
         1e6 * pair.ref_clipped_current_s,
         1e6 * pair.test_clipped_current_s,
         *bursts,

@@ -141,7 +141,10 @@ def test_the_model_keeps_the_thresholds_of_all_out_of_fold_benign_pairs(trained)
     thr = model.none_thresholds(X)
     np.testing.assert_array_equal(thr, np.where(chopped, model.none_threshold_chopped, model.none_threshold))
     assert "(full test shots)" in report_text(cv) and "(chopped)" in report_text(cv)
-    assert cv["detection_rate"]["to_ground"] > 0.5  # the classes are separable: far above chance
+    # the classes are separable: far above chance. (Not a detection rate: each kind's threshold at 1 %
+    # of some 30 benign pairs is their lowest out-of-fold P(none), which one outlier row of the random
+    # features can put at the floor.)
+    assert cv["roc_auc"] > 0.9
 
 
 def test_training_takes_p_none_from_a_fault_detector_given_enough_pairs(trained):

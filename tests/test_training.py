@@ -54,16 +54,23 @@ def _data(n_per_class: int, seed: int) -> LabelledFeatures:
                             effect, front)
 
 
+def _told_chopped(data: LabelledFeatures) -> np.ndarray:
+    """Set the feature that tells a chopped test shot from each row's label; returns those rows."""
+    from detector.model import CHOPPED_TEST_FEATURE
+
+    chopped = np.array([lab["test_kind"] == "chopped" for lab in data.labels])
+    data.X[:, FEATURE_NAMES.index(CHOPPED_TEST_FEATURE)] = chopped.astype(float)
+    return chopped
+
+
 @pytest.fixture(scope="module")
 def trained():
     """A model trained on the toy rows, their test shots told chopped by their labels, with the rule for a
     threshold per kind of test shot lowered from 1000 benign pairs of each kind (at 1 %) to 20."""
     from detector import training
-    from detector.model import CHOPPED_TEST_FEATURE
 
     data = _data(60, 0)
-    chopped = np.array([lab["test_kind"] == "chopped" for lab in data.labels])
-    data.X[:, FEATURE_NAMES.index(CHOPPED_TEST_FEATURE)] = chopped.astype(float)
+    chopped = _told_chopped(data)
     assert min(int((chopped & (data.event == "none")).sum()), int((~chopped & (data.event == "none")).sum())) >= 20
     saved = training.MIN_FALSE_ALARMS_PER_KIND
     training.MIN_FALSE_ALARMS_PER_KIND = 0.2
@@ -83,12 +90,9 @@ def test_operating_point_keeps_the_false_alarm_share():
 
 
 def test_evaluation_counts_match_the_models_decisions(trained):
-    from detector.model import CHOPPED_TEST_FEATURE
-
     model, *_ = trained
     data = _data(40, 1)
-    chopped = np.array([lab["test_kind"] == "chopped" for lab in data.labels])
-    data.X[:, FEATURE_NAMES.index(CHOPPED_TEST_FEATURE)] = chopped.astype(float)  # each kind at its threshold
+    _told_chopped(data)  # each kind at its threshold
     rep = evaluate(model, data)
     visible = data.effect_lsb >= rep["min_effect_lsb"]
     _, pred = _predict(model, data.X[visible])

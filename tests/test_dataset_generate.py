@@ -43,7 +43,7 @@ def test_layout_labels_and_balance(small_set):
             assert lab["fault_time_us"] > 0
         assert 50 <= lab["reference_level_percent"] <= 75
         assert lab["bits"] in (10, 12, 14)
-        assert lab["sample_rate_Hz"] in (50e6, 100e6, 125e6, 200e6)
+        assert lab["sample_rate_Hz"] in (50e6, 100e6, 125e6, 200e6, 250e6)
 
 
 def test_records_round_trip_and_match_labels(small_set):

@@ -61,7 +61,7 @@ def test_sampled_scenarios_respect_the_family_ranges(name):
         for rec in (sc.recorder_reference, sc.recorder_test):
             assert rec["sample_rate_Hz"] in r["sample_rate_Hz"]
             assert rec["bits"] in r["bits"]
-            assert 50e6 <= rec["sample_rate_Hz"] <= 200e6 and 10 <= rec["bits"] <= 14
+            assert 50e6 <= rec["sample_rate_Hz"] <= 250e6 and 10 <= rec["bits"] <= 14
             assert rec["bandwidth_Hz"] <= 0.4 * rec["sample_rate_Hz"]
         assert sc.recorder_reference["sample_rate_Hz"] == sc.recorder_test["sample_rate_Hz"]
         n = wd["n_sections"]

@@ -262,13 +262,17 @@ def _cmd_sensitivity(args: argparse.Namespace) -> int:
     model = default_model(args.model)
     turns = [int(x) for x in args.turns.split(",")]
     res = sensitivity_turns(model, args.out, turns=turns, cases=args.cases, seed=args.seed, workers=args.workers)
-    print("shorted turns of 1000 (12 bits, 100 MS/s): detected / false alarms")
+    print("shorted turns of 1000 (12 bits, 100 MS/s): detected / false alarms "
+          f"(in brackets: {100 * res['confidence_level']:g} % confidence interval)")
     for k, r in res["per_turns"].items():
-        print(f"  {k:>4}  ({100 * r['fraction_of_winding']:.1f} %)  {r['detected']:.3f} / {r['false_alarms']:.3f}  "
-              f"n={r['n']}")
+        ci, fi = r["detected_interval"], r["false_alarms_interval"]
+        print(f"  {k:>4}  ({100 * r['fraction_of_winding']:.1f} %)  {r['detected']:.3f}"
+              + ("" if ci is None else f" [{ci[0]:.2f}, {ci[1]:.2f}]") + f" / {r['false_alarms']:.3f}"
+              + ("" if fi is None else f" [{fi[0]:.3f}, {fi[1]:.3f}]") + f"  n={r['n']}")
         print("        " + "; ".join(f"{name} {b['detected']:.2f} of {b['n_faults']}"
                                      for name, b in r.get("by_comparison", {}).items()))
-    print(f"smallest short detected in 95 % of cases: {res['smallest_detected_95']} turn(s)")
+    print(f"smallest short detected in 95 % of cases: {res['smallest_detected_95']} turn(s); "
+          f"shown to be detected in at least 95 % (the interval's lower bound): {res['smallest_shown_95']} turn(s)")
     if args.json_out:
         save_report(res, args.json_out)
     return 0

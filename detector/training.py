@@ -42,6 +42,7 @@ from .model import (
     chopped_test,
 )
 from .scoring import calibrate_thresholds, decisive_exceeded, decisive_thresholds, false_alarm_rate
+from .uncertainty import LEVEL, median_interval, proportion_interval, target_status
 
 __all__ = ["extract_dataset", "train", "evaluate", "LabelledFeatures"]
 
@@ -511,21 +512,44 @@ def _median_by_class(err: np.ndarray, counted: np.ndarray, y: np.ndarray) -> dic
             for c in EVENT_CLASSES[1:]}
 
 
+def _count(hits: np.ndarray) -> dict[str, int]:
+    """Successes and trials of a boolean array (``{"k": ..., "n": ...}``)."""
+    return {"k": int(np.count_nonzero(hits)), "n": int(hits.size)}
+
+
+def _rate_interval(hits: np.ndarray) -> list[float] | None:
+    """Exact confidence interval of the rate of ``True`` in ``hits`` (None if empty)."""
+    return list(proportion_interval(int(np.count_nonzero(hits)), int(hits.size))) if hits.size else None
+
+
+def _median_ci(values: np.ndarray) -> list[float] | None:
+    """Confidence interval of the median of ``values`` (None if too few values)."""
+    lo, hi = median_interval(values)
+    return None if not (math.isfinite(lo) and math.isfinite(hi)) else [lo, hi]
+
+
 def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: np.ndarray,
              instant_us: np.ndarray | None = None) -> dict[str, Any]:
     from sklearn.metrics import confusion_matrix, roc_auc_score, roc_curve
 
     y = data.event
-    rep: dict[str, Any] = {"n_pairs": int(y.size)}
-    det = {}
+    rep: dict[str, Any] = {"n_pairs": int(y.size), "confidence_level": LEVEL}
+    det, det_n, det_ci = {}, {}, {}
     for c in EVENT_CLASSES[1:]:
         sel = y == c
         det[c] = float((pred[sel] != "none").mean()) if sel.any() else None
+        det_n[c] = _count(pred[sel] != "none")
+        det_ci[c] = _rate_interval(pred[sel] != "none")
     rep["detection_rate"] = det
+    rep["detection_counts"] = det_n
+    rep["detection_rate_interval"] = det_ci
     none = y == "none"
     rep["false_alarm_rate"] = float((pred[none] != "none").mean()) if none.any() else None
+    rep["false_alarm_counts"] = _count(pred[none] != "none")
+    rep["false_alarm_rate_interval"] = _rate_interval(pred[none] != "none")
     detected = (y != "none") & (pred != "none")
     rep["class_accuracy_on_detected"] = float((pred[detected] == y[detected]).mean()) if detected.any() else None
+    rep["class_accuracy_interval"] = _rate_interval(pred[detected] == y[detected])
     rep["confusion_matrix"] = {
         "labels": list(EVENT_CLASSES),
         "counts": confusion_matrix(y, pred.astype(str), labels=list(EVENT_CLASSES)).tolist(),
@@ -533,6 +557,7 @@ def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: n
     fa = detected & np.isfinite(data.position) & np.isfinite(loc)
     loc_err = np.abs(loc - data.position)
     rep["location_error_median"] = float(np.median(loc_err[fa])) if fa.any() else None
+    rep["location_error_median_interval"] = _median_ci(loc_err[fa])
     rep["location_error_p90"] = float(np.quantile(loc_err[fa], 0.9)) if fa.any() else None
     # per class: the overall median is that of a mixture, and the classes differ by a factor of three
     rep["location_error_median_by_class"] = _median_by_class(loc_err, fa, y)
@@ -540,6 +565,7 @@ def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: n
     ft = detected & np.isfinite(data.fault_time_us) & np.isfinite(est)
     t_err = np.abs(est - data.fault_time_us)
     rep["fault_time_error_median_us"] = float(np.median(t_err[ft])) if ft.any() else None
+    rep["fault_time_error_median_interval_us"] = _median_ci(t_err[ft])
     rep["fault_time_error_p90_us"] = float(np.quantile(t_err[ft], 0.9)) if ft.any() else None
     rep["fault_time_error_median_us_by_class"] = _median_by_class(t_err, ft, y)
     rep["fault_time_found_share"] = float(ft.sum() / max(1, detected.sum()))
@@ -566,6 +592,10 @@ def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float 
         effect in recorder codes), ``by_comparison`` (false alarms and detection per kind of
         comparison: full or chopped reference and test shots), and the model's decision thresholds
         ``none_threshold`` and ``none_threshold_chopped`` (None with one threshold for all) [1].
+        Rates come with their counts (``detection_counts``, ``false_alarm_counts``: ``k`` of ``n``)
+        and exact confidence intervals at ``confidence_level`` (``*_interval``, [low, high]), medians
+        with distribution-free ones (:mod:`detector.uncertainty`); ``targets`` reads each of
+        :data:`QUALITY_TARGETS` against its interval (:func:`target_checks`).
     """
     ok = _usable(data)
     n_failed = int((~ok).sum())
@@ -589,7 +619,65 @@ def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float 
     }
     rep["detection_by_effect_lsb"] = _by_effect(model, full)
     rep["by_comparison"] = _by_comparison(model, _subset(full, full.effect_lsb >= min_effect_lsb))
+    rep["targets"] = target_checks(rep)
     return rep
+
+
+#: The quality the bundled model is to reach on a held-out set (README, "Measured quality of the bundled
+#: model"): name, the evaluation report's value and interval keys, the target, and which side is good.
+QUALITY_TARGETS: tuple[tuple[str, tuple[str, ...], tuple[str, ...], float, str], ...] = (
+    ("detection rate, turn_to_turn", ("detection_rate", "turn_to_turn"),
+     ("detection_rate_interval", "turn_to_turn"), 0.98, "higher"),
+    ("detection rate, to_ground", ("detection_rate", "to_ground"), ("detection_rate_interval", "to_ground"),
+     0.98, "higher"),
+    ("detection rate, discharge_only", ("detection_rate", "discharge_only"),
+     ("detection_rate_interval", "discharge_only"), 0.95, "higher"),
+    ("false alarms on benign pairs", ("false_alarm_rate",), ("false_alarm_rate_interval",), 0.01, "lower"),
+    ("class accuracy on detected faults", ("class_accuracy_on_detected",), ("class_accuracy_interval",), 0.95,
+     "higher"),
+    ("median fault-instant error [us]", ("fault_time_error_median_us",), ("fault_time_error_median_interval_us",),
+     0.5, "lower"),
+    ("median location error [winding length]", ("location_error_median",), ("location_error_median_interval",),
+     0.05, "lower"),
+)
+
+
+def _dig(rep: Mapping[str, Any], keys: Sequence[str]) -> Any:
+    for k in keys:
+        if not isinstance(rep, Mapping) or rep.get(k) is None:
+            return None
+        rep = rep[k]
+    return rep
+
+
+def target_checks(rep: Mapping[str, Any]) -> list[dict[str, Any]]:
+    """Each of :data:`QUALITY_TARGETS` against an evaluation report, with its confidence interval.
+
+    Parameters
+    ----------
+    rep : mapping
+        From :func:`evaluate` (or the figures of :func:`train`).
+
+    Returns
+    -------
+    list of dict
+        Per target: ``figure`` (name), ``target``, ``better`` ("higher" or "lower"), ``measured``,
+        ``interval`` ([low, high], or None), and ``status``: "met" or "not met" when the whole interval
+        lies on one side of the target, "undecided" when it straddles it (the set is too small to
+        tell), "not measured" when the report lacks the figure.
+    """
+    out = []
+    for name, value_keys, ci_keys, target, better in QUALITY_TARGETS:
+        v, ci = _dig(rep, value_keys), _dig(rep, ci_keys)
+        if v is None:
+            status = "not measured"
+        elif ci is None:
+            status = "undecided"
+        else:
+            status = target_status(float(ci[0]), float(ci[1]), target, better)  # type: ignore[arg-type]
+        out.append({"figure": name, "target": target, "better": better, "measured": v, "interval": ci,
+                    "status": status})
+    return out
 
 
 #: Names of the three comparisons a test sequence makes, by the labels' reference and test shot kinds.
@@ -624,10 +712,14 @@ def _by_comparison(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
         entry: dict[str, Any] = {"n_pairs": int(sel.sum())}
         benign = sel & (data.event == "none")
         entry["false_alarm_rate"] = float((pred[benign] != "none").mean()) if benign.any() else None
-        entry["detection_rate"] = {}
+        entry["false_alarm_counts"] = _count(pred[benign] != "none")
+        entry["false_alarm_rate_interval"] = _rate_interval(pred[benign] != "none")
+        entry["detection_rate"], entry["detection_counts"], entry["detection_rate_interval"] = {}, {}, {}
         for c in EVENT_CLASSES[1:]:
             m = sel & (data.event == c)
             entry["detection_rate"][c] = float((pred[m] != "none").mean()) if m.any() else None
+            entry["detection_counts"][c] = _count(pred[m] != "none")
+            entry["detection_rate_interval"][c] = _rate_interval(pred[m] != "none")
         out[name] = entry
     return out
 
@@ -774,7 +866,8 @@ def _by_effect(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
     for lo, hi in zip(edges[:-1], edges[1:], strict=True):
         sel = fault & (data.effect_lsb >= lo) & (data.effect_lsb < hi)
         if sel.any():
-            out[f"{lo:g}-{hi:g}"] = {"n": int(sel.sum()), "detected": float((pred[sel] != "none").mean())}
+            out[f"{lo:g}-{hi:g}"] = {"n": int(sel.sum()), "detected": float((pred[sel] != "none").mean()),
+                                     "detected_interval": _rate_interval(pred[sel] != "none")}
     return out
 
 
@@ -799,19 +892,30 @@ def report_text(rep: dict[str, Any]) -> str:
     """Readable summary of an evaluation report."""
     lines = []
     dr = rep.get("detection_rate", {})
-    lines.append(f"pairs evaluated: {rep.get('n_pairs')}")
+    level = rep.get("confidence_level")
+    lines.append(f"pairs evaluated: {rep.get('n_pairs')}"
+                 + ("" if level is None else f" (in brackets: {100 * level:g} % confidence interval, count)"))
+
+    def _ci(ci: Sequence[float] | None, counts: Mapping[str, int] | None = None, unit: str = "") -> str:
+        out = "" if ci is None else f"  [{ci[0]:.3f}, {ci[1]:.3f}]{unit}"
+        return out + ("" if counts is None else f"  {counts['k']} of {counts['n']}")
+
     for c, v in dr.items():
-        lines.append(f"detection rate {c:<15} {'-' if v is None else f'{v:.3f}'}")
+        lines.append(f"detection rate {c:<15} {'-' if v is None else f'{v:.3f}'}"
+                     + _ci((rep.get("detection_rate_interval") or {}).get(c), (rep.get("detection_counts") or {}).get(c)))
     far = rep.get("false_alarm_rate")
-    lines.append(f"false alarms on benign pairs   {'-' if far is None else f'{far:.3f}'}")
+    lines.append(f"false alarms on benign pairs   {'-' if far is None else f'{far:.3f}'}"
+                 + _ci(rep.get("false_alarm_rate_interval"), rep.get("false_alarm_counts")))
     acc = rep.get("class_accuracy_on_detected")
-    lines.append(f"class accuracy on detected     {'-' if acc is None else f'{acc:.3f}'}")
-    for k, lab in (("location_error_median", "median location error"),
-                   ("fault_time_error_median_us", "median fault-instant error"),
-                   ("roc_auc", "ROC AUC (fault vs none)")):
+    lines.append(f"class accuracy on detected     {'-' if acc is None else f'{acc:.3f}'}"
+                 + _ci(rep.get("class_accuracy_interval")))
+    for k, lab, ci_key in (("location_error_median", "median location error", "location_error_median_interval"),
+                           ("fault_time_error_median_us", "median fault-instant error",
+                            "fault_time_error_median_interval_us"),
+                           ("roc_auc", "ROC AUC (fault vs none)", "")):
         v = rep.get(k)
         unit = " us" if k.endswith("_us") and v is not None else ""
-        lines.append(f"{lab:<31}{'-' if v is None else f'{v:.3f}'}{unit}")
+        lines.append(f"{lab:<31}{'-' if v is None else f'{v:.3f}'}{unit}" + _ci(rep.get(ci_key), unit=unit))
         per = rep.get(f"{k}_by_class")
         if per:
             lines.append(" " * 31 + "by class: " + ", ".join(
@@ -828,7 +932,15 @@ def report_text(rep: dict[str, Any]) -> str:
         for name, e in byc.items():
             vals = [e["false_alarm_rate"], *e["detection_rate"].values()]
             lines.append(f"  {name:<32}{e['n_pairs']:>6d}" + "".join(
-                f"{'-' if v is None else f'{v:.3f}':>8}" for v in vals))
+                f"{'-' if v is None else f'{v:.3f}':>8}" for v in vals)
+                + ("" if e.get("false_alarm_rate_interval") is None else
+                   f"   false alarms{_ci(e['false_alarm_rate_interval'], e.get('false_alarm_counts'))}"))
+    tg = rep.get("targets")
+    if tg:
+        lines.append("targets (met / not met: the whole interval on one side; undecided: too few pairs to tell):")
+        for t in tg:
+            side = ">=" if t["better"] == "higher" else "<="
+            lines.append(f"  {t['figure']:<40} {side} {t['target']:<6g} {t['status']}")
     cm = rep.get("confusion_matrix")
     if cm:
         labs = cm["labels"]
@@ -914,8 +1026,11 @@ def sensitivity_turns(model: ShotModel, out_dir: str | Path, *, turns: Sequence[
     dict
         Per number of turns: ``fraction_of_winding``, ``detected`` (share of faulted pairs indicated),
         ``false_alarms`` (share of healthy pairs indicated), ``n``, ``by_comparison`` (detected share
-        and number of faulted pairs per kind of comparison, see :data:`COMPARISONS`); and
-        ``smallest_detected_95`` (turns).
+        and number of faulted pairs per kind of comparison, see :data:`COMPARISONS`), the counts and
+        exact confidence intervals of both shares (``detected_counts``, ``detected_interval``,
+        ``false_alarm_counts``, ``false_alarms_interval``); ``smallest_detected_95`` (turns: the
+        smallest short detected in at least 95 % of its pairs) and ``smallest_shown_95`` (turns: the
+        smallest whose interval's lower bound reaches 95 %, None if none), at ``confidence_level``.
     """
     import tomllib  # noqa: F401  (documented dependency of sensitivity_family)
 
@@ -924,7 +1039,7 @@ def sensitivity_turns(model: ShotModel, out_dir: str | Path, *, turns: Sequence[
 
     out = Path(out_dir)
     res: dict[str, Any] = {"per_turns": {}}
-    smallest = None
+    smallest = confident = None
     for k in turns:
         d = out / f"turns_{k}"
         if not (d / "labels.csv").is_file():
@@ -943,11 +1058,20 @@ def sensitivity_turns(model: ShotModel, out_dir: str | Path, *, turns: Sequence[
         by = {name: {"n_faults": int((fault & (kind == name)).sum()),
                      "detected": float((pred[fault & (kind == name)] != "none").mean())}
               for name in COMPARISONS.values() if (fault & (kind == name)).any()}
+        det_ci = _rate_interval(pred[fault] != "none")
         res["per_turns"][str(k)] = {"fraction_of_winding": k / 1000.0, "detected": det, "false_alarms": fa,
-                                    "n": int(data.X.shape[0]), "by_comparison": by}
+                                    "n": int(data.X.shape[0]), "by_comparison": by,
+                                    "detected_counts": _count(pred[fault] != "none"),
+                                    "detected_interval": det_ci,
+                                    "false_alarm_counts": _count(pred[~fault] != "none"),
+                                    "false_alarms_interval": _rate_interval(pred[~fault] != "none")}
         if smallest is None and det >= 0.95:
             smallest = k
+        if confident is None and det_ci is not None and det_ci[0] >= 0.95:
+            confident = k
     res["smallest_detected_95"] = smallest
+    res["smallest_shown_95"] = confident
+    res["confidence_level"] = LEVEL
     return res
 
 

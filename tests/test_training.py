@@ -16,6 +16,7 @@ from detector.model import ShotModel
 from detector.scoring import DECISIVE
 from detector.training import (
     COMPARISONS,
+    QUALITY_TARGETS,
     LabelledFeatures,
     _decide,
     _predict,
@@ -25,6 +26,7 @@ from detector.training import (
     report_text,
     train,
 )
+from detector.uncertainty import proportion_interval, target_status
 
 KINDS = list(COMPARISONS)  # (reference_kind, test_kind)
 EVENTS = ("none", "turn_to_turn", "to_ground", "discharge_only")
@@ -115,7 +117,27 @@ def test_evaluation_counts_match_the_models_decisions(trained):
             assert e["detection_rate"][c] == pytest.approx(np.mean(pred[sel & (ev == c)] != "none"))
     # the invisible faults sit in the lowest effect bin
     assert rep["detection_by_effect_lsb"]["0-0.5"]["n"] == int(np.sum(data.effect_lsb < 0.5))
+    # every rate carries its count and its exact interval, which holds the rate
+    for c in EVENTS[1:]:
+        k, n = int(np.sum(pred[ev == c] != "none")), int(np.sum(ev == c))
+        assert rep["detection_counts"][c] == {"k": k, "n": n}
+        lo, hi = rep["detection_rate_interval"][c]
+        assert (lo, hi) == proportion_interval(k, n) and lo <= k / n <= hi
+    k = int(np.sum(pred[ev == "none"] != "none"))
+    assert rep["false_alarm_counts"] == {"k": k, "n": int(np.sum(ev == "none"))}
+    assert tuple(rep["false_alarm_rate_interval"]) == proportion_interval(k, int(np.sum(ev == "none")))
+    for e in byc.values():
+        c = e["false_alarm_counts"]
+        assert tuple(e["false_alarm_rate_interval"]) == proportion_interval(c["k"], c["n"])
+    # each target read against its interval
+    assert [t["figure"] for t in rep["targets"]] == [name for name, *_ in QUALITY_TARGETS]
+    for t in rep["targets"]:
+        assert t["status"] == ("not measured" if t["measured"] is None else "undecided" if t["interval"] is None
+                               else target_status(*t["interval"], t["target"], t["better"]))
+    assert rep["targets"][3]["interval"] == rep["false_alarm_rate_interval"]
     text = report_text(rep)
+    assert "targets (met / not met" in text and "95 % confidence interval" in text
+    assert f"{k} of {int(np.sum(ev == 'none'))}" in text
     assert "full reference, chopped test" in text and "confusion matrix" in text
     assert text.count("by class: turn_to_turn") == 2
     assert (rep["none_threshold"], rep["none_threshold_chopped"]) == (model.none_threshold, model.none_threshold_chopped)
@@ -210,6 +232,11 @@ def test_figures_give_each_fault_classs_own_median_errors():
     assert inst_by["to_ground"] == pytest.approx(0.075)
     assert inst_by["discharge_only"] == pytest.approx(0.5)
     assert rep["location_error_median"] == pytest.approx(0.1)  # of 0.1, 0.3, 0.05, 0.4, 0.0
+    # five errors are too few for a 95 % interval of their median; six detections, each of the right
+    # class, give the exact interval [0.025^(1/6), 1] of the class accuracy
+    assert rep["location_error_median_interval"] is None
+    assert rep["class_accuracy_interval"] == [pytest.approx(0.025 ** (1 / 6)), 1.0]
+    assert rep["detection_counts"]["turn_to_turn"] == {"k": 2, "n": 3}
 
 
 def _two_kinds(n_per_kind: int, seed: int = 5):
@@ -346,6 +373,11 @@ def test_sensitivity_study_reports_each_kind_of_comparison(tmp_path):
     assert n_faults == 4  # half of the pairs are faulted
     # the overall rate is the faults-weighted mean of the per-comparison rates
     assert r["detected"] == pytest.approx(sum(b["detected"] * b["n_faults"] for b in by.values()) / n_faults)
+    # with its count and exact interval; four faults can never show 95 % (0.025^(1/4) = 0.40 at best)
+    c = r["detected_counts"]
+    assert c["n"] == 4 and c["k"] / 4 == pytest.approx(r["detected"])
+    assert tuple(r["detected_interval"]) == proportion_interval(c["k"], 4)
+    assert r["detected_interval"][0] <= 0.025 ** 0.25 + 1e-12 and res["smallest_shown_95"] is None
 
 
 @pytest.mark.slow

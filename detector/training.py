@@ -536,17 +536,18 @@ def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: n
     rep: dict[str, Any] = {"n_pairs": int(y.size), "confidence_level": LEVEL}
     det, det_n, det_ci = {}, {}, {}
     for c in EVENT_CLASSES[1:]:
-        sel = y == c
-        det[c] = float((pred[sel] != "none").mean()) if sel.any() else None
-        det_n[c] = _count(pred[sel] != "none")
-        det_ci[c] = _rate_interval(pred[sel] != "none")
+        hits = pred[y == c] != "none"
+        det[c] = float(hits.mean()) if hits.size else None
+        det_n[c] = _count(hits)
+        det_ci[c] = _rate_interval(hits)
     rep["detection_rate"] = det
     rep["detection_counts"] = det_n
     rep["detection_rate_interval"] = det_ci
     none = y == "none"
-    rep["false_alarm_rate"] = float((pred[none] != "none").mean()) if none.any() else None
-    rep["false_alarm_counts"] = _count(pred[none] != "none")
-    rep["false_alarm_rate_interval"] = _rate_interval(pred[none] != "none")
+    alarms = pred[none] != "none"
+    rep["false_alarm_rate"] = float(alarms.mean()) if alarms.size else None
+    rep["false_alarm_counts"] = _count(alarms)
+    rep["false_alarm_rate_interval"] = _rate_interval(alarms)
     detected = (y != "none") & (pred != "none")
     rep["class_accuracy_on_detected"] = float((pred[detected] == y[detected]).mean()) if detected.any() else None
     rep["class_accuracy_interval"] = _rate_interval(pred[detected] == y[detected])
@@ -711,15 +712,16 @@ def _by_comparison(model: ShotModel, data: LabelledFeatures) -> dict[str, Any]:
             continue
         entry: dict[str, Any] = {"n_pairs": int(sel.sum())}
         benign = sel & (data.event == "none")
-        entry["false_alarm_rate"] = float((pred[benign] != "none").mean()) if benign.any() else None
-        entry["false_alarm_counts"] = _count(pred[benign] != "none")
-        entry["false_alarm_rate_interval"] = _rate_interval(pred[benign] != "none")
+        alarms = pred[benign] != "none"
+        entry["false_alarm_rate"] = float(alarms.mean()) if alarms.size else None
+        entry["false_alarm_counts"] = _count(alarms)
+        entry["false_alarm_rate_interval"] = _rate_interval(alarms)
         entry["detection_rate"], entry["detection_counts"], entry["detection_rate_interval"] = {}, {}, {}
         for c in EVENT_CLASSES[1:]:
-            m = sel & (data.event == c)
-            entry["detection_rate"][c] = float((pred[m] != "none").mean()) if m.any() else None
-            entry["detection_counts"][c] = _count(pred[m] != "none")
-            entry["detection_rate_interval"][c] = _rate_interval(pred[m] != "none")
+            hits = pred[sel & (data.event == c)] != "none"
+            entry["detection_rate"][c] = float(hits.mean()) if hits.size else None
+            entry["detection_counts"][c] = _count(hits)
+            entry["detection_rate_interval"][c] = _rate_interval(hits)
         out[name] = entry
     return out
 
@@ -1058,13 +1060,13 @@ def sensitivity_turns(model: ShotModel, out_dir: str | Path, *, turns: Sequence[
         by = {name: {"n_faults": int((fault & (kind == name)).sum()),
                      "detected": float((pred[fault & (kind == name)] != "none").mean())}
               for name in COMPARISONS.values() if (fault & (kind == name)).any()}
-        det_ci = _rate_interval(pred[fault] != "none")
+        hits, alarms = pred[fault] != "none", pred[~fault] != "none"
+        det_ci = _rate_interval(hits)
         res["per_turns"][str(k)] = {"fraction_of_winding": k / 1000.0, "detected": det, "false_alarms": fa,
                                     "n": int(data.X.shape[0]), "by_comparison": by,
-                                    "detected_counts": _count(pred[fault] != "none"),
-                                    "detected_interval": det_ci,
-                                    "false_alarm_counts": _count(pred[~fault] != "none"),
-                                    "false_alarms_interval": _rate_interval(pred[~fault] != "none")}
+                                    "detected_counts": _count(hits), "detected_interval": det_ci,
+                                    "false_alarm_counts": _count(alarms),
+                                    "false_alarms_interval": _rate_interval(alarms)}
         if smallest is None and det >= 0.95:
             smallest = k
         if confident is None and det_ci is not None and det_ci[0] >= 0.95:

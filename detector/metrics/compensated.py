@@ -869,7 +869,8 @@ def _stationary_pair(x: np.ndarray, idx: np.ndarray, n: int, dt: float, f0: floa
     departs from the whole span's by at most ``stationarity`` of the latter (RMS), (2) its amplitude
     stands above the noise of the residual, and (3) over the pre-trigger it takes out more power than
     :data:`VOLTAGE_TONE_PENALTY` noise variances: interference was there before the front, while two
-    close tones can also draw the envelope of a fault's slow ringing over the span.
+    close tones can also draw the envelope of a fault's slow ringing over the span (so a pre-trigger of
+    fewer than 16 samples gives no pair).
 
     Parameters
     ----------
@@ -907,22 +908,8 @@ def _stationary_pair(x: np.ndarray, idx: np.ndarray, n: int, dt: float, f0: floa
     xb = xb - xb.mean()  # the constant fitted out once (the tones' projection on it is small over 4+ periods)
 
     def best_pair(fs: np.ndarray, E: np.ndarray, sep: float) -> tuple[float, float, float]:
-        K = fs.size
         A = np.vstack([E.real, E.imag])  # cos, sin of each frequency at the block times
-        A = A - A.mean(axis=1, keepdims=True)
-        G = A @ A.T
-        b = A @ xb
-        i, k = np.triu_indices(K, 1)
-        ok = fs[k] - fs[i] >= sep
-        i, k = i[ok], k[ok]
-        if not i.size:
-            return -1.0, float(fs[0]), float(fs[-1])
-        ix = np.stack((i, i + K, k, k + K), axis=1)
-        Gp = G[ix[:, :, None], ix[:, None, :]] + 1e-12 * np.trace(G) / (2 * K) * np.eye(4)
-        bp = b[ix]
-        r = np.einsum("pi,pi->p", bp, np.linalg.solve(Gp, bp[..., None])[..., 0])
-        j = int(np.argmax(r))
-        return float(r[j]), float(fs[i[j]]), float(fs[k[j]])
+        return _best_pair(A - A.mean(axis=1, keepdims=True), xb, fs, sep)
 
     coarse = f0 + np.arange(-16, 17) * 0.1 / T
     _, f1, f2 = best_pair(coarse, _grid_phasors(coarse[0], 0.1 / T, coarse.size, tb), 0.2 / T)
@@ -953,6 +940,36 @@ def _stationary_pair(x: np.ndarray, idx: np.ndarray, n: int, dt: float, f0: floa
     if not (xp @ xp - (xp - wp) @ (xp - wp)) / noise**2 > VOLTAGE_TONE_PENALTY:
         return None
     return coef @ rows, (float(f1), float(f2)), amp
+
+
+def _best_pair(A: np.ndarray, y: np.ndarray, fs: np.ndarray, sep_Hz: float) -> tuple[float, float, float]:
+    """Of all pairs of the frequencies ``fs`` [Hz] (ascending) at least ``sep_Hz`` apart, the one whose
+    four regressors fit ``y`` best by least squares.
+
+    Rows ``k`` and ``k + K`` of ``A`` (``K = fs.size``) are the cosine and sine of ``fs[k]`` at the
+    samples of ``y``, other regressors already projected out. The normal equations of all pairs are
+    solved at once (a tiny ridge keeps near-collinear pairs solvable).
+
+    Returns
+    -------
+    (reduction, f_low_Hz, f_high_Hz)
+        Reduction of the squared residual in the unit of ``y`` squared (-1 when no pair is far enough
+        apart, with the grid's ends) and the pair's frequencies [Hz].
+    """
+    K = fs.size
+    G = A @ A.T
+    b = A @ y
+    i, k = np.triu_indices(K, 1)
+    ok = fs[k] - fs[i] >= sep_Hz
+    i, k = i[ok], k[ok]
+    if not i.size:
+        return -1.0, float(fs[0]), float(fs[-1])
+    ix = np.stack((i, i + K, k, k + K), axis=1)
+    Gp = G[ix[:, :, None], ix[:, None, :]] + 1e-12 * np.trace(G) / (2 * K) * np.eye(4)
+    bp = b[ix]
+    red = np.einsum("pi,pi->p", bp, np.linalg.solve(Gp, bp[..., None])[..., 0])
+    p = int(np.argmax(red))
+    return float(red[p]), float(fs[i[p]]), float(fs[k[p]])
 
 
 def _grid_phasors(f_first_Hz: float, step_Hz: float, count: int, t_s: np.ndarray) -> np.ndarray:
@@ -1288,20 +1305,8 @@ def _split_line(d: np.ndarray, start: int, dt: float, lines: list[float], group:
     y = y - Q @ (Q.T @ y)
 
     def best_pair(fs: np.ndarray, sep: float) -> tuple[float, float, float]:
-        K = fs.size
         Bt = cs(fs)
-        Bt = Bt - (Bt @ Q) @ Q.T
-        G = Bt @ Bt.T
-        b = Bt @ y
-        i, k = np.triu_indices(K, 1)
-        ok = fs[k] - fs[i] >= sep
-        i, k = i[ok], k[ok]
-        idx = np.stack((i, i + K, k, k + K), axis=1)
-        Gp = G[idx[:, :, None], idx[:, None, :]] + 1e-12 * np.trace(G) / (2 * K) * np.eye(4)
-        bp = b[idx]
-        red = np.einsum("pi,pi->p", bp, np.linalg.solve(Gp, bp[..., None])[..., 0])
-        p = int(np.argmax(red))
-        return float(red[p]), float(fs[i[p]]), float(fs[k[p]])
+        return _best_pair(Bt - (Bt @ Q) @ Q.T, y, fs, sep)
 
     f0 = float(np.mean([lines[j] for j in group]))
     _, f1, f2 = best_pair(f0 + np.arange(-16, 17) * 0.1 / T, 0.2 / T)

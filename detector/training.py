@@ -1054,13 +1054,15 @@ def sensitivity_turns(model: ShotModel, out_dir: str | Path, *, turns: Sequence[
         data = extract_dataset(d, workers=workers, progress=False)
         _, pred = _predict(model, data.X)
         fault = data.event != "none"
-        det = float((pred[fault] != "none").mean()) if fault.any() else math.nan
-        fa = float((pred[~fault] != "none").mean()) if (~fault).any() else math.nan
-        kind = _comparison_kinds(data.labels)
-        by = {name: {"n_faults": int((fault & (kind == name)).sum()),
-                     "detected": float((pred[fault & (kind == name)] != "none").mean())}
-              for name in COMPARISONS.values() if (fault & (kind == name)).any()}
         hits, alarms = pred[fault] != "none", pred[~fault] != "none"
+        det = float(hits.mean()) if hits.size else math.nan
+        fa = float(alarms.mean()) if alarms.size else math.nan
+        kind = _comparison_kinds(data.labels)
+        by = {}
+        for name in COMPARISONS.values():
+            found = pred[fault & (kind == name)] != "none"
+            if found.size:
+                by[name] = {"n_faults": int(found.size), "detected": float(found.mean())}
         det_ci = _rate_interval(hits)
         res["per_turns"][str(k)] = {"fraction_of_winding": k / 1000.0, "detected": det, "false_alarms": fa,
                                     "n": int(data.X.shape[0]), "by_comparison": by,

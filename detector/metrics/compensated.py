@@ -899,7 +899,8 @@ def _stationary_pair(x: np.ndarray, idx: np.ndarray, n: int, dt: float, f0: floa
     """
     m = idx.size
     T = m * dt
-    if f0 > PAIR_MAX_HZ or f0 * T < 4.0:
+    pre = int(np.searchsorted(idx, pretrigger_samples))  # pre-trigger samples of the span
+    if f0 > PAIR_MAX_HZ or f0 * T < 4.0 or pre < 16:
         return None
     B = max(1, int(round(0.05 / (PAIR_MAX_HZ * dt))))  # blocks well below the tones' period
     kb = m // B
@@ -932,8 +933,7 @@ def _stationary_pair(x: np.ndarray, idx: np.ndarray, n: int, dt: float, f0: floa
     # interference was there before the front, a change of the winding was not: over the pre-trigger the
     # pair must take out more power than a sinusoid a record does not hold would (two close tones can
     # also draw the envelope of a fault's slow ringing over the span, thirds and all)
-    pre = int(np.searchsorted(idx, pretrigger_samples))
-    if pre < 16 or not noise > 0:
+    if not noise > 0:
         return None
     xp = x[:pre] - np.mean(x[:pre])
     wp = whole[:pre] - np.mean(whole[:pre])

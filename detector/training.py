@@ -512,6 +512,27 @@ def _median_by_class(err: np.ndarray, counted: np.ndarray, y: np.ndarray) -> dic
             for c in EVENT_CLASSES[1:]}
 
 
+#: Bins of the location error's medians by the fault's effect [recorder codes] and by its position along
+#: the winding [fraction from the line end] (``evaluate``'s ``location_error_median_by_effect_lsb`` and
+#: ``location_error_median_by_position``).
+LOCATION_EFFECT_EDGES_LSB = (0.0, 1.0, 5.0, 10.0, 100.0, math.inf)
+LOCATION_POSITION_EDGES = (0.0, 0.2, 0.4, 0.6, 0.8, 1.0)
+
+
+def _median_by_bins(err: np.ndarray, counted: np.ndarray, value: np.ndarray, edges: Sequence[float]
+                    ) -> dict[str, dict[str, Any]]:
+    """Median of ``err`` over the ``counted`` rows whose ``value`` lies in each bin ``[lo, hi)`` of
+    ``edges`` (the last bin closed), with its count and confidence interval; empty bins left out."""
+    out: dict[str, dict[str, Any]] = {}
+    for j, (lo, hi) in enumerate(zip(edges[:-1], edges[1:], strict=True)):
+        last = j == len(edges) - 2
+        sel = counted & (value >= lo) & ((value <= hi) if last else (value < hi))
+        if sel.any():
+            out[f"{lo:g}-{hi:g}"] = {"n": int(sel.sum()), "median": float(np.median(err[sel])),
+                                     "median_interval": _median_ci(err[sel])}
+    return out
+
+
 def _count(hits: np.ndarray) -> dict[str, int]:
     """Successes and trials of a boolean array (``{"k": ..., "n": ...}``)."""
     return {"k": int(np.count_nonzero(hits)), "n": int(hits.size)}
@@ -562,6 +583,12 @@ def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: n
     rep["location_error_p90"] = float(np.quantile(loc_err[fa], 0.9)) if fa.any() else None
     # per class: the overall median is that of a mixture, and the classes differ by a factor of three
     rep["location_error_median_by_class"] = _median_by_class(loc_err, fa, y)
+    # by the fault's size and by where it sits, to read the target against the effect (as the detection
+    # rates by effect) and along the winding
+    if data.effect_lsb is not None:
+        rep["location_error_median_by_effect_lsb"] = _median_by_bins(loc_err, fa, data.effect_lsb,
+                                                                     LOCATION_EFFECT_EDGES_LSB)
+    rep["location_error_median_by_position"] = _median_by_bins(loc_err, fa, data.position, LOCATION_POSITION_EDGES)
     est = data.onset_us if instant_us is None else instant_us
     ft = detected & np.isfinite(data.fault_time_us) & np.isfinite(est)
     t_err = np.abs(est - data.fault_time_us)
@@ -586,7 +613,10 @@ def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float 
     dict
         ``detection_rate`` per class, ``false_alarm_rate``, ``class_accuracy_on_detected``,
         ``confusion_matrix``, ``location_error_median`` (fraction of the winding), ``location_error_p90``,
-        ``location_error_median_by_class``, ``fault_time_error_median_us``, ``fault_time_error_p90_us``,
+        ``location_error_median_by_class``, ``location_error_median_by_effect_lsb`` and
+        ``location_error_median_by_position`` (bins of :data:`LOCATION_EFFECT_EDGES_LSB` and
+        :data:`LOCATION_POSITION_EDGES`, each with its count and interval),
+        ``fault_time_error_median_us``, ``fault_time_error_p90_us``,
         ``fault_time_error_median_us_by_class`` (each per fault class, over its detected faults),
         ``roc_auc``, ``roc``,
         ``threshold_false_alarm_rate``, ``detection_by_effect_lsb`` (all faults by the size of their
@@ -922,6 +952,11 @@ def report_text(rep: dict[str, Any]) -> str:
         if per:
             lines.append(" " * 31 + "by class: " + ", ".join(
                 f"{c} {'-' if x is None else f'{x:.3f}'}{unit if x is not None else ''}" for c, x in per.items()))
+        for key, title in (("by_effect_lsb", "by effect [codes]"), ("by_position", "by position")):
+            bins = rep.get(f"{k}_{key}")
+            if bins:
+                lines.append(" " * 31 + f"{title}: " + ", ".join(
+                    f"{b} {e['median']:.3f} ({e['n']})" for b, e in bins.items()))
     if rep.get("none_threshold") is not None:
         thr = rep["none_threshold"]
         chop = rep.get("none_threshold_chopped")

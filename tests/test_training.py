@@ -424,3 +424,33 @@ def test_the_locator_takes_inputs_measured_at_the_instant_when_the_records_are_a
     ref, test, lab = next((r, t, lab) for r, t, lab in load_dataset(d) if lab["event"] == "to_ground")
     v = compare(ref, test, model=model)
     assert v.fault_indicated and v.location is not None and 0.0 <= v.location <= 1.0
+
+
+def test_location_medians_by_effect_and_by_position_take_their_bins_detected_faults():
+    """The location error's medians by effect (codes) and by position (fifths of the winding) are those of
+    each bin's detected faults with a position: known errors, an undetected fault left out, a fault at
+    the neutral end (position 1) in the last fifth, and empty bins not listed."""
+    from detector.training import _figures, report_text
+
+    event = np.array(["none", "turn_to_turn", "turn_to_turn", "to_ground", "to_ground", "discharge_only",
+                      "discharge_only"])
+    n = event.size
+    position = np.array([np.nan, 0.1, 0.15, 0.5, 1.0, 0.1, 0.9])
+    loc = np.array([np.nan, 0.2, 0.35, 0.5, 0.8, 0.1, 0.3])  # errors -, 0.1, 0.2, 0, 0.2, 0, 0.6
+    effect = np.array([np.inf, 3.0, 4.0, 500.0, 200.0, 2.0, 50.0])
+    pred = np.array(["none", "turn_to_turn", "turn_to_turn", "to_ground", "to_ground", "none",
+                     "discharge_only"], dtype=object)  # the first discharge missed
+    data = LabelledFeatures(np.zeros((n, len(FEATURE_NAMES))), event, position, np.full(n, np.nan),
+                            np.full(n, np.nan), np.array([f"d{i}" for i in range(n)]), [], [], effect, np.zeros(n))
+    rep = _figures(data, np.tile([0.25] * 4, (n, 1)), pred, loc)
+    by_eff = rep["location_error_median_by_effect_lsb"]
+    assert list(by_eff) == ["1-5", "10-100", "100-inf"]
+    assert by_eff["1-5"]["n"] == 2 and by_eff["1-5"]["median"] == pytest.approx(0.15)  # 0.1, 0.2
+    assert by_eff["10-100"]["median"] == pytest.approx(0.6)
+    assert by_eff["100-inf"]["n"] == 2 and by_eff["100-inf"]["median"] == pytest.approx(0.1)  # 0, 0.2
+    by_pos = rep["location_error_median_by_position"]
+    assert list(by_pos) == ["0-0.2", "0.4-0.6", "0.8-1"]
+    assert by_pos["0-0.2"]["median"] == pytest.approx(0.15)
+    assert by_pos["0.8-1"]["n"] == 2 and by_pos["0.8-1"]["median"] == pytest.approx(0.4)  # 0.2, 0.6
+    text = report_text(rep)
+    assert "by effect [codes]: 1-5 0.150 (2)" in text and "0.8-1 0.400 (2)" in text

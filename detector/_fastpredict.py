@@ -30,7 +30,7 @@ from sklearn.calibration import CalibratedClassifierCV
 from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostingRegressor
 from sklearn.isotonic import IsotonicRegression
 
-__all__ = ["SMALL_BATCH", "install", "uninstall", "estimators_of", "detached", "score"]
+__all__ = ["SMALL_BATCH", "install", "uninstall", "estimators_of", "detached", "score", "fault_classes"]
 
 #: Largest batch scored by the flat walk; larger ones use scikit-learn's parallel predictor.
 SMALL_BATCH = 64
@@ -133,12 +133,12 @@ def estimators_of(obj: Any) -> list[Any]:
             if hasattr(o, "_predictors"):
                 found.append(o)
             return
-        if isinstance(o, (list, tuple)):
-            for v in o:
+        if isinstance(o, (list, tuple, dict)):
+            for v in (o.values() if isinstance(o, dict) else o):
                 walk(v, depth + 1)
             return
         for name in ("classifier", "locator", "timer", "members_", "calibrated_", "calibrated_classifiers_",
-                     "estimator", "model_", "chooser_", "detector_"):
+                     "estimator", "model_", "models_", "chooser_", "detector_"):
             walk(getattr(o, name, None), depth + 1)
 
     walk(obj, 0)
@@ -302,14 +302,18 @@ def score(model: Any, X: np.ndarray, at_instant: Callable[[np.ndarray], np.ndarr
 
     small = X.shape[0] <= SMALL_BATCH
 
-    def regress(reg: Any, X: np.ndarray = X) -> np.ndarray | None:
+    def regress(reg: Any, X: np.ndarray = X, booster: Any = None) -> np.ndarray | None:
+        # ``booster``: the one of ``reg``'s boosters that answers these rows (a locator's per class)
         if reg is None:
             return None
-        est = getattr(reg, "model_", None)
+        est = getattr(reg, "model_", None) if booster is None else booster
         raw = None
         if small and X.shape[1] == getattr(reg, "n_features_in_", -1) and est is not None:
             raw = _raw(est, X)
         if raw is None:
+            if booster is not None:
+                y = booster.predict(X)
+                return y if reg._clip is None else np.clip(y, *reg._clip)
             return reg.predict(X)
         y = est._loss.link.inverse(raw.ravel())
         if hasattr(reg, "choose"):  # the instant: a detector's onset where the scorer trusts one
@@ -328,5 +332,19 @@ def score(model: Any, X: np.ndarray, at_instant: Callable[[np.ndarray], np.ndarr
     position = None
     if model.locator is not None:
         extra = at_instant(instant) if at_instant is not None and instant is not None else None
-        position = regress(model.locator, model.locator_input(X, instant, extra))
+        Xl = model.locator_input(X, instant, extra)
+        if not getattr(model.locator, "models_", None):
+            position = regress(model.locator, Xl)
+        else:  # a booster per fault class: each row's most likely one
+            position = np.full(X.shape[0], np.nan)
+            for booster, rows in model.locator.routes(X.shape[0], fault_classes(proba, clf.classes_)):
+                if booster is not None and rows.size:
+                    position[rows] = regress(model.locator, Xl[rows], booster)
     return proba, position, instant
+
+
+def fault_classes(proba: np.ndarray, classes: Any) -> np.ndarray:
+    """The most likely fault class of each row (``none`` left aside) of probabilities in ``classes`` order."""
+    names = np.asarray(classes).astype(str)
+    faults = np.flatnonzero(names != "none")
+    return names[faults][np.argmax(np.asarray(proba)[:, faults], axis=1)]

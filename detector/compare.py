@@ -243,7 +243,9 @@ def compare(
     # one sample: all trees walked at once, without per-tree calls (see detector._fastpredict)
     proba_all, loc_all, t_all = _fastpredict.score(m, x, lambda inst: instant_inputs(a, inst))
     proba = proba_all[0]
-    loc_pred = None if loc_all is None else float(loc_all[0])
+    # None also where the locator has no booster for the most likely fault class (a model retrained on
+    # too few located faults of it)
+    loc_pred = None if loc_all is None or not math.isfinite(float(loc_all[0])) else float(loc_all[0])
     t_pred = None if t_all is None else float(t_all[0])
     probs = {c: 0.0 for c in EVENT_CLASSES}
     for c, p in zip(m.classifier.classes_, proba, strict=True):

@@ -154,3 +154,36 @@ def test_score_without_calibration_and_regressors():
     for i in range(20):
         p, pos, t = _fastpredict.score(model, Xq[i:i + 1])
         assert np.array_equal(p, clf.predict_proba(Xq[i:i + 1])) and pos is None and t is None
+
+
+def test_a_locator_per_fault_class_scores_each_row_with_its_classs_booster(tmp_path):
+    """A locator fitted with fault classes keeps a booster per class; the fast path asks each row's
+    booster of the classifier's most likely fault class, bit for bit as its predict() with those
+    classes, and a saved and loaded model gives the same."""
+    X, score_ = _data(1500)
+    names = np.array(["none", "turn_to_turn", "to_ground", "discharge_only"])
+    y = names[np.digitize(score_, np.quantile(score_, [0.25, 0.5, 0.75]))]
+    clf = FaultClassifier(max_iter=30).fit(X, y)
+    fault = y != "none"
+    pos = np.clip(0.5 + 0.2 * np.nan_to_num(X[:, 3]) * np.where(y == "to_ground", -1.0, 1.0), 0, 1)
+    loc = LocationRegressor(max_iter=30).fit(X[fault], pos[fault], fault_class=y[fault])
+    assert sorted(loc.models_) == ["discharge_only", "to_ground", "turn_to_turn"] and loc.model_ is None
+    model = ShotModel(classifier=clf, locator=loc, feature_names=[f"f{i}" for i in range(7)],
+                      schema_version="test")
+    Xq, _ = _data(100, seed=5)
+    for x in [Xq[i:i + 1] for i in range(40)] + [Xq[:7], Xq]:  # the last: larger than SMALL_BATCH
+        p, got, _ = _fastpredict.score(model, x)
+        assert np.array_equal(got, loc.predict(x, _fastpredict.fault_classes(p, clf.classes_)))
+    path = tmp_path / "m.skops"
+    save_model(model, path)
+    loaded = load_model(path, expected_schema="test")
+    assert sorted(loaded.locator.models_) == sorted(loc.models_)
+    assert np.array_equal(_fastpredict.score(loaded, Xq)[1], _fastpredict.score(model, Xq)[1])
+
+
+def test_fault_classes_leave_none_aside():
+    proba = np.array([[0.9, 0.02, 0.05, 0.03], [0.1, 0.5, 0.1, 0.3]])
+    classes = ["none", "turn_to_turn", "to_ground", "discharge_only"]
+    assert list(_fastpredict.fault_classes(proba, classes)) == ["to_ground", "turn_to_turn"]
+    # in another column order too
+    assert list(_fastpredict.fault_classes(proba[:, ::-1], classes[::-1])) == ["to_ground", "turn_to_turn"]

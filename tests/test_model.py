@@ -369,3 +369,35 @@ def test_a_locator_trained_on_other_inputs_at_the_instant_is_refused(tmp_path):
             with pytest.raises(ShotcheckError, match="other inputs at the fault instant"):
                 load_model(tmp_path / "m.skops", expected_schema="test-1")
             assert load_model(tmp_path / "m.skops").locator_at_instant  # readable for inspection
+
+
+def test_locator_per_fault_class_learns_each_classs_own_relation():
+    """Positions that follow one input upward for one class and downward for another: a booster of all
+    rows, not told the class, cannot tell them apart; a booster per class can. A class with fewer rows
+    than MIN_CLASS_ROWS shares a booster of all rows; a class never seen gets no position (NaN) when
+    every class seen had its own; and a locator fitted per class must be told the classes."""
+    from detector._validation import ShotcheckError
+
+    rng = np.random.default_rng(4)
+    n = 1200
+    X = rng.uniform(-1, 1, size=(n, 3))
+    cls = np.where(rng.random(n) < 0.5, "turn_to_turn", "discharge_only")
+    pos = 0.5 + 0.4 * X[:, 0] * np.where(cls == "turn_to_turn", 1.0, -1.0)
+    per_class = LocationRegressor(max_iter=100).fit(X, pos, fault_class=cls)
+    pooled = LocationRegressor(max_iter=100).fit(X, pos)
+    assert per_class.model_ is None and sorted(per_class.models_) == ["discharge_only", "turn_to_turn"]
+    Xq = rng.uniform(-1, 1, size=(400, 3))
+    cq = np.where(rng.random(400) < 0.5, "turn_to_turn", "discharge_only")
+    truth = 0.5 + 0.4 * Xq[:, 0] * np.where(cq == "turn_to_turn", 1.0, -1.0)
+    assert np.median(np.abs(per_class.predict(Xq, cq) - truth)) < 0.03
+    assert np.median(np.abs(pooled.predict(Xq) - truth)) > 0.15  # about half the span: the sign is lost
+    with pytest.raises(ShotcheckError, match="fault class"):
+        per_class.predict(Xq)
+    assert np.isnan(per_class.predict(Xq[:3], ["to_ground"] * 3)).all()
+    # a class of 20 rows: the booster of all rows answers for it
+    cls2 = cls.copy()
+    cls2[:20] = "to_ground"
+    mixed = LocationRegressor(max_iter=50).fit(X, pos, fault_class=cls2)
+    assert mixed.model_ is not None and "to_ground" not in mixed.models_
+    assert np.array_equal(mixed.predict(Xq[:5], ["to_ground"] * 5), np.clip(mixed.model_.predict(Xq[:5]), 0, 1))
+

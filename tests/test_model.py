@@ -401,3 +401,14 @@ def test_locator_per_fault_class_learns_each_classs_own_relation():
     assert mixed.model_ is not None and "to_ground" not in mixed.models_
     assert np.array_equal(mixed.predict(Xq[:5], ["to_ground"] * 5), np.clip(mixed.model_.predict(Xq[:5]), 0, 1))
 
+
+def test_the_bundled_model_is_small_and_locates_per_fault_class():
+    """The model shipped in the package stays under the 10 MB the issue allows (decimal megabytes), loads
+    with this schema, and its locator keeps a booster for each fault class."""
+    from detector.compare import DEFAULT_MODEL_PATH, default_model
+    from detector.features import SCHEMA_VERSION
+
+    assert DEFAULT_MODEL_PATH.stat().st_size < 10_000_000
+    m = default_model()
+    assert m.schema_version == SCHEMA_VERSION
+    assert sorted(m.locator.models_) == ["discharge_only", "to_ground", "turn_to_turn"]

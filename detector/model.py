@@ -436,8 +436,20 @@ class LocationRegressor(RegressorMixin, BaseEstimator):
     _clip: tuple[float, float] | None = (0.0, 1.0)
 
     def routes(self, n_rows: int, fault_class: Any = None) -> list[tuple[HistGradientBoostingRegressor | None, np.ndarray]]:
-        """Which booster answers which rows: (booster, row indices) pairs; booster None for rows of a
-        class without a booster of its own when there is no booster of all rows.
+        """Which booster answers which rows.
+
+        Parameters
+        ----------
+        n_rows : int
+            Number of rows asked.
+        fault_class : array_like of str, shape (n_rows,), optional
+            Each row's fault class; needed when the regressor keeps a booster per class.
+
+        Returns
+        -------
+        list of (HistGradientBoostingRegressor or None, numpy.ndarray of int)
+            Each booster with the indices of its rows; None for rows of a class without a booster of
+            its own when there is no booster of all rows.
 
         Raises
         ------

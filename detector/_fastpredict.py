@@ -333,13 +333,11 @@ def score(model: Any, X: np.ndarray, at_instant: Callable[[np.ndarray], np.ndarr
     if model.locator is not None:
         extra = at_instant(instant) if at_instant is not None and instant is not None else None
         Xl = model.locator_input(X, instant, extra)
-        if not getattr(model.locator, "models_", None):
-            position = regress(model.locator, Xl)
-        else:  # a booster per fault class: each row's most likely one
-            position = np.full(X.shape[0], np.nan)
-            for booster, rows in model.locator.routes(X.shape[0], fault_classes(proba, clf.classes_)):
-                if booster is not None and rows.size:
-                    position[rows] = regress(model.locator, Xl[rows], booster)
+        # each row's booster: that of its most likely fault class (a locator of one booster: that one)
+        position = np.full(X.shape[0], np.nan)
+        for booster, rows in model.locator.routes(X.shape[0], fault_classes(proba, clf.classes_)):
+            if booster is not None and rows.size:
+                position[rows] = regress(model.locator, Xl[rows], booster)
     return proba, position, instant
 
 

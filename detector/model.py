@@ -895,10 +895,13 @@ def save_model(model: ShotModel, path: str | Path) -> None:
 #: Fields of a fitted tree's nodes that prediction never reads: the split gain and the training-sample
 #: count of every node (kept by scikit-learn for inspection and partial dependence).
 _TRAINING_ONLY_NODE_FIELDS = ("gain", "count")
+#: A tree's category bitsets (used by categorical splits only; read-only when predicting).
+_CATEGORY_BITSET_FIELDS = ("binned_left_cat_bitsets", "raw_left_cat_bitsets")
 
 
 def _strip_training_statistics(parts: Mapping[str, Any]) -> None:
-    """Zero, in place, what the trees of ``parts`` hold but never read when predicting.
+    """Zero, in place, what the trees of ``parts`` hold but never read when predicting; share their empty
+    category bitsets.
 
     A prediction walks each tree from its root by ``feature_idx``/``num_threshold`` (and
     ``missing_go_to_left``, ``left``, ``right``, ``is_leaf``) and returns the leaf's ``value``. The
@@ -908,7 +911,13 @@ def _strip_training_statistics(parts: Mapping[str, Any]) -> None:
     :mod:`detector._fastpredict` reads it. A loaded model therefore cannot serve scikit-learn's
     ``partial_dependence`` by its tree-recursion method (which weighs by the node counts); use
     ``method="brute"``.
+
+    Each tree also holds two arrays of category bitsets, empty where no split is categorical (shotcheck
+    has no categorical features). skops stores an object once however often it is referenced, so the
+    empty ones are made one shared array: two file entries per tree fewer, about 1.4 MB of the bundled
+    model's 9.9 MB (the zip entries' headers, not their contents).
     """
+    empty: dict[tuple[tuple[int, ...], str], np.ndarray] = {}
     for est in _fastpredict.estimators_of(types.SimpleNamespace(**parts)):
         for iteration in est._predictors:
             for predictor in iteration:
@@ -919,6 +928,10 @@ def _strip_training_statistics(parts: Mapping[str, Any]) -> None:
                 nodes["value"][~leaf] = 0.0
                 nodes["num_threshold"][leaf] = 0.0
                 nodes["feature_idx"][leaf] = 0
+                for name in _CATEGORY_BITSET_FIELDS:  # no categorical splits: one empty array for all
+                    bits = getattr(predictor, name)
+                    if bits.size == 0:
+                        setattr(predictor, name, empty.setdefault((bits.shape, bits.dtype.str), bits))
 
 
 def missing_model_error(path: Path) -> ShotcheckError:

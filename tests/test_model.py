@@ -221,6 +221,32 @@ def test_model_file_leaves_out_training_statistics(tmp_path):
         np.testing.assert_array_equal(n["depth"], ref["depth"])
 
 
+def test_the_trees_share_one_empty_category_bitset_in_the_file(tmp_path):
+    """Every tree's category bitsets are empty (no categorical features): the file keeps one such array
+    for all of them instead of two per tree, and the loaded model predicts bit for bit as before."""
+    import zipfile
+
+    from detector._fastpredict import estimators_of
+    from detector.model import _CATEGORY_BITSET_FIELDS
+
+    m, X = _model()
+    trees = [p for est in estimators_of(m) for it in est._predictors for p in it]
+    assert all(getattr(p, f).size == 0 for p in trees for f in _CATEGORY_BITSET_FIELDS)
+    path = tmp_path / "m.skops"
+    save_model(m, path)
+    arrays = [n for n in zipfile.ZipFile(path).namelist() if n.endswith(".npy")]
+    # each tree's nodes, one shared bitset and the boosters' other arrays (bin edges, calibration...):
+    # with two bitsets of each tree's own there would be over three arrays per tree
+    assert len(trees) < len(arrays) < 2 * len(trees)
+    loaded = load_model(path, expected_schema="test-1")
+    shared = {id(getattr(p, f)) for est in estimators_of(loaded) for it in est._predictors for p in it
+              for f in _CATEGORY_BITSET_FIELDS}
+    assert len(shared) == 1
+    assert len({id(getattr(p, f)) for p in trees for f in _CATEGORY_BITSET_FIELDS}) == 2 * len(trees)  # untouched
+    np.testing.assert_array_equal(loaded.classifier.predict_proba(X), m.classifier.predict_proba(X))
+    np.testing.assert_array_equal(loaded.locator.predict(X), m.locator.predict(X))
+
+
 def test_schema_mismatch_refused(tmp_path):
     m, _ = _model()
     save_model(m, tmp_path / "m.skops")

@@ -79,8 +79,11 @@ def test_calibrated_thresholds_keep_the_false_alarm_rate(rate, seed):
     assert set(thr) == set(THRESHOLDED)
     far = false_alarm_rate(X, thr)
     assert far <= rate
-    if rate * X.shape[0] >= 10 * len(thr):  # resolvable: not needlessly loose
-        assert far >= 0.5 * rate
+    # not needlessly loose either: one quantile level serves every feature, so as the level moves every
+    # threshold passes its next sample at once and the rate moves in steps of up to one pair per feature
+    # (independent features here: 11 pairs of 2000); the rate reached lies within one such step of the
+    # target (at 0.01 it is about 0.0055 for this reason)
+    assert far >= rate - len(thr) / X.shape[0] - 1e-12, (far, rate)
 
 
 def test_exceeded_lists_the_largest_ratio_first():

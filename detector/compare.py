@@ -22,8 +22,10 @@ import math
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from . import _fastpredict
-from ._validation import ShotcheckError
+from ._validation import RecordError, ShotcheckError
 from .features import (
     FEATURE_NAMES,
     SCHEMA_VERSION,
@@ -151,6 +153,17 @@ CHOPPED_AGAINST_FULL_WARNING = (
 #: test level, or a full-level wave of the same level within the generator's scatter (common practice).
 LEVEL_RATIO_LOW, LEVEL_RATIO_HIGH = 0.9, 5.0
 
+#: Ratio of the two records' test voltage values beyond which they are refused as not comparable [1]:
+#: no two shots of one impulse test differ twentyfold (the lowest reduced levels are about 20-50 % of
+#: the test level: common practice); a factor of 1000 is a voltage channel in V read as kV or the
+#: other way round, whose per-unit currents would then differ a thousandfold and read as a fault.
+LEVEL_RATIO_REFUSED = 20.0
+
+#: Sample rates the verdicts are validated for [Hz] (the training and evaluation families record at
+#: 50-250 MS/s); outside them, down to :data:`detector.features.MIN_COMPARE_SAMPLE_RATE_HZ` and up to the
+#: wave-shape evaluation's limit, a comparison runs with a warning.
+VALIDATED_SAMPLE_RATES_HZ = (50e6, 250e6)
+
 
 def level_warnings(ref_test_voltage_V: float, test_test_voltage_V: float) -> list[str]:
     """Warnings about the levels of the two records (order of the files, units of a channel).
@@ -177,6 +190,90 @@ def level_warnings(ref_test_voltage_V: float, test_test_voltage_V: float) -> lis
         return [f"the reference's test voltage ({r / 1e3:.4g} kV) is above the test record's ({t / 1e3:.4g} kV): "
                 "the reference is the reduced-level wave, given first; are the files in the right order?"]
     return []
+
+
+def check_levels(ref_test_voltage_V: float, test_test_voltage_V: float, *, reference: str | None = None,
+                 test: str | None = None) -> None:
+    """Refuse two records whose test voltage values differ beyond :data:`LEVEL_RATIO_REFUSED`.
+
+    Parameters
+    ----------
+    ref_test_voltage_V, test_test_voltage_V : float
+        Test voltage values of the reference and of the test record [V] (either polarity).
+    reference, test : str, optional
+        Their file names, for the message.
+
+    Raises
+    ------
+    RecordError
+        The ratio of the two values lies beyond ``LEVEL_RATIO_REFUSED`` either way (names the test
+        record's file and its voltage channel).
+    """
+    r, t = abs(float(ref_test_voltage_V)), abs(float(test_test_voltage_V))
+    if not (r > 0 and t > 0 and math.isfinite(r) and math.isfinite(t)):
+        return
+    q = t / r
+    if 1.0 / LEVEL_RATIO_REFUSED <= q <= LEVEL_RATIO_REFUSED:
+        return
+    raise RecordError(
+        f"the test voltage value is {t / 1e3:.4g} kV, {q:.3g} times the reference's ({r / 1e3:.4g} kV"
+        f"{', ' + reference if reference else ''}); two shots of one impulse test do not differ "
+        f"{LEVEL_RATIO_REFUSED:g}-fold (a reduced level is 50-75 % of the test level), so the records are not "
+        "comparable as given: check the unit and scale factor of both voltage channels (values in kV under a "
+        "V header, or the other way round?)",
+        path=test or "test record", field="voltage")
+
+
+def check_distinct(reference: Record, test: Record) -> None:
+    """Refuse a reference and a test record that hold the same samples (the same shot given twice).
+
+    Two shots never record the same noise, so equal samples on both channels mean one file (or one
+    record) was given for both; the comparison would say "no fault" without having compared anything.
+
+    Raises
+    ------
+    RecordError
+        The voltage and current samples of the two records are equal (names both files).
+    """
+    if reference is not test:
+        if reference.n_samples != test.n_samples or abs(reference.sampling_rate_Hz - test.sampling_rate_Hz) > 0:
+            return
+        try:
+            pairs = [(reference.voltage.samples, test.voltage.samples),
+                     (reference.current.samples, test.current.samples)]
+        except ShotcheckError:
+            return  # a missing channel is reported by the comparison itself
+        if not all(a.shape == b.shape and bool(np.array_equal(a, b)) for a, b in pairs):
+            return
+    src = (reference.source, test.source)
+    same = (" (the same file)" if src[0] == src[1] else f" ({src[0]} and {src[1]})") if all(src) else ""
+    raise RecordError(
+        f"the reference and the test record hold the same samples{same}: one shot was given twice; give "
+        "the reduced-level reference first and a full-level test shot second", path=test.source or "test record",
+        field="samples")
+
+
+def rate_warnings(reference: Record, test: Record) -> list[str]:
+    """Warnings for records sampled outside :data:`VALIDATED_SAMPLE_RATES_HZ`.
+
+    Parameters
+    ----------
+    reference, test : Record
+
+    Returns
+    -------
+    list of str
+        One warning per record outside the validated rates, empty otherwise.
+    """
+    lo, hi = VALIDATED_SAMPLE_RATES_HZ
+    out = []
+    for label, rec in (("reference", reference), ("test", test)):
+        fs = rec.sampling_rate_Hz
+        if not lo <= fs <= hi:
+            out.append(f"the {label} record is sampled at {fs / 1e6:.4g} MS/s, outside the {lo / 1e6:g}-{hi / 1e6:g} "
+                       "MS/s the verdicts are validated for: the fault instant and location are less certain, "
+                       "and faults may be missed or benign differences indicated")
+    return out
 
 
 def _fault_time_pair_s(a: PairAnalysis) -> float | None:
@@ -231,14 +328,19 @@ def compare(
     Raises
     ------
     RecordError
-        A record lacks a channel or the two do not overlap.
+        A record lacks a channel or the two do not overlap; the two hold the same samples
+        (:func:`check_distinct`); their test voltage values differ beyond :data:`LEVEL_RATIO_REFUSED`
+        (:func:`check_levels`).
     ShotcheckError
         No impulse in a record, or no usable model.
     """
     m = model if isinstance(model, ShotModel) else default_model(model)
     if tuple(m.feature_names) != FEATURE_NAMES:
         raise ShotcheckError("the model's feature names differ from this shotcheck's; retrain the model")
+    check_distinct(reference, test)
     a = extract(reference, test, reference_shape=reference_shape)
+    check_levels(a.pair.ref_test_voltage_V, a.pair.test_test_voltage_V, reference=reference.source,
+                 test=test.source)
     x = a.features.reshape(1, -1)
     # one sample: all trees walked at once, without per-tree calls (see detector._fastpredict)
     proba_all, loc_all, t_all = _fastpredict.score(m, x, lambda inst: instant_inputs(a, inst))
@@ -262,7 +364,8 @@ def compare(
     event = "none"
     if fault:
         event = max((c for c in EVENT_CLASSES if c != "none"), key=lambda c: probs[c])
-    warnings = list(a.warnings) + level_warnings(a.pair.ref_test_voltage_V, a.pair.test_test_voltage_V)
+    warnings = (list(a.warnings) + level_warnings(a.pair.ref_test_voltage_V, a.pair.test_test_voltage_V)
+                + rate_warnings(reference, test))
     if by_decisive_alone:
         e = decisive[0]
         warnings.append(

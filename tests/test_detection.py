@@ -369,11 +369,18 @@ def _with(record, *, voltage=None, current=None, dt=None):
     ("picosecond grid", r"t\.csv: sample rate: 1e\+12 Hz .* is outside"),
     ("9 us long", r"t\.csv: time: the record spans 8\.99 us \(900 samples\); a comparison needs at least 10 us"),
     ("unit error", r"t\.csv: .*peak magnitude .* V is beyond any impulse test"),
+    # kilovolts in a column labelled V: the per-unit current a thousand times larger read as a fault
+    ("kV read as V", r"t\.csv: voltage: the test voltage value is .* 0\.00167 times the reference's \(.*r\.csv\); "
+                     r".*not comparable as given"),
+    ("the reference given twice", r"t\.csv: samples: the reference and the test record hold the same samples "
+                                  r"\(.*r\.csv and .*t\.csv\): one shot was given twice"),
 ])
 def test_records_no_comparison_can_use_exit_2_naming_file_and_field(tmp_path, capsys, what, match):
     """A voltage without an impulse, a dead current channel, a sample rate no impulse recorder has, a
     record too short to hold an impulse or values beyond any impulse test used to give a verdict all the
-    same (a fault, or none) or a message without the file; they are input errors now."""
+    same (a fault, or none) or a message without the file; they are input errors now. So are a voltage
+    channel in the wrong unit (values in kV under a V header: its test voltage value a thousandth of the
+    reference's) and the same shot given as both records."""
     c = case()
     test = c.test
     rng = np.random.default_rng(0)
@@ -395,6 +402,10 @@ def test_records_no_comparison_can_use_exit_2_naming_file_and_field(tmp_path, ca
             dataclasses.replace(ch, samples=ch.samples[1000:1900]) for ch in test.channels))
     elif what == "unit error":
         test = _with(test, voltage=test.voltage.samples * 1e6)
+    elif what == "kV read as V":
+        test = _with(test, voltage=test.voltage.samples * 1e-3)
+    elif what == "the reference given twice":
+        test = c.reference
     else:
         test = _with(test, dt=1e-12)
     r, t = tmp_path / "r.csv", tmp_path / "t.csv"
@@ -406,6 +417,18 @@ def test_records_no_comparison_can_use_exit_2_naming_file_and_field(tmp_path, ca
     assert "Traceback" not in err
     # the same record as the reference is refused alike
     assert main(["compare", str(t), str(r), "--json"]) == 2
+
+
+def test_a_record_outside_the_validated_sample_rates_is_compared_with_a_warning():
+    """25 MS/s lies within what a comparison can use (5 MS/s up) but below the 50-250 MS/s the verdicts
+    are validated for: the verdict comes with a warning naming the record and its rate; at the validated
+    rates there is none."""
+    v, _ = verdict(test_recorder={"sample_rate_Hz": 25e6})
+    told = [w for w in v.warnings if "validated for" in w]
+    assert len(told) == 1 and told[0].startswith("the test record is sampled at 25 MS/s, outside the 50-250 MS/s")
+    for kw in ({}, {"reference_recorder": {"sample_rate_Hz": 250e6}}, {"test_recorder": {"sample_rate_Hz": 50e6}}):
+        v, _ = verdict(**kw)
+        assert not any("validated for" in w for w in v.warnings), (kw, v.warnings)
 
 
 def test_levels_out_of_order_or_in_other_units_give_a_warning():

@@ -55,6 +55,8 @@ BENIGN = {
     "test chopped at 4 us, reference full": {"chop_test_s": 4e-6},
     "both chopped, 0.15 us chopping-time scatter": {"chop_test_s": 4e-6, "chop_reference_s": 4.15e-6},
     "another noise realisation": {"seed": 5},
+    "test record with half the pre-trigger (4 us against 8 us)": {"test_recorder": {"pretrigger_s": 4e-6}},
+    "reference record with a longer pre-trigger (15 us against 8 us)": {"reference_recorder": {"pretrigger_s": 15e-6}},
     "test chopped at 4 us, its current recorder clipping on the tail (range 20 A of a 34 A peak)": {
         "chop_test_s": 4e-6, "test_recorder": {"current_range_A": 20.0}},
 }
@@ -129,33 +131,46 @@ def test_harmless_differences_give_no_fault(name):
 
 
 @pytest.mark.parametrize(
-    ("kw", "event", "boundary"),
+    ("kw", "event"),
     [
-        # 5 turns of 1000 at mid-winding (section 21): every model trained so far puts it between
-        # turn-to-turn and discharge (0.44-0.8 turn-to-turn); its event is checked apart below, as a
-        # known shortfall (the README gives the measured confusion)
-        ({"fault": "turn_to_turn"}, "turn_to_turn", True),
-        ({"fault": "turn_to_turn", "section": 8, "turns": 3}, "turn_to_turn", False),
-        ({"fault": "to_ground"}, "to_ground", False),
-        ({"fault": "to_ground", "section": 30}, "to_ground", False),
+        # 5 turns of 1000 at mid-winding (section 21): the models up to the one of 32000 pairs put it
+        # between turn-to-turn and discharge (0.44-0.8 turn-to-turn), so only that was asserted; the
+        # model of 64000 pairs names it. A retrained model that does not has lost ground here (the
+        # README gives the measured confusion)
+        ({"fault": "turn_to_turn"}, "turn_to_turn"),
+        ({"fault": "turn_to_turn", "section": 8, "turns": 3}, "turn_to_turn"),
+        ({"fault": "to_ground"}, "to_ground"),
+        ({"fault": "to_ground", "section": 30}, "to_ground"),
     ],
 )
-def test_faults_are_indicated_classified_and_timed(kw, event, boundary):
+def test_faults_are_indicated_classified_and_timed(kw, event):
     v, c = verdict(**kw)
     assert v.fault_indicated, v.probabilities
-    if boundary:
-        assert v.probabilities["turn_to_turn"] + v.probabilities["discharge_only"] > 0.9, v.probabilities
-    else:
-        assert v.event == event, v.probabilities
+    assert v.event == event, v.probabilities
     assert v.location is not None and 0.0 <= v.location <= 1.0
     assert v.fault_time_s is not None and abs(1e6 * v.fault_time_s - c.fault_time_us) < 3.0
 
 
-@pytest.mark.xfail(strict=False, reason="known shortfall: the 5-turn mid-winding short sits between turn-to-turn "
-                   "and discharge (0.44-0.8 turn-to-turn over the models trained so far); README, class accuracy")
-def test_mid_winding_five_turn_short_is_named_turn_to_turn():
-    v, _ = verdict(fault="turn_to_turn")
-    assert v.event == "turn_to_turn", v.probabilities
+def test_a_discharge_is_indicated_and_named_with_wave_shape_and_transfer_function_unchanged():
+    """Discharges between two discs (12 pulses of 30 ns from section 21): a fault, named a discharge,
+    while the wave shape of the test record stays that of the healthy pair's and neither the transfer
+    function nor the coarse wavelet levels pass their thresholds (the fact of the trade in the module
+    docstring: a partial discharge leaves the wave shape). The charge they move inside the winding
+    rings its slowest resonance (``test_a_discharge_train_rings_the_winding_where_averages_see_little``),
+    which is what the classifier sees here; no metric passes its threshold alone."""
+    v, c = verdict(fault="discharge_only")
+    assert v.fault_indicated and v.event == "discharge_only", v.probabilities
+    assert v.location is not None and 0.0 <= v.location <= 1.0
+    assert v.fault_time_s is not None and abs(1e6 * v.fault_time_s - c.fault_time_us) < 3.0
+    h = case()
+    healthy = extract(h.reference, h.test).as_dict()
+    d = extract(c.reference, c.test).as_dict()
+    for name in ("ws_front_time_change", "ws_time_to_half_change", "ws_test_voltage_ratio_change"):
+        assert abs(d[name] - healthy[name]) < 0.002, (name, d[name], healthy[name])
+    thresholds = default_model().thresholds
+    for name in ("tf_rms_dB", "tf_low_rms_dB", "tf_medium_rms_dB", "tf_max_peak_shift", "wv_coarse_peak_sigma"):
+        assert d[name] < thresholds[name], (name, d[name], thresholds[name])
+    assert v.exceeded == []
 
 
 def test_a_burst_late_in_the_tail_is_indicated_after_the_compensated_span():
@@ -257,10 +272,11 @@ def test_breakdown_after_chopping_is_indicated(kw, seed):
     assert v.event == kw["fault"], v.probabilities
 
 
-@pytest.mark.xfail(strict=False, reason="known shortfall: a 5-turn short (0.5 % of the winding) after the "
-                   "chop, against a full-wave reference, is found in 60-75 % of cases (README, sensitivity "
-                   "table: chopped test shots against a full reference); compare with a reduced chopped wave")
 def test_five_turn_breakdown_after_chopping_is_indicated_in_every_realisation():
+    """A 5-turn short (0.5 % of the winding) 20 us after the chop, against a full-wave reference, in three
+    noise realisations. Such shorts behind a chop are found in 60-75 % of cases (README, sensitivity
+    table: chopped test shots against a full reference), so this was a known shortfall until the model
+    of 64000 pairs found all three; a retrained model that misses one has lost ground here."""
     for seed in (0, 1, 2):
         v, _ = verdict(fault="turn_to_turn", chop_test_s=3e-6, seed=seed)
         assert v.fault_indicated, (seed, v.probabilities)
@@ -271,9 +287,11 @@ def test_polarity_mirror_gives_the_same_verdict():
         c = case(**kw)
         a = compare(c.reference, c.test, model=default_model())
         b = compare(mirrored(c.reference), mirrored(c.test), model=default_model())
+        # the features are the same to the last bit (every metric takes magnitudes or per-unit values of
+        # records normalised by their own signed test voltage), and so is everything the model makes of them
         assert (a.fault_indicated, a.event) == (b.fault_indicated, b.event)
-        for k in a.probabilities:
-            assert a.probabilities[k] == pytest.approx(b.probabilities[k], abs=0.02)
+        assert a.probabilities == b.probabilities, (kw, a.probabilities, b.probabilities)
+        assert (a.fault_time_s, a.location) == (b.fault_time_s, b.location), kw
 
 
 def test_positive_polarity_simulation_gives_the_same_verdict():
@@ -318,6 +336,9 @@ def test_verdict_does_not_depend_on_trigger_offset_or_units(tmp_path):
 
     w = compare(read(tmp_path / "ref_V.csv"), read(tmp_path / "test_V.csv"), model=default_model())
     assert (w.fault_indicated, w.event) == (base.fault_indicated, base.event)
+    for k, p in base.probabilities.items():  # written as text and read back: the numbers, not just the verdict
+        assert w.probabilities[k] == pytest.approx(p, abs=1e-6), k
+    assert 1e6 * w.fault_time_s == pytest.approx(1e6 * base.fault_time_s, abs=0.01)
 
 
 def dataclass_replace_unit(ch):

@@ -344,13 +344,22 @@ def _recorder_warnings(p: _Prepared, tx_s: float, *, full_scale_V: float | None,
     # clipping: many samples at the extreme code, few per code in the three below (a smooth crest: ratio < 2)
     top = float(p.u.max())
     q = p.q if p.q is not None else q  # the step seen in the samples is the one that tells clipping
-    if q is not None and q > 0:
+    if q is None or not q > 0:
+        # no uniform step: float samples, or codes stored again on a finer grid that is no whole multiple
+        # of them (12-bit codes in a file's 16-bit integers: gaps of 41 and 42 of its steps). The smallest
+        # gap between distinct values then stands for the step; a smooth crest passes the values below
+        # its top as a recorded one does, a clipped channel sits at its limit
+        vals = np.unique(p.u)
+        gaps = np.diff(vals)
+        gaps = gaps[gaps > 1e-12 * max(abs(top), 1e-300)]
+        q = float(gaps.min()) if gaps.size else 0.0
+    if q > 0:
         n_top = int(np.count_nonzero(p.u >= top - 0.5 * q))
         n_next3 = int(np.count_nonzero((p.u < top - 0.5 * q) & (p.u >= top - 3.5 * q)))
         clipped = n_top >= 5 and n_top > 4 * max(n_next3 / 3.0, 1.0)
     else:
-        n_top = int(np.count_nonzero(p.u == top))
-        clipped = n_top >= 3
+        n_top = int(p.u.size)
+        clipped = n_top >= 3  # every sample at one value
     if clipped:
         w.append(f"clipping: {n_top} samples sit at the record's extreme {p.sign * top / 1e3:.4g} kV "
                  "(flat top); the recorder range was exceeded")

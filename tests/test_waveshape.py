@@ -327,6 +327,14 @@ def test_clipping_and_low_range_warnings():
     assert not any(w.startswith("clipping:") for w in evaluate_lightning(t, ok).warnings)
     # exact float repeats at the extreme also count
     assert any(w.startswith("clipping:") for w in evaluate_lightning(t, np.minimum(v, 9e4)).warnings)
+    # 12-bit codes stored again in a file's 16-bit integers (41.53 of them per code, so the values' gaps
+    # are 41 or 42 of the file's steps and no uniform step exists): a smooth crest is no clipping (the
+    # demo's records read without their .inf once were); clipped codes stored that way still are
+    file_step = 2 * 1.1e5 / 4096 / 41.53
+    for codes, clipped in ((quantise(v, 1.1e5, 12), False), (quantise(v, 0.9e5, 12), True)):
+        stored = np.round(codes / file_step) * file_step
+        told = [w for w in evaluate_lightning(t, stored).warnings if w.startswith("clipping:")]
+        assert bool(told) == clipped, told
     # peak below 20 % of full scale (IEC 61083-1)
     ws = evaluate_lightning(t, quantise(v, 6e5, 14), bits=14, full_scale_V=6e5)
     assert any("below 20 % of the full scale" in w for w in ws.warnings)

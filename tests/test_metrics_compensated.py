@@ -77,6 +77,10 @@ def test_changed_network_is_found_with_its_onset():
     cd = compensated_difference(v_r, i_r, v_t, i_t, DT, pretrigger_samples=PRE)
     z, first = multiscale_z(cd, start=PRE + 150, pretrigger_samples=PRE)
     assert np.nanmax(z) > 20.0
+    # with its onset: the change is there from the front on, so the difference's first significant
+    # sample lies within the first few samples scored
+    assert cd.onset_index is not None
+    assert 0 <= int(np.nanmin(first)) - (PRE + 150) < 10, first
 
 
 def test_backtracked_onset_finds_where_a_growing_change_began():

@@ -313,8 +313,9 @@ def test_chopped_report_of_the_example_unit(chopped_verdict, tmp_path):
     # the test record is a chopped wave: its row shows the time to chopping, checked against 2-6 us
     # (IEC 60076-3, chopped-wave test; REFERENCE.md, recalled)
     tc = chopped_verdict.analysis.test_shape.time_to_chopping_s
-    assert tc is not None
-    assert f"{tc * 1e6:.3f} µs" in text
+    assert tc is not None and 2e-6 <= tc <= 6e-6
+    shown = f"{tc * 1e6:.3f} µs"
+    assert f'{shown} <span class="pass">pass</span> <span class="na">(limits 2–6)</span>' in text
     assert "chopped lightning impulse" in text
 
 

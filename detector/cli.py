@@ -404,6 +404,17 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _input_error(message: str, want_json: bool, path: object = None, field: str | None = None,
+                 detail: str | None = None) -> int:
+    """Report an input error: the message on stderr and, for ``--json``, an object on stdout that an
+    acquisition chain reading the JSON can act on (``error``, ``file``, ``field``, ``detail``). Returns 2."""
+    print(f"{PROG}: error: {message}", file=sys.stderr)
+    if want_json:
+        print(json.dumps({"error": message, "file": None if path is None else str(path), "field": field,
+                          "detail": detail if detail is not None else message, "exit_status": 2}))
+    return 2
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the ``shotcheck`` command line.
 
@@ -415,7 +426,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     Returns
     -------
     int
-        Exit status: 0 success / no fault indicated, 1 fault indicated, 2 input error.
+        Exit status: 0 success / no fault indicated, 1 fault indicated, 2 input error (its message on
+        stderr, and with ``--json`` also as a JSON object on stdout).
     """
     parser = build_parser()
     try:
@@ -426,20 +438,18 @@ def main(argv: Sequence[str] | None = None) -> int:
     if func is None:
         parser.print_help()
         return 2
+    want_json = bool(getattr(args, "json", False))
     try:
         return int(func(args))
     except ShotcheckError as exc:
-        print(f"{PROG}: error: {exc}", file=sys.stderr)
-        return 2
+        return _input_error(str(exc), want_json, getattr(exc, "path", None), getattr(exc, "field", None),
+                            getattr(exc, "detail", None))
     except FileNotFoundError as exc:
-        print(f"{PROG}: error: {exc.filename}: file not found", file=sys.stderr)
-        return 2
+        return _input_error(f"{exc.filename}: file not found", want_json, exc.filename)
     except IsADirectoryError as exc:
-        print(f"{PROG}: error: {exc.filename}: is a folder, expected a file", file=sys.stderr)
-        return 2
+        return _input_error(f"{exc.filename}: is a folder, expected a file", want_json, exc.filename)
     except PermissionError as exc:
-        print(f"{PROG}: error: {exc.filename}: permission denied", file=sys.stderr)
-        return 2
+        return _input_error(f"{exc.filename}: permission denied", want_json, exc.filename)
     except KeyboardInterrupt:
         print(f"{PROG}: interrupted", file=sys.stderr)
         return 130

@@ -156,3 +156,23 @@ def test_demo_runs_the_whole_job_and_the_readme_quotes_what_it_prints(tmp_path, 
     assert quoted, "the README no longer quotes the demo's instants"
     assert float(quoted.group(1)) == pytest.approx(truth["fault_time_us"], abs=0.006)
     assert float(quoted.group(2)) == pytest.approx(d["fault_time_us"], abs=0.006)
+
+
+def test_an_input_error_with_json_prints_a_json_object_naming_file_and_field(tmp_path, capsys):
+    """An acquisition chain that reads the JSON gets the error as JSON too (exit 2): which file, which
+    field, what was wrong; the message also goes to stderr as without --json."""
+    bad = tmp_path / "t.csv"
+    bad.write_text("time [s],voltage [kV],current [A]\n0,abc,1\n", encoding="utf-8")
+    good = tmp_path / "r.csv"
+    good.write_text("time [s],voltage [kV],current [A]\n0,1,1\n", encoding="utf-8")
+    assert main(["compare", str(good), str(bad), "--json"]) == 2
+    cap = capsys.readouterr()
+    err = json.loads(cap.out)
+    assert err["exit_status"] == 2 and err["error"] in cap.err
+    assert err["file"] is not None and err["field"] is not None and err["detail"]
+    assert main(["compare", str(tmp_path / "missing.csv"), str(bad), "--json"]) == 2
+    err = json.loads(capsys.readouterr().out)
+    assert err["file"].endswith("missing.csv") and "file not found" in err["error"]
+    # without --json nothing goes to stdout
+    assert main(["compare", str(good), str(bad)]) == 2
+    assert capsys.readouterr().out == ""

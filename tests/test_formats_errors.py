@@ -181,3 +181,19 @@ def test_overflow_to_infinity_names_the_file(tmp_path: Path) -> None:
     (tmp_path / "big.csv").write_text("time_s,U_MV\n" + "\n".join(f"{k},{1e305}" for k in range(20)))
     with pytest.raises(RecordError, match=r"big\.csv: channel 'U': sample 0 is inf"):
         read(tmp_path / "big.csv")
+
+
+def test_messages_say_what_to_give_instead(tmp_path: Path) -> None:
+    """The data file of a COMTRADE record named instead of its configuration, an empty data file and a
+    time column without a unit: each message says what was expected, not only what failed."""
+    rec = _record()
+    write(rec, tmp_path / "a.cfg", data_format="BINARY")
+    with pytest.raises(RecordError, match=r"Unsupported file type '\.dat' for 'a\.dat'.*give .*a\.cfg"):
+        read(tmp_path / "a.dat")
+    (tmp_path / "a.dat").write_bytes(b"")
+    with pytest.raises(FormatError, match=r"a\.dat: the data file is empty; the configuration says \d+ samples"):
+        read(tmp_path / "a.cfg")
+    p = tmp_path / "b.csv"
+    p.write_text("time,voltage [kV],current [A]\n0,1,1\n1e-8,2,1\n", encoding="utf-8")
+    with pytest.raises(FormatError, match=r"first column 'time' has no unit; expected time_s"):
+        read(p)

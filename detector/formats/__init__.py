@@ -60,8 +60,11 @@ def _module_for(path: str | os.PathLike) -> ModuleType:
     suffix = p.suffix.lower()
     if suffix not in REGISTRY:
         shown = p.suffix or "(none)"
+        hint = ""
+        if suffix in (".dat", ".inf", ".hdr"):  # another file of a COMTRADE record: name its .cfg
+            hint = f"; a COMTRADE record is read from its configuration file: give {p.with_suffix('.cfg')}"
         raise RecordError(
-            f"Unsupported file type '{shown}' for '{p.name}'. Supported: {', '.join(REGISTRY)}",
+            f"Unsupported file type '{shown}' for '{p.name}'. Supported: {', '.join(REGISTRY)}{hint}",
             path=None,
         )
     return REGISTRY[suffix]

@@ -317,6 +317,9 @@ def _parse_dat(data: bytes, cfg: _Cfg, path: str) -> tuple[np.ndarray, np.ndarra
     dtype = _binary_dtype(cfg)
     rows = len(data) // dtype.itemsize
     if len(data) != n * dtype.itemsize:
+        if not data:
+            raise FormatError(f"the data file is empty; the configuration says {n} samples "
+                              f"({n * dtype.itemsize} bytes)", path=path)
         if len(data) < n * dtype.itemsize:
             raise FormatError(
                 f"truncated data: {len(data)} bytes hold {rows} samples of {dtype.itemsize} bytes, the "

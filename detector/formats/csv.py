@@ -371,6 +371,11 @@ def _read(
             "separated by ',' or ';'", path=p, field=f"line {header_line}",
         )
     tname, tunit = names_units[0]
+    if tname.lower() in _TIME_NAMES and tunit is None:
+        raise FormatError(
+            f"first column {cells[0].strip()!r} has no unit; expected time_s, time_ms, time_us or time_ns "
+            "(or 'time [us]')", path=p, field=f"line {header_line}, column 1",
+        )
     if tname.lower() not in _TIME_NAMES or tunit not in TIME_UNITS:
         raise FormatError(
             f"first column {cells[0].strip()!r} is not a time column; expected time_s, time_ms, time_us "

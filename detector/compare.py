@@ -236,7 +236,7 @@ def check_distinct(reference: Record, test: Record) -> None:
         The voltage and current samples of the two records are equal (names both files).
     """
     if reference is not test:
-        if reference.n_samples != test.n_samples or abs(reference.sampling_rate_Hz - test.sampling_rate_Hz) > 0:
+        if reference.n_samples != test.n_samples or reference.sampling_rate_Hz != test.sampling_rate_Hz:
             return
         try:
             pairs = [(reference.voltage.samples, test.voltage.samples),

@@ -29,6 +29,7 @@ from ._validation import RecordError, ShotcheckError
 from .features import (
     FEATURE_NAMES,
     SCHEMA_VERSION,
+    VALIDATED_SAMPLE_RATES_HZ,
     PairAnalysis,
     describe,
     extract,
@@ -158,11 +159,6 @@ LEVEL_RATIO_LOW, LEVEL_RATIO_HIGH = 0.9, 5.0
 #: the test level: common practice); a factor of 1000 is a voltage channel in V read as kV or the
 #: other way round, whose per-unit currents would then differ a thousandfold and read as a fault.
 LEVEL_RATIO_REFUSED = 20.0
-
-#: Sample rates the verdicts are validated for [Hz] (the training and evaluation families record at
-#: 50-250 MS/s); outside them, down to :data:`detector.features.MIN_COMPARE_SAMPLE_RATE_HZ` and up to the
-#: wave-shape evaluation's limit, a comparison runs with a warning.
-VALIDATED_SAMPLE_RATES_HZ = (50e6, 250e6)
 
 
 def level_warnings(ref_test_voltage_V: float, test_test_voltage_V: float) -> list[str]:

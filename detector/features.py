@@ -473,6 +473,10 @@ class _Clock:
 #: column in the wrong unit gives such rates). Verdicts are validated for 50-250 MS/s; the wave-shape
 #: evaluation warns below the 30/Tx of IEC 61083-1 for the front.
 MIN_COMPARE_SAMPLE_RATE_HZ = 5e6
+#: Sample rates the verdicts are validated for [Hz] (the training and evaluation families record at
+#: 50-250 MS/s); between them and the limits above a comparison runs with a warning
+#: (:func:`detector.compare.rate_warnings`).
+VALIDATED_SAMPLE_RATES_HZ = (50e6, 250e6)
 #: Shortest record a comparison uses [s]: the front, the crest and some of the tail (or the chop).
 MIN_RECORD_S = 10e-6
 #: Largest magnitudes a record may hold [V], [A]: beyond any impulse test (a unit or scaling error).
@@ -504,7 +508,8 @@ def check_comparable(record: Record, label: str) -> None:
         raise RecordError(
             f"{fs:.4g} Hz ({fs / 1e6:.4g} MS/s) is outside the {MIN_COMPARE_SAMPLE_RATE_HZ / 1e6:g} MS/s to "
             f"{MAX_SAMPLE_RATE_HZ / 1e9:g} GS/s a lightning-impulse comparison can use (verdicts are validated "
-            "for 50-250 MS/s); check the time column's unit or the sample interval", path=path,
+            f"for {VALIDATED_SAMPLE_RATES_HZ[0] / 1e6:g}-{VALIDATED_SAMPLE_RATES_HZ[1] / 1e6:g} MS/s); check the "
+            "time column's unit or the sample interval", path=path,
             field="sample rate")
     if record.duration_s < MIN_RECORD_S:
         raise RecordError(

@@ -201,6 +201,17 @@ class PairAnalysis:
     beyond_onset_s : float or None
         First significant (6 noise units) wavelet coefficient of the plain current difference after the
         compensated span, levels D1-D6 [s, pair axis]; None where there is none.
+    wavelet_scored : numpy.ndarray of bool or None
+        Per column of ``wavelet.difference_map``: whether the sample is scored (after the front window,
+        measured, away from an intended chop and from the span's last ``WAVELET_END_GUARD_S``); the
+        rest of the map is drawn but counts for nothing.
+    wavelet_beyond : WaveletDifference or None
+        The plain current difference (test minus reference, per unit) after the compensated span,
+        levels D1-D6 scored (:func:`_beyond_span_peaks`), its map's columns from the span's end to the
+        record's end; None where that part is too short to be scored.
+    wavelet_beyond_scored : numpy.ndarray of bool or None
+        (levels, columns) of ``wavelet_beyond.difference_map``: the coefficients scored (rows D1-D6;
+        each level no closer to the record's end than its half support).
     """
 
     features: np.ndarray
@@ -217,6 +228,9 @@ class PairAnalysis:
     compensated: CompensatedDifference | None = None
     compensated_onset_s: float | None = None
     beyond_onset_s: float | None = None
+    wavelet_scored: np.ndarray | None = None
+    wavelet_beyond: WaveletDifference | None = None
+    wavelet_beyond_scored: np.ndarray | None = None
 
     def as_dict(self) -> dict[str, float]:
         """Feature name -> value (NaN kept)."""
@@ -405,8 +419,8 @@ def _wavelet_features(wd: WaveletDifference | None, front_s: float) -> list[floa
     return [*energy.tolist(), *peak.tolist(), fine, coarse, ft, *first.tolist()]
 
 
-def _beyond_span_peaks(pair: AlignedPair, test_current: np.ndarray, stop: int,
-                       chop_s: float | None) -> tuple[list[float], float | None]:
+def _beyond_span_peaks(pair: AlignedPair, test_current: np.ndarray, stop: int, chop_s: float | None
+                       ) -> tuple[list[float], float | None, WaveletDifference | None, np.ndarray | None]:
     """Peaks of the plain current difference's wavelet levels after the compensated span [noise units].
 
     The compensated prediction stops where its unwindowing gain reaches its limit (about 70 % into the
@@ -427,6 +441,11 @@ def _beyond_span_peaks(pair: AlignedPair, test_current: np.ndarray, stop: int,
         Earliest of the levels' first significant differences (6 noise units; each level's time is its
         largest coefficient within a support after the crossing, as :func:`wavelet_difference` gives it)
         [s, pair axis]; None where there is none.
+    beyond : WaveletDifference or None
+        The transform with its map's columns from ``stop`` on (for the report's figure); None where the
+        part is not scored.
+    beyond_scored : numpy.ndarray of bool or None
+        (``BEYOND_LEVELS``, columns of ``beyond``): the coefficients the peaks are taken over.
     """
     nan = math.nan
     t = pair.times_s
@@ -437,12 +456,12 @@ def _beyond_span_peaks(pair: AlignedPair, test_current: np.ndarray, stop: int,
     if chop_s is not None:
         scored &= ~((t[lo:] >= chop_s + CHOP_WINDOW_S[0]) & (t[lo:] <= chop_s + CHOP_WINDOW_S[1]))
     if scored.sum() < BEYOND_MIN_SAMPLES or pywt.dwt_max_level(n - lo, 8) < BEYOND_LEVELS:
-        return [nan, nan], None
+        return [nan, nan], None, None, None
     wd = wavelet_difference(pair.ref_current_pu[lo:], test_current[lo:], pair.sample_interval_s,
                             level=BEYOND_LEVELS, scored=scored, t0_s=float(t[lo]))
     half_support = level_half_supports(wd.wavelet, BEYOND_LEVELS)[:BEYOND_LEVELS].astype(np.int64)
-    rows = np.where(scored[None, :] & (k[None, :] < (n - lo) - half_support[:, None]),
-                    wd.difference_map[:BEYOND_LEVELS], 0.0)
+    counted = scored[None, :] & (k[None, :] < (n - lo) - half_support[:, None])
+    rows = np.where(counted, wd.difference_map[:BEYOND_LEVELS], 0.0)
     peak = rows.max(axis=1)
     # each row's first significant coefficient (its time refined to the largest one within a support
     # after the crossing), where the row is scored
@@ -450,7 +469,9 @@ def _beyond_span_peaks(pair: AlignedPair, test_current: np.ndarray, stop: int,
     limit = float(t[lo]) + ((n - lo) - half_support) * pair.sample_interval_s
     ok = np.isfinite(first) & (first < limit)
     onset = float(np.min(first[ok])) if ok.any() else None
-    return [float(np.max(peak[:3])), float(np.max(peak[3:]))], onset
+    k0 = stop - lo  # the span's end, in columns of the part transformed
+    shown = dataclasses.replace(wd, difference_map=wd.difference_map[:, k0:], times_s=wd.times_s[k0:])
+    return [float(np.max(peak[:3])), float(np.max(peak[3:]))], onset, shown, counted[:, k0:]
 
 
 class _Clock:
@@ -702,6 +723,7 @@ def extract(
     valid = np.flatnonzero(np.isfinite(cd.sigma))
     stop = int(valid[-1]) + 1 if valid.size else 0
     wd: WaveletDifference | None = None
+    wd_scored: np.ndarray | None = None
     bursts = [math.nan] * (2 * BURST_LEVELS + 1)
     if stop >= 64:
         t = pair.times_s[:stop]
@@ -713,11 +735,12 @@ def extract(
         wd = wavelet_difference(cd.predicted[:stop], test_current[:stop], dt,
                                 t0_s=float(pair.times_s[0]), noise_scale=cd.sigma[:stop], scored=scored,
                                 noise_segments=WAVELET_NOISE_SEGMENTS)
+        wd_scored = scored
         counts, spans = burst_counts(wd.difference_map[:BURST_LEVELS], scored, dt, gap_s=BURST_GAP_S)
         strong, _ = burst_counts(np.max(wd.difference_map[:2], axis=0)[None, :], scored, dt,
                                  k_sigma=BURST_STRONG_SIGMA, gap_s=BURST_GAP_S)
         bursts = [*counts.astype(float).tolist(), *(1e6 * spans).tolist(), float(strong[0])]
-    beyond, beyond_onset_s = _beyond_span_peaks(pair, test_current, stop, chop_s)
+    beyond, beyond_onset_s, wd_beyond, beyond_scored = _beyond_span_peaks(pair, test_current, stop, chop_s)
     clock("wavelet")
 
     f: list[float] = []
@@ -782,7 +805,7 @@ def extract(
     warnings = tuple(dict.fromkeys([*notes, *(ws_r.warnings if ws_r else ()), *(ws_t.warnings if ws_t else ()),
                                     *pair.warnings]))
     return PairAnalysis(vec, ws_r, ws_t, pair, td, tf_r, tf_t, tc, wd, front_s, warnings, cd, cd_f[6],
-                        beyond_onset_s)
+                        beyond_onset_s, wd_scored, wd_beyond, beyond_scored)
 
 
 #: Onset features that mark a sharp change to within a few samples (fine wavelet levels, short averages).

@@ -12,13 +12,17 @@
     both keep the test record's polarity, in kV and A; the time axis is the test record's own.
 ``difference``
     Test minus scaled reference, voltage and current, with the +/- k sigma noise band of the
-    time-domain onset detector and the span after a voltage collapse (not compared) shaded.
+    time-domain onset detector and the span after a voltage collapse (not compared) shaded; below them
+    the test current minus its prediction from the reference, on the whole record's time axis, the
+    part after the prediction's span shaded.
 ``transfer``
     Transfer-function magnitudes |I(f)/V(f)| of both records (dB re 1 S against log frequency) and their
     difference, the comparison bands shaded.
 ``wavelet``
     Wavelet difference map of the neutral currents (time by level, |difference| in noise units), each
-    level labelled with its approximate frequency band.
+    level labelled with its approximate frequency band: the test current against its prediction from
+    the reference over the span the prediction covers, then against the reference current itself to
+    the record's end (the levels scored there); cells that are not scored drawn grey.
 
 The figures are built on :class:`matplotlib.figure.Figure` directly with the Agg canvas: they are never
 registered with :mod:`matplotlib.pyplot`, so they need no ``plt.close`` and leave no global state; drop
@@ -36,6 +40,7 @@ from collections.abc import Mapping
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
+from matplotlib import colormaps
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import LogNorm
 from matplotlib.figure import Figure
@@ -484,7 +489,7 @@ def difference_figure(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> Figure:
         ax_v.annotate(f"{name} →", (x, 1.0), xycoords=("data", "axes fraction"), xytext=(2, -9 - 9 * k),
                       textcoords="offset points", fontsize=_FONT_PT - 1, color="#444444")
     if cd is not None:
-        _compensated_panel(axes[2], cd, t_us, scale, t_f)
+        _compensated_panel(axes[2], cd, t_us, scale, t_f, beyond_scored=getattr(a, "wavelet_beyond", None) is not None)
         _shade_runs(axes[2], t_us, p.unmeasured, label=False)
     axes[-1].set_xlabel("time on the test record [µs]", fontsize=_FONT_PT)
     for ax in axes[:-1]:
@@ -515,8 +520,18 @@ def _shade_runs(ax: Any, t_us: np.ndarray, mask: np.ndarray, *, label: bool, max
                    label=CLIPPED_LABEL if (label and k == 0) else None)
 
 
-def _compensated_panel(ax: Any, cd: Any, t_us: np.ndarray, scale: float, t_f: float | None) -> None:
-    """Test current minus its prediction from the reference, with the time-dependent noise band."""
+#: Label of the shading after the span the compensated prediction covers.
+BEYOND_SPAN_LABEL = "after the prediction's span"
+
+#: Colour of the cells of the wavelet map that are drawn but not scored.
+UNSCORED_GREY = "#d9d9d9"
+
+
+def _compensated_panel(ax: Any, cd: Any, t_us: np.ndarray, scale: float, t_f: float | None, *,
+                       beyond_scored: bool = False) -> None:
+    """Test current minus its prediction from the reference, with the time-dependent noise band, on the
+    whole record's time axis (the part after the span the prediction covers shaded and labelled with what
+    scores it there: the plain difference's wavelet levels, when ``beyond_scored``)."""
     sig = np.asarray(cd.sigma, dtype=np.float64) * abs(scale)
     d = np.asarray(cd.difference, dtype=np.float64) * scale
     ok = np.flatnonzero(np.isfinite(sig) & np.isfinite(d))
@@ -537,7 +552,16 @@ def _compensated_panel(ax: Any, cd: Any, t_us: np.ndarray, scale: float, t_f: fl
         bb = np.append(bb, bb[-1])
     ax.fill_between(tb, -bb, bb, color=OKABE_ITO["sky_blue"], alpha=0.35, linewidth=0, step="post")
     ax.plot(*_envelope(t, dd), color=OKABE_ITO["black"], linewidth=0.9)
-    ax.set_xlim(float(t_us[0]), float(t[-1]))
+    # the same time axis as the panels above, to the record's end: the prediction stops where its
+    # unwindowing gain reaches its limit, and what follows is scored another way (or not at all)
+    ax.set_xlim(float(t_us[0]), float(t_us[-1]))
+    if float(t[-1]) < float(t_us[-1]) - 0.5 * float(t_us[1] - t_us[0]):
+        ax.axvspan(float(t[-1]), float(t_us[-1]), facecolor="#bbbbbb", alpha=0.35, hatch="//",
+                   edgecolor="#888888", linewidth=0)
+        what = ("the plain difference is scored there\n(wavelet levels D1–D6)" if beyond_scored
+                else "not scored (too short)")
+        ax.annotate(f"{BEYOND_SPAN_LABEL}:\n{what}", (float(t[-1]), 0.97), xycoords=("data", "axes fraction"),
+                    xytext=(4, 0), textcoords="offset points", va="top", fontsize=_FONT_PT - 1, color="#333333")
     fin = dd[np.isfinite(dd)]
     m = float(np.max(np.abs(fin))) if fin.size else 1.0
     lim = 1.15 * max(m, 2.0 * float(np.nanmedian(band)), 1e-12)
@@ -636,8 +660,12 @@ def wavelet_figure(verdict: Verdict) -> Figure:
     Returns
     -------
     matplotlib.figure.Figure
-        |test - reference| of the wavelet coefficients in noise standard deviations of each level [1],
-        time on the test record [µs] by level (finest D1 at the top, with its approximate band).
+        |test - prediction| of the wavelet coefficients in noise standard deviations of each level [1]
+        over the span the compensated prediction covers, then |test - reference| of the plain per-unit
+        currents (levels D1-D6) to the record's end, time on the test record [µs] by level (finest D1 at
+        the top, with its approximate band and its peak in each part). Cells that are drawn but not
+        scored (before the end of the front window, around an intended chop, clipped samples, the
+        transform's edges) are grey (:data:`UNSCORED_GREY`).
 
     Raises
     ------
@@ -649,27 +677,31 @@ def wavelet_figure(verdict: Verdict) -> Figure:
     if wd is None:
         raise ShotcheckError("this comparison has no wavelet difference (the span before a collapse is too short)")
     off = _pair_to_test_s(a)
-    t_us = (np.asarray(wd.times_s) + off) * 1e6
-    dmap = np.asarray(wd.difference_map, dtype=np.float64)
-    n_rows = dmap.shape[0]
-    cols = 2000  # more columns than pixels only cost time: keep the largest value of each group
-    if dmap.shape[1] > 2 * cols:
-        starts = np.linspace(0, dmap.shape[1], cols + 1).astype(np.int64)[:-1]
-        dmap = np.maximum.reduceat(dmap, starts, axis=1)
-    fig = _new_figure(0.95 + 0.3 * n_rows, left_in=2.75, right_in=0.3)
+    n_rows = wd.difference_map.shape[0]
+    parts = [_map_part(wd, getattr(a, "wavelet_scored", None), off, n_rows)]
+    beyond = getattr(a, "wavelet_beyond", None)
+    if beyond is not None and beyond.difference_map.shape[1] > 1:
+        parts.append(_map_part(beyond, getattr(a, "wavelet_beyond_scored", None), off, n_rows))
+    fig = _new_figure(1.25 + 0.3 * n_rows, left_in=3.2, right_in=0.3, top_in=0.6)
     ax = fig.subplots()
-    vmax = float(np.nanmax(dmap)) if np.isfinite(dmap).any() else 10.0
-    vmax = max(vmax, 10.0 * WAVELET_K_SIGMA)
-    half = 0.5 * (t_us[1] - t_us[0]) if t_us.size > 1 else 0.005
-    # below one noise sigma everything is dark; the significance threshold sits in the upper half
-    im = ax.imshow(np.clip(dmap, 1.0, None), aspect="auto", interpolation="nearest", cmap="cividis",
-                   norm=LogNorm(vmin=1.0, vmax=vmax), origin="upper",
-                   extent=(float(t_us[0]) - half, float(t_us[-1]) + half, n_rows - 0.5, -0.5))
+    peaks = [float(np.nanmax(m)) for _, m in parts if np.isfinite(m).any()]
+    vmax = max(max(peaks, default=10.0), 10.0 * WAVELET_K_SIGMA)
+    cmap = colormaps["cividis"].with_extremes(bad=UNSCORED_GREY)
+    norm = LogNorm(vmin=1.0, vmax=vmax)
+    im = None
+    for (x0, x1), dmap in parts:
+        # below one noise sigma everything is dark; the significance threshold sits in the upper half
+        im = ax.imshow(np.clip(dmap, 1.0, None), aspect="auto", interpolation="nearest", cmap=cmap, norm=norm,
+                       origin="upper", extent=(x0, x1, n_rows - 0.5, -0.5))
+    ax.set_xlim(parts[0][0][0], parts[-1][0][1])
     labels = []
     for k, lab in enumerate(wd.labels):
         f0, f1 = wd.band_Hz[k]
         band = f"< {format_frequency(f1)}" if f0 <= 0 else f"{format_frequency(f0)}–{format_frequency(f1)}"
-        labels.append(f"{lab}  {band}  (peak {wd.peak_sigma[k]:.3g} σ)")
+        text = f"{lab}  {band}  (peak {wd.peak_sigma[k]:.3g} σ"
+        if len(parts) > 1 and k < beyond.difference_map.shape[0] and np.isfinite(parts[1][1][k]).any():
+            text += f"; after {np.nanmax(parts[1][1][k]):.3g} σ"
+        labels.append(text + ")")
     ax.set_yticks(np.arange(n_rows), labels, fontsize=_FONT_PT - 1)
     ax.set_ylabel("wavelet level (band)", fontsize=_FONT_PT)
     ax.set_xlabel("time on the test record [µs]", fontsize=_FONT_PT)
@@ -681,15 +713,44 @@ def wavelet_figure(verdict: Verdict) -> Figure:
     ticks = [1.0, WAVELET_K_SIGMA] + [10.0**e for e in range(1, int(math.log10(vmax)) + 1)]
     cb.set_ticks(ticks, labels=[f"{x:g}" for x in ticks])
     cb.ax.minorticks_off()
+    handles = [Rectangle((0, 0), 1, 1, facecolor=UNSCORED_GREY, edgecolor="#888888", linewidth=0.5,
+                         label="not scored")]
+    if len(parts) > 1:
+        x_end = parts[1][0][0]
+        handles.append(ax.axvline(x_end, color=OKABE_ITO["sky_blue"], linewidth=1.6,
+                                  label=f"end of the prediction's span, {x_end:.1f} µs"))
     t_f = None if verdict.fault_time_s is None else verdict.fault_time_s * 1e6
-    if t_f is not None and t_us[0] <= t_f <= t_us[-1]:
-        ax.axvline(t_f, color=OKABE_ITO["vermillion"], linewidth=1.6, linestyle="--",
-                   label=f"fault instant {t_f:.3f} µs")
-        ax.legend(fontsize=_FONT_PT - 1, loc="lower right", bbox_to_anchor=(1.0, 1.0), frameon=False,
-                  borderaxespad=0.1)
-    ax.set_title(f"Wavelet difference of the neutral currents ({wd.method.upper()}, {wd.wavelet})",
-                 fontsize=_FONT_PT + 1, loc="left")
+    if t_f is not None and parts[0][0][0] <= t_f <= parts[-1][0][1]:
+        handles.append(ax.axvline(t_f, color=OKABE_ITO["vermillion"], linewidth=1.6, linestyle="--",
+                                  label=f"fault instant {t_f:.3f} µs"))
+    ax.legend(handles=handles, fontsize=_FONT_PT - 1, loc="lower left", bbox_to_anchor=(0.0, 1.0), frameon=False,
+              borderaxespad=0.1, ncols=len(handles))
+    fig.suptitle(f"Wavelet difference of the neutral currents ({wd.method.upper()}, {wd.wavelet}): test − "
+                 "prediction" + (", then test − reference" if len(parts) > 1 else ""),
+                 x=ax.get_position().x0, y=1.0 - 0.08 / fig.get_figheight(), ha="left", va="top",
+                 fontsize=_FONT_PT + 1)
     return fig
+
+
+def _map_part(wd: Any, scored: np.ndarray | None, off_s: float, n_rows: int) -> tuple[tuple[float, float], np.ndarray]:
+    """Extent [µs, test record: first cell's left edge, last cell's right edge] and map (``n_rows`` rows;
+    NaN where not scored or not computed) of one wavelet transform, at most 2000 columns (the largest
+    scored value of each group of samples: more columns than pixels only cost time)."""
+    t_us = (np.asarray(wd.times_s, dtype=np.float64) + off_s) * 1e6
+    half = 0.5 * float(t_us[1] - t_us[0]) if t_us.size > 1 else 0.005
+    raw = np.asarray(wd.difference_map, dtype=np.float64)
+    dmap = np.full((n_rows, raw.shape[1]), np.nan)
+    mask = np.ones(raw.shape, dtype=bool) if scored is None else np.asarray(scored, dtype=bool)
+    if mask.ndim == 1:
+        mask = np.broadcast_to(mask, raw.shape)
+    rows = min(mask.shape[0], n_rows)
+    dmap[:rows] = np.where(mask[:rows], raw[:rows], np.nan)
+    cols = 2000
+    if dmap.shape[1] > 2 * cols:
+        starts = np.linspace(0, dmap.shape[1], cols + 1).astype(np.int64)[:-1]
+        with np.errstate(invalid="ignore"):
+            dmap = np.fmax.reduceat(dmap, starts, axis=1)
+    return (float(t_us[0]) - half, float(t_us[-1]) + half), dmap
 
 
 def figures(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> dict[str, Figure]:

@@ -72,16 +72,21 @@ FIGURE_CAPTIONS: Mapping[str, str] = {
                   "metrics; dashed lines mark the front, crest and tail windows. After a voltage "
                   "collapse (chopping or breakdown) the plain records are not compared. The last panel, "
                   "when present, compares the test current with the current the reference winding "
-                  "response predicts under the test voltage; it stays valid after a chop, and its "
-                  "noise band widens where the prediction grows uncertain.",
+                  "response predicts under the test voltage; it stays valid after a chop, its "
+                  "noise band widens where the prediction grows uncertain, and it ends where the "
+                  "prediction does (shaded after it: there the plain current difference is scored by "
+                  "its wavelet levels).",
     "transfer": "Transfer function |I(f)/V(f)| of each record (same exponential window on both signals; "
                 "frequencies where the voltage spectrum is not above its noise are left out) and the "
                 "difference test minus reference. Shaded: the comparison bands. It does not depend on "
                 "the applied wave shape, so a chopped test shot can be compared with a full reference.",
-    "wavelet": "Stationary wavelet difference of the neutral currents (as the analysis forms it), each "
-               "level in units of its own noise (median absolute deviation); the line on the colour bar "
-               "is the significance threshold. Short discharges change only the finest levels; a "
-               "breakdown changes many.",
+    "wavelet": "Stationary wavelet difference of the neutral currents, each level in units of its own "
+               "noise (median absolute deviation); the line on the colour bar is the significance "
+               "threshold. Up to the end of the span the compensated prediction covers, the test current "
+               "is compared with the current predicted from the reference under the test voltage; after "
+               "it, with the reference current itself (levels D1–D6 only). Grey cells are drawn but not "
+               "scored (the front, clipped samples, an intended chop, the transforms' edges). Short "
+               "discharges change only the finest levels; a breakdown changes many.",
 }
 
 _SECTION_TITLES = {

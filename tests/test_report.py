@@ -27,7 +27,14 @@ from detector._validation import ShotcheckError
 from detector.compare import DEFAULT_MODEL_PATH, compare, default_model
 from detector.data import example_record
 from detector.features import FEATURE_NAMES, SCHEMA_VERSION, extract
-from detector.figures import CLIPPED_LABEL, FIGURE_NAMES, K_SIGMA, difference_figure, figures, format_frequency
+from detector.figures import (
+    CLIPPED_LABEL,
+    FIGURE_NAMES,
+    K_SIGMA,
+    difference_figure,
+    figures,
+    format_frequency,
+)
 from detector.metrics.timedomain import time_domain_metrics
 from detector.model import FaultClassifier, LocationRegressor, ShotModel
 from detector.report import SAFETY_CAUTION, render_html, write_report
@@ -460,6 +467,61 @@ def test_wavelet_levels_are_labelled_with_dyadic_bands(fault_figures, fault_case
     for j in (1, 2, wd.level):
         assert labels[j - 1].startswith(f"D{j}  {format_frequency(fs / 2 ** (j + 1))}–{format_frequency(fs / 2 ** j)}")
     assert labels[-1].startswith(f"A{wd.level}  < {format_frequency(fs / 2 ** (wd.level + 1))}")
+
+
+def test_compensated_panel_shares_the_record_axis_and_marks_the_span_end(fault_figures, fault_case):
+    """The prediction stops some 70 % into the record; its panel must not stretch that span over the
+    width the panels above give the whole record (the same instant would sit at another place)."""
+    from detector.figures import BEYOND_SPAN_LABEL
+
+    _, _, _, v = fault_case
+    a = v.analysis
+    if a.compensated is None:
+        pytest.skip("this analysis carries no compensated difference")
+    axes = [ax for ax in fault_figures["difference"].axes if ax.get_label() != "<colorbar>"]
+    t_us = a.pair.test_times_s * 1e6
+    assert axes[2].get_xlim() == pytest.approx((t_us[0], t_us[-1]))
+    if a.time_domain.compared_until_s + (a.pair.test_times_s[0] - a.pair.times_s[0]) >= a.pair.test_times_s[-1]:
+        assert axes[1].get_xlim() == pytest.approx(axes[2].get_xlim())  # no collapse: one axis for all three
+    valid = np.flatnonzero(np.isfinite(a.compensated.sigma))
+    end_us = t_us[valid[-1]]
+    shaded = [p for p in axes[2].patches if isinstance(p, Rectangle) and p.get_hatch() == "//"]
+    assert len(shaded) == 1
+    ext = shaded[0].get_path().get_extents(shaded[0].get_patch_transform())
+    assert (ext.x0, ext.x1) == pytest.approx((end_us, t_us[-1]))
+    assert any(BEYOND_SPAN_LABEL in t.get_text() for t in axes[2].texts)
+
+
+def test_wavelet_map_greys_what_is_not_scored_and_continues_after_the_span(fault_figures, fault_case):
+    """Cells the features never score are drawn grey (NaN), not as if they counted; after the
+    prediction's span the map shows the plain difference whose peaks are the features
+    ``wv_beyond_*_peak_sigma``."""
+    from detector.features import FRONT_WINDOW_S
+
+    _, _, _, v = fault_case
+    a = v.analysis
+    ax = fault_figures["wavelet"].axes[0]
+    images = ax.get_images()
+    assert len(images) == (2 if a.wavelet_beyond is not None else 1)
+    first = np.ma.getdata(images[0].get_array())
+    x0, x1 = images[0].get_extent()[:2]
+    cols = np.linspace(x0, x1, first.shape[1], endpoint=False) - a.to_test_time_s(0.0) * 1e6
+    # the front window is never scored: every level is grey there
+    before = cols < 1e6 * (a.front_time_s + FRONT_WINDOW_S[1]) - 0.5
+    assert before.any() and np.isnan(first[:, before]).all()
+    assert np.isfinite(first[:, ~before]).any()
+    if a.wavelet_beyond is None:
+        return
+    second = np.ma.getdata(images[1].get_array())
+    levels = a.wavelet_beyond_scored.shape[0]
+    assert np.isnan(second[levels:]).all()  # the coarse rows are not scored after the span
+    feats = a.as_dict()
+    # the peaks drawn are the features (values below 1 sigma are clipped to 1 for the log scale)
+    assert max(1.0, np.nanmax(second[:3])) == pytest.approx(max(1.0, feats["wv_beyond_fine_peak_sigma"]))
+    assert max(1.0, np.nanmax(second[3:levels])) == pytest.approx(max(1.0, feats["wv_beyond_mid_peak_sigma"]))
+    assert ax.get_xlim()[1] == pytest.approx(images[1].get_extent()[1])
+    labels = [t.get_text() for t in ax.get_yticklabels()]
+    assert all("after" in lab for lab in labels[:levels]) and not any("after" in lab for lab in labels[levels:])
 
 
 def test_lines_use_the_colour_blind_safe_palette(fault_figures):

@@ -220,6 +220,61 @@ def check_levels(ref_test_voltage_V: float, test_test_voltage_V: float, *, refer
         path=test or "test record", field="voltage")
 
 
+#: Declared shot kinds of a full-level shot and of a reduced-level one (``meta['shot_kind']``).
+FULL_LEVEL_KINDS = ("full", "chopped")
+REDUCED_LEVEL_KINDS = ("reduced", "reduced_chopped")
+
+
+def _declared_level(record: Record) -> tuple[str | None, str]:
+    """``'full'``, ``'reduced'`` or None (not declared, or declared both ways) from a record's metadata,
+    and the metadata that says so (for a message)."""
+    kind = record.meta.get("shot_kind")
+    level = record.meta.get("level_percent")
+    try:
+        pct = float(level) if level is not None else None
+    except (TypeError, ValueError):
+        pct = None
+    said = []
+    if kind in FULL_LEVEL_KINDS or kind in REDUCED_LEVEL_KINDS:
+        said.append(("full" if kind in FULL_LEVEL_KINDS else "reduced", f"meta.shot_kind {kind!r}"))
+    if pct is not None and math.isfinite(pct) and (pct >= 100.0 or 0.0 < pct < 80.0):
+        # between 80 and 100 % a shot may be either (the sequence's full-level shots start at 80 %)
+        said.append(("full" if pct >= 100.0 else "reduced", f"meta.level_percent {pct:g}"))
+    names = {w for w, _ in said}
+    if len(names) != 1:
+        return None, ""
+    return names.pop(), ", ".join(m for _, m in said)
+
+
+def check_roles(reference: Record, test: Record) -> None:
+    """Refuse a reference whose metadata declares a full-level shot against a test record declared as a
+    reduced-level one: the two files were given in the wrong order.
+
+    A record's level is declared by ``meta['shot_kind']`` (full or chopped against reduced or
+    reduced_chopped) and ``meta['level_percent']`` (100 and above against below 80); a record that
+    declares neither, or the two in contradiction, is not judged here (the test voltage values are,
+    with a warning, by :func:`level_warnings`). Two full-level shots, or two reduced ones, may be
+    compared.
+
+    Raises
+    ------
+    RecordError
+        The reference is declared full-level and the test record reduced-level (names both files and
+        the metadata fields that say so).
+    """
+    ref_level, ref_said = _declared_level(reference)
+    test_level, test_said = _declared_level(test)
+    if ref_level == "full" and test_level == "reduced":
+        ref_name = f" ({reference.source})" if reference.source else ""
+        test_name = f" ({test.source})" if test.source else ""
+        raise RecordError(
+            f"the reference{ref_name} is declared a full-level shot ({ref_said}) and the test record"
+            f"{test_name} a reduced-level one ({test_said}): the files seem to be in the wrong order; give the "
+            "reduced-level reference first and the full-level test shot second",
+            path=reference.source or "reference record", field="meta.shot_kind" if "shot_kind" in ref_said
+            else "meta.level_percent")
+
+
 def check_distinct(reference: Record, test: Record) -> None:
     """Refuse a reference and a test record that hold the same samples (the same shot given twice).
 
@@ -325,8 +380,9 @@ def compare(
     ------
     RecordError
         A record lacks a channel or the two do not overlap; the two hold the same samples
-        (:func:`check_distinct`); their test voltage values differ beyond :data:`LEVEL_RATIO_REFUSED`
-        (:func:`check_levels`).
+        (:func:`check_distinct`); their metadata declare the reference full-level and the test record
+        reduced-level (:func:`check_roles`); their test voltage values differ beyond
+        :data:`LEVEL_RATIO_REFUSED` (:func:`check_levels`).
     ShotcheckError
         No impulse in a record, or no usable model.
     """
@@ -334,6 +390,7 @@ def compare(
     if tuple(m.feature_names) != FEATURE_NAMES:
         raise ShotcheckError("the model's feature names differ from this shotcheck's; retrain the model")
     check_distinct(reference, test)
+    check_roles(reference, test)
     a = extract(reference, test, reference_shape=reference_shape)
     check_levels(a.pair.ref_test_voltage_V, a.pair.test_test_voltage_V, reference=reference.source,
                  test=test.source)

@@ -802,7 +802,9 @@ def extract(
     if vec.size != len(FEATURE_NAMES):  # a programming error, never a user's
         raise AssertionError(f"feature vector has {vec.size} values for {len(FEATURE_NAMES)} names")
     clock("features")
-    warnings = tuple(dict.fromkeys([*notes, *(ws_r.warnings if ws_r else ()), *(ws_t.warnings if ws_t else ()),
+    # each record's own wave-shape warnings name the record (the same words may concern either, or both)
+    warnings = tuple(dict.fromkeys([*notes, *(f"reference record: {w}" for w in (ws_r.warnings if ws_r else ())),
+                                    *(f"test record: {w}" for w in (ws_t.warnings if ws_t else ())),
                                     *pair.warnings]))
     return PairAnalysis(vec, ws_r, ws_t, pair, td, tf_r, tf_t, tc, wd, front_s, warnings, cd, cd_f[6],
                         beyond_onset_s, wd_scored, wd_beyond, beyond_scored)

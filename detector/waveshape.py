@@ -336,8 +336,8 @@ def _recorder_warnings(p: _Prepared, tx_s: float, *, full_scale_V: float | None,
     if eff is not None and eff < 8.0:
         w.append(f"fewer than 8 effective bits ({eff:.2f}) over the impulse; IEC 61083-1 asks for at least 8")
     elif eff is not None and for_comparison and eff < 10.0:
-        w.append(f"fewer than 10 bits ({eff:.2f}) over the impulse for a record that will be compared "
-                 "(common practice: 10 bits or more)")
+        w.append(f"fewer than 10 bits ({eff:.2f}) over the impulse; a record to be compared with another "
+                 "should have 10 bits or more (common practice)")
     if full_scale_V is not None and amp < 0.2 * full_scale_V:
         w.append(f"peak {amp / 1e3:.4g} kV is below 20 % of the full scale {full_scale_V / 1e3:.4g} kV "
                  "(IEC 61083-1)")

@@ -19,6 +19,7 @@ import numpy as np
 import pytest
 from detection_cases import make_case, mirrored
 
+from detector._validation import RecordError
 from detector.cli import main
 from detector.compare import compare, default_model
 from detector.features import FEATURE_NAMES, extract
@@ -440,6 +441,45 @@ def test_records_no_comparison_can_use_exit_2_naming_file_and_field(tmp_path, ca
     assert main(["compare", str(t), str(r), "--json"]) == 2
 
 
+def test_wave_shape_warnings_name_their_record():
+    """The reduced-level reference spans fewer codes of the same recorder range (60 % of 1/1.3 of the
+    range: log2(0.6 * 4096 / 2.6) = 9.9 bits), the test shot more: the warning must say which record it
+    concerns (it used to read the same for either, and merged when both had it)."""
+    v, _ = verdict()
+    bits = [w for w in v.warnings if "fewer than 10 bits" in w]
+    assert bits and all(w.startswith("reference record: ") for w in bits), v.warnings
+
+
+def test_files_in_the_wrong_order_by_their_metadata_exit_2(tmp_path, capsys):
+    """A full-level shot given as the reference and a reduced-level one as the test used to give a verdict
+    (a discharge, on the demo's files) with a warning only; where the records declare their kind and
+    level, the swap is an input error naming the file and the field. Two full-level shots may still be
+    compared, and records that declare nothing are judged by their test voltages alone."""
+    from detector.compare import check_roles
+
+    c = case()
+    ref = dataclasses.replace(c.reference, meta={**c.reference.meta, "shot_kind": "reduced", "level_percent": 60})
+    test = dataclasses.replace(c.test, meta={**c.test.meta, "shot_kind": "full", "level_percent": 100})
+    r, t = tmp_path / "reduced.csv", tmp_path / "full.csv"
+    write(ref, r)
+    write(test, t)
+    assert main(["compare", str(t), str(r)]) == 2
+    err = capsys.readouterr().err
+    assert re.search(r"full\.csv: meta\.shot_kind: the reference \(.*full\.csv\) is declared a full-level shot "
+                     r"\(meta\.shot_kind 'full', meta\.level_percent 100\) and the test record \(.*reduced\.csv\) a "
+                     r"reduced-level one .*wrong order", err), err
+    assert "Traceback" not in err
+    assert main(["compare", str(r), str(t)]) in (0, 1)  # the right order compares
+    capsys.readouterr()
+    # the level alone declares it too; 80-100 % may be either kind of shot, and two full shots compare
+    by_level = dataclasses.replace(test, meta={"level_percent": 100})
+    with pytest.raises(RecordError, match="meta.level_percent"):
+        check_roles(by_level, dataclasses.replace(ref, meta={"level_percent": 62.5}))
+    check_roles(by_level, dataclasses.replace(ref, meta={"level_percent": 90}))
+    check_roles(test, dataclasses.replace(ref, meta={"shot_kind": "full", "level_percent": 100}))
+    check_roles(dataclasses.replace(test, meta={}), ref)
+
+
 def test_a_record_outside_the_validated_sample_rates_is_compared_with_a_warning():
     """25 MS/s lies within what a comparison can use (5 MS/s up) but below the 50-250 MS/s the verdicts
     are validated for: the verdict comes with a warning naming the record and its rate; at the validated
@@ -464,7 +504,9 @@ def test_levels_out_of_order_or_in_other_units_give_a_warning():
     assert "units" in level_warnings(330.0, 550e3)[0]
     c = case()
     assert not any("test voltage" in w for w in compare(c.reference, c.test).warnings)
-    swapped = compare(c.test, c.reference)
+    # records that do not declare their kind and level: a warning (declared ones are refused, see
+    # test_files_in_the_wrong_order_by_their_metadata_exit_2)
+    swapped = compare(dataclasses.replace(c.test, meta={}), dataclasses.replace(c.reference, meta={}))
     assert any("right order" in w for w in swapped.warnings)
 
 

@@ -389,7 +389,18 @@ def _read(
                 f"column header {cells[k - 1].strip()!r} has no unit; write it as name_unit "
                 "(voltage_kV) or 'name [unit]' (U1 [kV])", path=p, field=f"line {header_line}, column {k}",
             )
-        q, f, canon = unit_info(unit, path=p, field=f"line {header_line}, column {k} ({cells[k - 1].strip()})")
+        try:
+            q, f, canon = unit_info(unit, path=p, field=f"line {header_line}, column {k} ({cells[k - 1].strip()})")
+        except RecordError as exc:
+            if _HEADER_BRACKET.match(cells[k - 1].strip().strip('"').strip()):
+                raise
+            # a name_unit cell: the text after the last underscore was taken as the unit ('I_N' read as the
+            # channel 'I' in the unit 'N'); say so, and how to write a channel name with an underscore
+            raise FormatError(
+                f"{exc.detail}; the header cell {cells[k - 1].strip()!r} was read as the channel {name!r} in the "
+                f"unit {unit!r} (the text after the last underscore); write the unit after it "
+                f"({cells[k - 1].strip()}_A) or in brackets ('{cells[k - 1].strip()} [A]')",
+                path=p, field=f"line {header_line}, column {k} ({cells[k - 1].strip()})") from None
         quantities.append((name, f, q, canon))
     col_names = [c.strip() for c in cells]
     table = parse_table(

@@ -140,12 +140,14 @@ def _cmd_waveshape(args: argparse.Namespace) -> int:
 # ---------------------------------------------------------------------------------------- compare
 def verdict_text(d: dict[str, Any], reference: str, test: str) -> str:
     """Readable summary of a verdict dictionary (the JSON of ``shotcheck compare --json``)."""
+    from .model import EVENT_LABELS
+
     lines = [f"Reference: {reference}", f"Test:      {test}"]
     if d["fault_indicated"]:
-        lines.append(f"VERDICT: FAULT INDICATED - {d['event'].replace('_', '-')}")
+        lines.append(f"VERDICT: FAULT INDICATED - {EVENT_LABELS.get(d['event'], d['event'])}")
     else:
         lines.append("VERDICT: no fault indicated")
-    probs = ", ".join(f"{k} {v:.2f}" for k, v in d["probabilities"].items())
+    probs = ", ".join(f"{EVENT_LABELS.get(k, k)} {v:.2f}" for k, v in d["probabilities"].items())
     lines.append(f"  probabilities: {probs}")
     thr = (d.get("model") or {}).get("none_threshold")
     if thr is not None and d["probabilities"].get("none") is not None:
@@ -159,7 +161,7 @@ def verdict_text(d: dict[str, Any], reference: str, test: str) -> str:
     if d.get("exceeded"):
         lines.append("  metrics above their thresholds:")
         for e in d["exceeded"]:
-            lines.append(f"    {e['metric']:<24} {e['value']:.4g} > {e['threshold']:.4g} ({e['ratio']:.1f} x)  "
+            lines.append(f"    {e['metric']:<24} {e['value']:.4g} > {e['threshold']:.4g} ({e['ratio']:.2f} x)  "
                          f"{e['description']}")
     for w in d.get("warnings") or []:
         lines.append(f"  warning: {w}")

@@ -22,7 +22,7 @@
     Wavelet difference map of the neutral currents (time by level, |difference| in noise units), each
     level labelled with its approximate frequency band: the test current against its prediction from
     the reference over the span the prediction covers, then against the reference current itself to
-    the record's end (the levels scored there); cells that are not scored drawn grey.
+    the record's end (the levels scored there); cells that are not scored left blank over hatching.
 
 The figures are built on :class:`matplotlib.figure.Figure` directly with the Agg canvas: they are never
 registered with :mod:`matplotlib.pyplot`, so they need no ``plt.close`` and leave no global state; drop
@@ -51,7 +51,7 @@ from ._validation import ShotcheckError
 from .metrics.compensated import compensated_difference
 from .metrics.timedomain import time_domain_metrics
 from .metrics.wavelet import wavelet_difference
-from .model import EVENT_CLASSES
+from .model import EVENT_CLASSES, EVENT_LABELS
 
 if TYPE_CHECKING:  # pragma: no cover - import for annotations only
     from .compare import Verdict
@@ -107,12 +107,7 @@ COMPENSATED_K_SIGMA: float = float(inspect.signature(compensated_difference).par
 #: no wavelet difference).
 FIGURE_NAMES = ("verdict", "voltage", "current", "difference", "transfer", "wavelet")
 
-_EVENT_TEXT = {
-    "none": "none",
-    "turn_to_turn": "turn-to-turn",
-    "to_ground": "to ground",
-    "discharge_only": "discharge only",
-}
+_EVENT_TEXT = EVENT_LABELS
 #: Colour of each event class in the figures and the report.
 EVENT_COLOURS: Mapping[str, str] = {
     "none": OKABE_ITO["green"],
@@ -335,7 +330,9 @@ def _overlay_figure(verdict: Verdict, quantity: str) -> Figure:
         ylabel, title = "neutral current [A]", "Neutral current"
     fig = _new_figure(3.5, top_in=0.6)
     ax_full, ax_zoom = fig.subplots(1, 2, width_ratios=[3, 2])
-    lvl = f"{abs(p.test_test_voltage_V) * 1e-3:.4g} kV"
+    lvl = f"{p.test_test_voltage_V * 1e-3:.4g} kV"
+    ut_r, ut_t = abs(p.ref_test_voltage_V), abs(p.test_test_voltage_V)
+    ref_at = f" (at {100.0 * ut_r / ut_t:.0f} % of the test level)" if ut_t > 0 else ""
     lo, hi = _front_zoom_us(a)
     lo, hi = max(lo, float(t_us[0])), min(hi, float(t_us[-1]))
     win = _window(t_us, lo, hi)
@@ -343,8 +340,8 @@ def _overlay_figure(verdict: Verdict, quantity: str) -> Figure:
         (ax_full, _envelope(t_us, ref), _envelope(t_us, test)),
         (ax_zoom, (t_us[win], ref[win]), (t_us[win], test[win])),
     ):
-        ax.plot(tr, yr, **REFERENCE_STYLE, label=f"reference (reduced level), scaled to the test's {lvl}")
-        ax.plot(tt, yt, **TEST_STYLE, label="test (full level)")
+        ax.plot(tr, yr, **REFERENCE_STYLE, label=f"reference{ref_at}, scaled to the test's {lvl}")
+        ax.plot(tt, yt, **TEST_STYLE, label="test")
         ax.set_xlabel("time on the test record [µs]", fontsize=_FONT_PT)
         ax.set_ylabel(ylabel, fontsize=_FONT_PT)
         _style_axes(ax)
@@ -523,8 +520,9 @@ def _shade_runs(ax: Any, t_us: np.ndarray, mask: np.ndarray, *, label: bool, max
 #: Label of the shading after the span the compensated prediction covers.
 BEYOND_SPAN_LABEL = "after the prediction's span"
 
-#: Colour of the cells of the wavelet map that are drawn but not scored.
-UNSCORED_GREY = "#d9d9d9"
+#: Hatching (and its colour) of the cells of the wavelet map that are not scored.
+UNSCORED_HATCH = "////"
+UNSCORED_HATCH_COLOUR = "#9a9a9a"
 
 
 def _compensated_panel(ax: Any, cd: Any, t_us: np.ndarray, scale: float, t_f: float | None, *,
@@ -665,7 +663,7 @@ def wavelet_figure(verdict: Verdict) -> Figure:
         currents (levels D1-D6) to the record's end, time on the test record [µs] by level (finest D1 at
         the top, with its approximate band and its peak in each part). Cells that are drawn but not
         scored (before the end of the front window, around an intended chop, clipped samples, the
-        transform's edges) are grey (:data:`UNSCORED_GREY`).
+        transform's edges) are left blank over a hatched background (:data:`UNSCORED_HATCH`).
 
     Raises
     ------
@@ -686,7 +684,13 @@ def wavelet_figure(verdict: Verdict) -> Figure:
     ax = fig.subplots()
     peaks = [float(np.nanmax(m)) for _, m in parts if np.isfinite(m).any()]
     vmax = max(max(peaks, default=10.0), 10.0 * WAVELET_K_SIGMA)
-    cmap = colormaps["cividis"].with_extremes(bad=UNSCORED_GREY)
+    # cells not scored are left out of the image and show the axes' hatched background: a colour of
+    # their own would be confused with a value (cividis passes through grey at 6-10 sigma)
+    cmap = colormaps["cividis"].with_extremes(bad=(0.0, 0.0, 0.0, 0.0))
+    ax.set_facecolor("white")
+    ax.patch.set_hatch(UNSCORED_HATCH)
+    ax.patch.set_edgecolor(UNSCORED_HATCH_COLOUR)
+    ax.patch.set_linewidth(0.0)
     norm = LogNorm(vmin=1.0, vmax=vmax)
     im = None
     for (x0, x1), dmap in parts:
@@ -713,8 +717,8 @@ def wavelet_figure(verdict: Verdict) -> Figure:
     ticks = [1.0, WAVELET_K_SIGMA] + [10.0**e for e in range(1, int(math.log10(vmax)) + 1)]
     cb.set_ticks(ticks, labels=[f"{x:g}" for x in ticks])
     cb.ax.minorticks_off()
-    handles = [Rectangle((0, 0), 1, 1, facecolor=UNSCORED_GREY, edgecolor="#888888", linewidth=0.5,
-                         label="not scored")]
+    handles = [Rectangle((0, 0), 1, 1, facecolor="white", edgecolor=UNSCORED_HATCH_COLOUR, hatch=UNSCORED_HATCH,
+                         linewidth=0.5, label="not scored")]
     if len(parts) > 1:
         x_end = parts[1][0][0]
         handles.append(ax.axvline(x_end, color=OKABE_ITO["sky_blue"], linewidth=1.6,

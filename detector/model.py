@@ -52,6 +52,9 @@ __all__ = [
 
 #: Event classes in a fixed order (the classifier's probability columns follow it when all are seen).
 EVENT_CLASSES = ("none", "turn_to_turn", "to_ground", "discharge_only")
+#: How each event class is written for people (the CLI's text, the figures and the report alike).
+EVENT_LABELS = {"none": "none", "turn_to_turn": "turn-to-turn", "to_ground": "to ground",
+                "discharge_only": "discharge only"}
 
 MODEL_FORMAT = "shotcheck-model"
 MODEL_FORMAT_VERSION = 1

@@ -37,7 +37,8 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from ._validation import ShotcheckError
-from .figures import EVENT_COLOURS, FIGURE_NAMES, K_SIGMA, figures
+from .figures import COMPENSATED_K_SIGMA, EVENT_COLOURS, FIGURE_NAMES, K_SIGMA, figures
+from .model import EVENT_LABELS
 
 if TYPE_CHECKING:  # pragma: no cover - import for annotations only
     from matplotlib.figure import Figure
@@ -62,17 +63,18 @@ SAFETY_CAUTION = (
 FIGURE_CAPTIONS: Mapping[str, str] = {
     "verdict": "Probability of each event class (the verdict hatched) and the estimated fault location "
                "along the winding, from the line end (0) to the neutral end (1).",
-    "voltage": "Applied voltage. The reference (reduced level) is scaled to the test level: its per-unit "
+    "voltage": "Applied voltage. The reference is scaled to the test level: its per-unit "
                "values times the test record's test-voltage value. Reference solid, test dashed; time on "
                "the test record's own axis; the dotted line marks the detected fault instant.",
     "current": "Neutral current, the reference scaled by the same factor as its voltage. A change of "
                "winding response shows here first.",
-    "difference": "Test minus scaled reference. The band is ±{k:g} noise standard deviations of the "
-                  "difference (from the two pre-triggers), the onset threshold of the time-domain "
-                  "metrics; dashed lines mark the front, crest and tail windows. After a voltage "
-                  "collapse (chopping or breakdown) the plain records are not compared. The last panel, "
-                  "when present, compares the test current with the current the reference winding "
-                  "response predicts under the test voltage; it stays valid after a chop, its "
+    "difference": "Test minus scaled reference. In the upper two panels the band is ±{k:g} noise standard "
+                  "deviations of the difference (from the two pre-triggers), the onset threshold of the "
+                  "time-domain metrics; dashed lines mark the front, crest and tail windows. After a "
+                  "voltage collapse (chopping or breakdown) the plain records are not compared. The last "
+                  "panel, when present, compares the test current with the current the reference winding "
+                  "response predicts under the test voltage, with a band of its own (±{kc:g} σ(t), its "
+                  "detector's threshold); it stays valid after a chop, its "
                   "noise band widens where the prediction grows uncertain, and it ends where the "
                   "prediction does (shaded after it: there the plain current difference is scored by "
                   "its wavelet levels).",
@@ -84,7 +86,7 @@ FIGURE_CAPTIONS: Mapping[str, str] = {
                "noise (median absolute deviation); the line on the colour bar is the significance "
                "threshold. Up to the end of the span the compensated prediction covers, the test current "
                "is compared with the current predicted from the reference under the test voltage; after "
-               "it, with the reference current itself (levels D1–D6 only). Grey cells are drawn but not "
+               "it, with the reference current itself (levels D1–D6 only). Hatched cells are not "
                "scored (the front, clipped samples, an intended chop, the transforms' edges). Short "
                "discharges change only the finest levels; a breakdown changes many.",
 }
@@ -97,12 +99,14 @@ _SECTION_TITLES = {
     "wavelet": "Wavelet difference",
 }
 
-_EVENT_TEXT = {
-    "none": "none",
-    "turn_to_turn": "turn-to-turn fault",
-    "to_ground": "fault to ground",
-    "discharge_only": "partial discharge only",
-}
+_EVENT_TEXT = EVENT_LABELS
+
+
+def _level_text(verdict: Verdict) -> str:
+    """``'at 60.0 % of the test level'`` from the two records' test voltage values (either polarity)."""
+    p = verdict.analysis.pair
+    ut_r, ut_t = abs(p.ref_test_voltage_V), abs(p.test_test_voltage_V)
+    return f"at {100.0 * ut_r / ut_t:.1f} % of the test level" if ut_t > 0 else "level unknown"
 
 _CSS = """
 :root { --fault: #D55E00; --ok: #0072B2; --ink: #1a1a1a; --muted: #5a5a5a; --rule: #c8c8c8; }
@@ -141,6 +145,7 @@ figcaption { color: var(--muted); font-size: 12.5px; margin-top: 4px; max-width:
            margin-top: 24px; }
 .caution strong { font-size: 15px; }
 .advisory { color: var(--muted); margin: 8px 0 0; font-size: 13px; }
+.notes { border-left: 4px solid var(--rule); padding: 2px 12px; margin: 12px 0; }
 details summary { cursor: pointer; color: var(--ok); }
 footer { margin-top: 30px; color: var(--muted); font-size: 12px; }
 @media print { body { max-width: none; padding: 0; } nav { display: none; } h2 { page-break-after: avoid; } }
@@ -403,7 +408,8 @@ def _basis_section(verdict: Verdict) -> str:
         return "—" if t_pair_s is None else _num((t_pair_s + off) * 1e6, ".3f", "µs")
 
     rows = [
-        ("Test voltage values (reference / test)", f"{_num(ut_r * 1e-3, '.4g')} kV / {_num(ut_t * 1e-3, '.4g')} kV "
+        ("Test voltage values (reference / test)", f"{_num(p.ref_test_voltage_V * 1e-3, '.4g')} kV / "
+                                                   f"{_num(p.test_test_voltage_V * 1e-3, '.4g')} kV "
                                                    f"(reference at {_num(ratio, '.1f')} % of the test level)"),
         ("Common sample interval", f"{_num(p.sample_interval_s * 1e9, '.4g', 'ns')} "
                                    f"({_num(1e-6 / p.sample_interval_s, '.4g', 'MS/s')}), {p.n_samples} samples"),
@@ -446,7 +452,7 @@ def _metrics_section(verdict: Verdict) -> str:
 
 
 def _figure_html(name: str, uri: str) -> str:
-    cap = FIGURE_CAPTIONS.get(name, "").format(k=K_SIGMA)
+    cap = FIGURE_CAPTIONS.get(name, "").format(k=K_SIGMA, kc=COMPENSATED_K_SIGMA)
     title = _SECTION_TITLES.get(name, name)
     return (f'<figure id="fig-{_esc(name)}"><img src="{uri}" alt="{_esc(title)}">'
             f"<figcaption>{_esc(cap)}</figcaption></figure>")
@@ -469,6 +475,7 @@ def render_html(
     title: str | None = None,
     figs: Mapping[str, Figure] | None = None,
     dpi: float = 100.0,
+    notes: Sequence[str] = (),
 ) -> str:
     """Render the report of one comparison as a self-contained HTML document.
 
@@ -485,6 +492,8 @@ def render_html(
         ownership of figures passed in.
     dpi : float
         Resolution of the embedded PNG images [dots per inch].
+    notes : sequence of str
+        Paragraphs shown under the heading, before the verdict (e.g. what a simulated pair really holds).
 
     Returns
     -------
@@ -500,6 +509,8 @@ def render_html(
     tst_name = _check_name("test_name", test_name)
     if title is not None and not isinstance(title, str):
         raise ShotcheckError(f"title must be a text, got {type(title).__name__}")
+    if isinstance(notes, str) or not all(isinstance(n, str) for n in notes):
+        raise ShotcheckError("notes must be a sequence of texts (paragraphs)")
     if not hasattr(verdict, "analysis") or not hasattr(verdict, "to_dict"):
         raise ShotcheckError(f"render_html() needs the Verdict returned by compare(), got {type(verdict).__name__}")
     own = figs is None
@@ -534,9 +545,11 @@ def render_html(
         f"<title>{_esc(heading)}</title>",
         f"<style>{_CSS}</style></head><body>",
         f"<header><h1>{_esc(heading)}</h1>",
-        f'<p class="meta">Reference (reduced level): <strong>{_esc(ref_name)}</strong> &nbsp;·&nbsp; '
+        f'<p class="meta">Reference ({_esc(_level_text(verdict))}): <strong>{_esc(ref_name)}</strong> &nbsp;·&nbsp; '
         f"Test: <strong>{_esc(tst_name)}</strong> &nbsp;·&nbsp; report made {now} by shotcheck "
         f"{_esc(__version__)}</p>{nav}</header>",
+        *([f'<section class="notes" id="notes">{"".join(f"<p>{_esc(n)}</p>" for n in notes)}</section>']
+          if notes else []),
         _verdict_section(verdict, uris.get("verdict")),
         _waveshape_section(verdict, ref_name, tst_name),
         _basis_section(verdict),
@@ -558,6 +571,7 @@ def write_report(
     reference_name: str,
     test_name: str,
     title: str | None = None,
+    notes: Sequence[str] = (),
 ) -> Path:
     """Write the self-contained HTML report of one comparison.
 
@@ -572,6 +586,8 @@ def write_report(
         How to name the two records in the report (usually their file names).
     title : str, optional
         Heading; default ``"Impulse comparison: <test> against <reference>"``.
+    notes : sequence of str
+        Paragraphs shown under the heading (see :func:`render_html`).
 
     Returns
     -------
@@ -590,7 +606,7 @@ def write_report(
     folder = out.parent
     if not folder.is_dir():
         raise ShotcheckError(f"{out}: folder {folder} does not exist; create it or choose another report path")
-    text = render_html(verdict, reference_name=reference_name, test_name=test_name, title=title)
+    text = render_html(verdict, reference_name=reference_name, test_name=test_name, title=title, notes=notes)
     # write beside the target and rename: a reader never sees half a report (mode "x": default permissions)
     tmp = folder / f".{out.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp"
     try:

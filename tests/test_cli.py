@@ -150,7 +150,11 @@ def test_demo_runs_the_whole_job_and_the_readme_quotes_what_it_prints(tmp_path, 
     for name in ("reference.cfg", "reference.dat", "test.cfg", "test.dat", "verdict.json", "report.html"):
         assert (out / name).is_file(), name
     assert json.loads((out / "verdict.json").read_text(encoding="utf-8"))["event"] == "turn_to_turn"
-    assert "Safety" in (out / "report.html").read_text(encoding="utf-8")
+    html_text = (out / "report.html").read_text(encoding="utf-8")
+    assert "Safety" in html_text
+    # the report says what the simulated pair holds and how far the estimates lie from it
+    assert f"break down at {truth['fault_time_us']:.2f} us" in html_text
+    assert f"the fault instant by {d['fault_time_us'] - truth['fault_time_us']:+.2f} us" in html_text
     readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
     quoted = re.search(r"simulated breakdown instant \(([\d.]+) us\) beside the verdict's \(([\d.]+) us\)", readme)
     assert quoted, "the README no longer quotes the demo's instants"

@@ -224,6 +224,18 @@ def test_report_embeds_every_figure_as_png(fault_html, fault_case):
         assert b"matplotlib" not in png  # no software metadata
 
 
+def test_report_notes_are_shown_escaped_and_checked(fault_case):
+    _, _, _, v = fault_case
+    figs = {}  # no figures: the notes alone are under test
+    text = render_html(v, reference_name="r.cfg", test_name="t.cfg", figs=figs,
+                       notes=["Simulated truth: <b>2 turns</b>", "second"])
+    assert "<p>Simulated truth: &lt;b&gt;2 turns&lt;/b&gt;</p><p>second</p>" in text
+    assert text.index('id="notes"') < text.index('id="verdict"')
+    assert 'id="notes"' not in render_html(v, reference_name="r.cfg", test_name="t.cfg", figs=figs)
+    with pytest.raises(ShotcheckError, match="notes must be a sequence of texts"):
+        render_html(v, reference_name="r.cfg", test_name="t.cfg", figs=figs, notes="one string")
+
+
 def test_report_without_fault_or_wavelet(fault_case, tmp_path):
     _, _, _, v = fault_case
     calm = dataclasses.replace(
@@ -492,10 +504,10 @@ def test_compensated_panel_shares_the_record_axis_and_marks_the_span_end(fault_f
     assert any(BEYOND_SPAN_LABEL in t.get_text() for t in axes[2].texts)
 
 
-def test_wavelet_map_greys_what_is_not_scored_and_continues_after_the_span(fault_figures, fault_case):
-    """Cells the features never score are drawn grey (NaN), not as if they counted; after the
-    prediction's span the map shows the plain difference whose peaks are the features
-    ``wv_beyond_*_peak_sigma``."""
+def test_wavelet_map_blanks_what_is_not_scored_and_continues_after_the_span(fault_figures, fault_case):
+    """Cells the features never score are left out of the image (NaN, over a hatched background), not
+    drawn as if they counted; after the prediction's span the map shows the plain difference whose
+    peaks are the features ``wv_beyond_*_peak_sigma``."""
     from detector.features import FRONT_WINDOW_S
 
     _, _, _, v = fault_case
@@ -506,7 +518,8 @@ def test_wavelet_map_greys_what_is_not_scored_and_continues_after_the_span(fault
     first = np.ma.getdata(images[0].get_array())
     x0, x1 = images[0].get_extent()[:2]
     cols = np.linspace(x0, x1, first.shape[1], endpoint=False) - a.to_test_time_s(0.0) * 1e6
-    # the front window is never scored: every level is grey there
+    # the front window is never scored: every level is blank there
+    assert ax.patch.get_hatch()
     before = cols < 1e6 * (a.front_time_s + FRONT_WINDOW_S[1]) - 0.5
     assert before.any() and np.isnan(first[:, before]).all()
     assert np.isfinite(first[:, ~before]).any()

@@ -483,8 +483,10 @@ def difference_figure(verdict: Verdict, *, k_sigma: float = K_SIGMA) -> Figure:
         x = (w0 + off) * 1e6
         for ax in (ax_v, ax_i):
             ax.axvline(x, color="#777777", linewidth=0.6, linestyle="--")
+        # on a white ground: the next window's line (or the fault instant's) may cross a label
         ax_v.annotate(f"{name} →", (x, 1.0), xycoords=("data", "axes fraction"), xytext=(2, -9 - 9 * k),
-                      textcoords="offset points", fontsize=_FONT_PT - 1, color="#444444")
+                      textcoords="offset points", fontsize=_FONT_PT - 1, color="#444444", zorder=5,
+                      bbox={"facecolor": "white", "edgecolor": "none", "pad": 0.3, "alpha": 0.85})
     if cd is not None:
         _compensated_panel(axes[2], cd, t_us, scale, t_f, beyond_scored=getattr(a, "wavelet_beyond", None) is not None)
         _shade_runs(axes[2], t_us, p.unmeasured, label=False)

@@ -25,3 +25,18 @@ def test_openapi_document_lists_the_operations_the_page_shows(client):
     doc = client.get("/openapi.json").json()
     assert "/v1/comparisons" in doc["paths"] and "post" in doc["paths"]["/v1/comparisons"]
     assert "/docs" not in doc["paths"]  # the page itself is not an API operation
+
+
+def test_web_page_writes_event_classes_as_the_cli_and_report_do():
+    """The page's own label table is the one the CLI, figures and report use (detector.model.EVENT_LABELS)."""
+    import json
+    import re
+    from pathlib import Path
+
+    from detector.model import EVENT_LABELS
+
+    js = (Path(__file__).resolve().parents[2] / "detector" / "service" / "static" / "app.js").read_text(encoding="utf-8")
+    table = re.search(r"const EVENT_LABELS = (\{.*?\});", js)
+    assert table, "app.js has no EVENT_LABELS table"
+    assert json.loads(table.group(1)) == EVENT_LABELS
+    assert 'replaceAll("_", " ")' not in js

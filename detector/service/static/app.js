@@ -9,6 +9,9 @@ function headers() {
 }
 
 function text(el, s) { el.textContent = s; return el; }
+// How each event class is written for people: the table detector.model.EVENT_LABELS holds (a test checks it).
+const EVENT_LABELS = {"none": "none", "turn_to_turn": "turn-to-turn", "to_ground": "to ground", "discharge_only": "discharge only"};
+function eventLabel(ev) { return EVENT_LABELS[ev] || ev; }
 function row(cells, tag = "td") {
   const tr = document.createElement("tr");
   for (const c of cells) tr.appendChild(text(document.createElement(tag), c));
@@ -44,13 +47,13 @@ function showVerdict(v) {
   const p = document.createElement("p");
   p.id = "verdict-line";
   p.className = v.fault_indicated ? "fault" : "nofault";
-  let line = v.fault_indicated ? "Fault indicated: " + v.event.replaceAll("_", " ") : "No fault indicated";
+  let line = v.fault_indicated ? "Fault indicated: " + eventLabel(v.event) : "No fault indicated";
   if (v.fault_indicated && v.fault_time_us !== null) line += ", from " + fmt(v.fault_time_us) + " µs";
   if (v.fault_indicated && v.location !== null) line += ", near " + fmt(v.location, 2) + " of the winding from the line end";
   text(p, line + " (advisory)");
   box.appendChild(p);
   const probs = document.createElement("p");
-  text(probs, "Probabilities: " + Object.entries(v.probabilities).map(([k, x]) => k + " " + (100 * x).toFixed(1) + " %").join(", "));
+  text(probs, "Probabilities: " + Object.entries(v.probabilities).map(([k, x]) => eventLabel(k) + " " + (100 * x).toFixed(1) + " %").join(", "));
   box.appendChild(probs);
   if (v.model && typeof v.model.none_threshold === "number" && typeof v.probabilities.none === "number") {
     const dec = document.createElement("p");
@@ -142,7 +145,7 @@ $("sequence-form").addEventListener("submit", async (ev) => {
     tb.replaceChildren();
     for (const sh of s.shots) {
       const v = sh.comparison && sh.comparison.verdict;
-      const verdict = sh.role === "reference" ? "reference" : v ? (v.fault_indicated ? "fault: " + v.event : "no fault") : "–";
+      const verdict = sh.role === "reference" ? "reference" : v ? (v.fault_indicated ? "fault: " + eventLabel(v.event) : "no fault") : "–";
       const tr = row([String(sh.position), sh.name, sh.kind, fmt(sh.level_percent), sh.role, verdict]);
       if (v) {
         const btn = document.createElement("button");

@@ -225,9 +225,22 @@ FULL_LEVEL_KINDS = ("full", "chopped")
 REDUCED_LEVEL_KINDS = ("reduced", "reduced_chopped")
 
 
-def _declared_level(record: Record) -> tuple[str | None, str]:
-    """``'full'``, ``'reduced'`` or None (not declared, or declared both ways) from a record's metadata,
-    and the metadata that says so (for a message)."""
+def declared_level(record: Record) -> tuple[str | None, str]:
+    """The level a record's metadata declares for it.
+
+    Parameters
+    ----------
+    record : Record
+        Its ``meta['shot_kind']`` (full or chopped against reduced or reduced_chopped) and
+        ``meta['level_percent']`` (100 % of the test level and above against below 80 %) are read.
+
+    Returns
+    -------
+    level : {'full', 'reduced'} or None
+        None when neither is declared, or the two contradict each other.
+    said : str
+        The metadata that says so, for a message (``"meta.shot_kind 'full', meta.level_percent 100"``).
+    """
     kind = record.meta.get("shot_kind")
     level = record.meta.get("level_percent")
     try:
@@ -262,8 +275,8 @@ def check_roles(reference: Record, test: Record) -> None:
         The reference is declared full-level and the test record reduced-level (names both files and
         the metadata fields that say so).
     """
-    ref_level, ref_said = _declared_level(reference)
-    test_level, test_said = _declared_level(test)
+    ref_level, ref_said = declared_level(reference)
+    test_level, test_said = declared_level(test)
     if ref_level == "full" and test_level == "reduced":
         ref_name = f" ({reference.source})" if reference.source else ""
         test_name = f" ({test.source})" if test.source else ""

@@ -162,7 +162,16 @@ def files_of_field(field: str, files: Sequence[tuple[str, bytes]]) -> list[tuple
     if len(set(suffixes)) != len(suffixes):
         raise InputError(f"two files of the same type ({', '.join(suffixes)}) under one field", field=field)
     main = [s for s in suffixes if s not in (".inf", ".hdr")]
-    if suffixes in ([".csv"], [".cff"], [".json"]) or (main == [".cfg", ".dat"]):
+    if main == [".cfg", ".dat"]:
+        # the parts of one COMTRADE record share its name: a .dat of another shot would be read under this
+        # .cfg's header without a word (the same counts, another shot's samples)
+        stems = {Path(n).stem.lower() for n, _ in files}
+        if len(stems) > 1:
+            shown = ", ".join(repr(n) for n, _ in files)
+            raise InputError(f"files {shown} are not the parts of one record: a .cfg, its .dat (and .inf, .hdr) "
+                             "have the same name before the extension", field=field)
+        return list(files)
+    if suffixes in ([".csv"], [".cff"], [".json"]):
         return list(files)
     if suffixes == [".cfg"]:
         raise InputError("a .cfg file needs its .dat file under the same field", field=field)
@@ -171,7 +180,7 @@ def files_of_field(field: str, files: Sequence[tuple[str, bytes]]) -> list[tuple
     shown = ", ".join(repr(n) for n, _ in files)
     raise InputError(
         f"files {shown} do not make one record; send a CSV, a .cff, or a .cfg and its .dat "
-        "(supported: .cfg, .cff, .csv)",
+        "(supported: .cfg with .dat, .cff, .csv, .json)",
         field=field,
     )
 
@@ -525,8 +534,19 @@ class Engine:
                        actor: str) -> tuple[dict[str, Any], bool]:
         existing = self.store.find_shot(sid, rec.digest)
         if existing is not None:
+            if existing["kind"] != kind or float(existing["level_percent"]) != float(level):
+                raise InputError(
+                    f"{rec.name}: this record is already shot {existing['id']} of the sequence, posted as "
+                    f"{existing['kind']} at {float(existing['level_percent']):g} %, not as {kind} at {level:g} %; "
+                    "a shot is stored once and never changed", field="kind", code="conflict", status=409)
             if existing["role"] != "reference" and existing["comparison_id"] is None:
                 existing = self._finish_shot(existing, opts, actor)  # a crash came between shot and verdict
+            row = self.store.get_comparison(existing["comparison_id"]) if existing["comparison_id"] else None
+            if row is not None and row["status"] == "failed":
+                # stored by a version that kept shots it could not compare: say so again, as the first time
+                e = row["error"] or {}
+                raise InputError(f"stored as shot {existing['id']} but not comparable: {e.get('detail', '')}",
+                                 field=e.get("field"), code=e.get("error", "invalid_record"))
             return self._shot_view(existing), False
         previous = self.store.list_shots(sid)
         try:
@@ -537,6 +557,17 @@ class Engine:
         if not record.has_current:
             raise InputError(f"{rec.name}: no current channel; a shot needs the neutral current",
                              field="record.channels", code="invalid_record")
+        from ..compare import declared_level
+        from ..sequence import REDUCED_KINDS
+
+        said_level, said = declared_level(record)
+        posted_level = "reduced" if kind in REDUCED_KINDS else "full"
+        if said_level is not None and said_level != posted_level:
+            # a full shot posted as the reduced reference would make every later comparison of the sequence
+            # fail (their files in the wrong order), and a stored shot is never changed
+            raise InputError(f"{rec.name}: posted as {kind} at {level:g} % ({posted_level} level), but the record "
+                             f"declares itself a {said_level}-level shot ({said}); post it with its own kind and "
+                             "level, or correct its metadata", field="kind", code="invalid_record")
         from ..waveshape import evaluate_waveshape
 
         bare = record.replace(meta={k: v for k, v in record.meta.items() if k != "shot_kind"})
@@ -555,14 +586,27 @@ class Engine:
                 w = level_warning(level / float(ref_shot["level_percent"]), abs(vt) / abs(vt_ref))
                 if w:
                     warnings.append(w)
+        cid = None
+        if ref_shot is not None:
+            # compared before it is stored: a shot that cannot be compared is refused, not kept as a shot
+            # whose verdict never comes (the sequence would wait for it for good)
+            ref_rec = self.store.get_record(ref_shot["record_digest"])
+            assert ref_rec is not None
+            try:
+                row, _ = self.compare(ref_rec, rec, options=opts, actor=actor)
+            except InputError as exc:
+                raise InputError(f"not added to the sequence: {exc}", field=exc.field,
+                                 code=exc.code) from None
+            cid = row["id"]
         try:
             shot, created = self.store.add_shot(sid, rec, kind=kind, level_percent=level, role=role,
                                                 waveshape=wsd, warnings=warnings, actor=actor,
                                                 expect_position=len(previous) + 1)
         except ShotcheckError:
             raise _SequenceMoved() from None
-        if ref_shot is not None and created:
-            shot = self._finish_shot(shot, opts, actor)
+        if cid is not None and created:
+            self.store.link_shot(shot["id"], cid)
+            shot = {**shot, "comparison_id": cid}
         return self._shot_view(shot), created
 
     def _finish_shot(self, shot: dict[str, Any], opts: Mapping[str, str], actor: str) -> dict[str, Any]:

@@ -121,6 +121,9 @@ def _request_cases(good):
                                           ("test", ("t.cff", b"\x00\xff" * 5000))]),
         "cfg_without_dat": dict(files=[("reference", ("r.csv", csv_text.encode())), ("test", ("t.cfg", cfg))]),
         "dat_alone": dict(files=[("reference", ("r.csv", csv_text.encode())), ("test", ("t.dat", dat))]),
+        # a .dat of another shot under this .cfg: the same counts, another shot's samples
+        "cfg_and_dat_of_two_shots": dict(files=[("reference", ("r.csv", csv_text.encode())), ("test", ("t.cfg", cfg)),
+                                                ("test", ("other.dat", dat))]),
         "truncated_dat": dict(files=[("reference", ("r.csv", csv_text.encode())), ("test", ("t.cfg", cfg)),
                                      ("test", ("t.dat", dat[: len(dat) // 2 + 3]))]),
         "truncated_csv": dict(files=[("reference", ("r.csv", csv_text.encode())),
@@ -145,7 +148,7 @@ CASE_NAMES = ["no_files", "text_plain_body", "json_not_object", "json_syntax", "
               "json_quantity_contradicts_unit", "json_missing_current_channel", "json_unequal_channels",
               "json_negative_interval", "json_interval_text", "json_too_few_samples", "json_no_impulse",
               "json_channel_option_unknown", "huge_body", "huge_chunked_body", "binary_garbage_csv", "binary_garbage_cff",
-              "cfg_without_dat", "dat_alone", "truncated_dat", "truncated_csv", "unsupported_suffix",
+              "cfg_without_dat", "dat_alone", "cfg_and_dat_of_two_shots", "truncated_dat", "truncated_csv", "unsupported_suffix",
               "two_csv_one_field", "empty_file", "field_as_text", "broken_multipart",
               "mismatched_rate_in_one_record"]
 
@@ -164,6 +167,8 @@ def test_bad_requests(bad_client, good, case):
         assert "kW" in body["detail"] and body["field"] == "test.channels[0].unit"
     if case == "json_missing_current_channel":
         assert "current" in body["detail"]
+    if case == "cfg_and_dat_of_two_shots":
+        assert r.status_code == 422 and body["field"] == "test" and "not the parts of one record" in body["detail"]
 
 
 def test_wave_kind_contradicting_the_declared_kind(bad_client, good, tmp_path):

@@ -107,6 +107,47 @@ def test_reposting_a_shot_is_idempotent(client, iec_files):
     assert len(client.get(f"/v1/sequences/{sid}").json()["shots"]) == 1
 
 
+def test_a_shot_that_cannot_be_compared_is_refused_and_not_stored(client, iec_files, tmp_path):
+    """A shot whose comparison with its reference fails (here a voltage channel in kV written as volts:
+    a thousandth of the reference's test voltage) used to be stored all the same and answered 422 once,
+    then 200 with no verdict on a re-post, and the sequence waited for its verdict for good."""
+    import dataclasses
+
+    sid = _new(client)
+    assert _shot(client, sid, iec_files[0][0], "reduced", 75).status_code == 201
+    good = svc_records.impulse_record(8000, level_percent=100.0, seed=22)
+    volts = good.replace(channels=tuple(dataclasses.replace(c, samples=c.samples * 1e-3) if c.quantity == "voltage"
+                                        else c for c in good.channels))
+    bad = svc_records.write_record(volts, tmp_path / "02_full_100_wrong_unit.csv")
+    for _ in range(2):  # the same answer every time
+        r = _shot(client, sid, bad, "full", 100)
+        assert r.status_code == 422, r.text
+        assert r.json()["detail"].startswith("not added to the sequence:") and "not comparable" in r.json()["detail"]
+    view = client.get(f"/v1/sequences/{sid}").json()
+    assert len(view["shots"]) == 1 and view["summary"]["shots_received"] == 1
+    r = _shot(client, sid, iec_files[1][0], "full", 100)  # the corrected shot takes its place
+    assert r.status_code == 201 and r.json()["position"] == 2 and r.json()["comparison"]["verdict"] is not None
+
+
+def test_a_record_declaring_the_other_level_is_refused(client, iec_files):
+    """A full-level record posted as the reduced reference (its own metadata says full, 100 %) would
+    make every later comparison of the sequence fail, and a shot is never changed: refused at once."""
+    sid = _new(client)
+    r = _shot(client, sid, iec_files[1][0], "reduced", 75)
+    assert r.status_code == 422 and r.json()["field"] == "kind", r.text
+    assert "declares itself a full-level shot (meta.shot_kind 'full', meta.level_percent 100)" in r.json()["detail"]
+    assert client.get(f"/v1/sequences/{sid}").json()["shots"] == []
+
+
+def test_reposting_a_shot_under_another_kind_or_level_is_409(client, iec_files):
+    sid = _new(client)
+    assert _shot(client, sid, iec_files[0][0], "reduced", 75).status_code == 201
+    r = _shot(client, sid, iec_files[0][0], "reduced", 60)
+    assert r.status_code == 409 and r.json()["field"] == "kind", r.text
+    assert "already shot" in r.json()["detail"] and "reduced at 75 %" in r.json()["detail"]
+    assert len(client.get(f"/v1/sequences/{sid}").json()["shots"]) == 1
+
+
 def test_declared_level_that_the_voltage_contradicts_gives_a_warning(client, iec_files):
     sid = _new(client)
     _shot(client, sid, iec_files[0][0], "reduced", 75)

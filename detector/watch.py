@@ -104,9 +104,22 @@ def kind_and_level(record_meta: dict[str, Any], name: str) -> tuple[str, float]:
     return kind, level
 
 
+def _process_umask() -> int:
+    """The process's file-creation mask (read once, at import, before any thread could race it)."""
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+_UMASK = _process_umask()
+
+
 def _atomic_write(path: Path, text: str) -> None:
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     try:
+        # mkstemp makes the file readable by its owner only; results are for the acquisition software,
+        # which may run as another user: the permissions a plain new file would get
+        os.fchmod(fd, 0o666 & ~_UMASK)
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
             fh.flush()
@@ -118,6 +131,19 @@ def _atomic_write(path: Path, text: str) -> None:
         except OSError:
             pass
         raise
+
+
+#: Result file of a processed file, by its status (suffix added to the file's name).
+_RESULT_OF = {"done": ".verdict.json", "failed": ".error.txt"}
+
+
+def _remove(*paths: Path) -> None:
+    """Remove result files that a newer result replaces (a reader must never see two that disagree)."""
+    for path in paths:
+        try:
+            path.unlink()
+        except FileNotFoundError:
+            pass
 
 
 @dataclasses.dataclass
@@ -170,6 +196,7 @@ class Watcher:
         self.engine = Engine(self.store, default_model(mp), mp or DEFAULT_MODEL_PATH)
         self._seen: dict[Path, _Seen] = {}
         self._finished: dict[Path, tuple] = {}
+        self._told_missing: set[Path] = set()
         self._stop = threading.Event()
 
     # ---- discovery ------------------------------------------------------------------------------
@@ -223,11 +250,14 @@ class Watcher:
         out: list[dict[str, Any]] = []
         now = time.monotonic()
         for folder in sorted(p for p in self.root.iterdir() if p.is_dir() and not p.name.startswith(".")):
-            groups = [self._parts(path) for path in self._candidates(folder)]
+            candidates = self._candidates(folder)
+            groups = [self._parts(path) for path in candidates]
             stable = [bool(parts) and all([self._stable(p, now) for p in parts]) for parts in groups]
-            for parts, ready in zip(groups, stable, strict=True):
+            for path, parts, ready in zip(candidates, groups, stable, strict=True):
                 if self._stop.is_set():
                     return out
+                if not parts and self._stable(path, now):
+                    self._tell_missing_dat(folder, path)
                 if not ready:
                     break  # still being written (or its .dat still to come): keep the order, look again later
                 path = parts[0]
@@ -242,11 +272,29 @@ class Watcher:
                     for p in parts:
                         self._seen.pop(p, None)
                     break
-                if self.store.watch_status(rel, digest) not in ("done", "failed") and \
-                        self.store.watch_claim(rel, digest):
+                status = self.store.watch_status(rel, digest)
+                if status in ("done", "failed"):
+                    if not path.with_name(path.name + _RESULT_OF[status]).is_file():
+                        # this content's result went when a later version of the file replaced it (and that
+                        # version's result went when this content came back): write it again
+                        out.append(self._process(folder, parts, rel, digest))
+                elif self.store.watch_claim(rel, digest):
                     out.append(self._process(folder, parts, rel, digest))
                 self._finished[path] = sig
         return out
+
+    def _tell_missing_dat(self, folder: Path, cfg: Path) -> None:
+        """A settled .cfg without its .dat holds up the shots after it (they are taken in order): say so
+        once, in its error file and the log, and keep waiting for the .dat."""
+        if cfg in self._told_missing:
+            return
+        self._told_missing.add(cfg)
+        later = [p.name for p in self._candidates(folder) if p.name > cfg.name]
+        text = (f"shotcheck is waiting for {cfg.with_suffix('.dat').name}, the data file of {cfg.name}; "
+                + (f"the {len(later)} shot file(s) after it in {folder.name} wait too (shots are taken in order)"
+                   if later else "the shot is taken when it arrives"))
+        _log.warning("%s/%s: %s", folder.name, cfg.name, text)
+        _atomic_write(cfg.with_name(cfg.name + ".error.txt"), text + "\n")
 
     def _sequence_for(self, folder: Path) -> str:
         sid = self.store.find_sequence("watch_folder", folder.name)
@@ -274,19 +322,25 @@ class Watcher:
             sid = self._sequence_for(folder)
             shot, _ = self.engine.add_shot(sid, rec, kind=kind, level_percent=level, actor="watcher")
             _atomic_write(verdict_path, json.dumps(shot, indent=1))
+            _remove(error_path)  # an earlier version of the file failed: its error no longer holds
+            report_path = main.with_name(main.name + ".report.html")
             if self.report and shot.get("comparison") and shot["comparison"]["status"] == "done":
                 self._write_report(shot["comparison"]["id"], main)
+            else:
+                _remove(report_path)
             result = {"file": rel, "status": "done", "detail": shot["id"]}
         except (InputError, ShotcheckError) as exc:
             field = getattr(exc, "field", None)
             reason = f"shotcheck could not process {main.name}: {exc}" + (f" (field: {field})" if field else "")
             _atomic_write(error_path, reason + "\n")
+            _remove(verdict_path, main.with_name(main.name + ".report.html"))  # an earlier version's results
             result = {"file": rel, "status": "failed", "detail": str(exc)}
         except Exception as exc:  # a fault of shotcheck, not of the file: record it rather than crash-loop
             _log.exception("processing %s failed", rel)
             reason = (f"shotcheck failed on {main.name} with an internal error ({type(exc).__name__}); "
                       "please report it with this file")
             _atomic_write(error_path, reason + "\n")
+            _remove(verdict_path, main.with_name(main.name + ".report.html"))
             result = {"file": rel, "status": "failed", "detail": f"internal error: {type(exc).__name__}: {exc}"}
         self.store.watch_finish(rel, digest, result["status"], result)
         return result

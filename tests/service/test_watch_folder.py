@@ -229,3 +229,62 @@ def test_a_file_that_vanishes_mid_scan_is_looked_at_again(tmp_path, model_path, 
         assert [d["status"] for d in w.scan_once()] == ["done"]
     finally:
         w.store.close()
+
+
+def test_results_are_readable_by_others_and_a_new_result_replaces_the_old_one(tmp_path, model_path, record_files):
+    """The acquisition software may read the results as another user (the verdict used to be made with
+    mkstemp's owner-only mode); and a file changed after its verdict that then fails must not leave the
+    old verdict beside its new error (nor the reverse): a reader would pick the stale one."""
+    import stat
+
+    root = tmp_path / "watched"
+    seq = root / "TX-0000-SVC_2V"
+    seq.mkdir(parents=True)
+    for key in ("reduced_csv", "full_cff"):
+        for p in record_files[key]:
+            (seq / p.name).write_bytes(p.read_bytes())
+    full = seq / record_files["full_cff"][0].name
+    w = Watcher(root, model_path=model_path, settle_s=0.0)
+    assert [d["status"] for d in w.scan_once()] == ["done", "done"]
+    verdict = full.with_name(full.name + ".verdict.json")
+    mask = os.umask(0)
+    os.umask(mask)
+    assert stat.S_IMODE(verdict.stat().st_mode) == 0o666 & ~mask
+    full.write_bytes(b"not a record any more")  # the shot file replaced by its writer
+    assert [d["status"] for d in w.scan_once()] == ["failed"]
+    error = full.with_name(full.name + ".error.txt")
+    assert error.is_file() and not verdict.exists()
+    assert stat.S_IMODE(error.stat().st_mode) == 0o666 & ~mask
+    full.write_bytes(record_files["full_cff"][0].read_bytes())  # and put back
+    assert [d["status"] for d in w.scan_once()] == ["done"]
+    assert verdict.is_file() and not error.exists()
+    w.store.close()
+
+
+def test_a_cfg_without_its_dat_says_what_it_waits_for(tmp_path, model_path, record_files):
+    """A .cfg whose .dat never comes holds up the shots after it (they are taken in order); that used to
+    happen without a word. Its error file says what it waits for; when the .dat comes, the shot is taken
+    and the error file goes."""
+    root = tmp_path / "watched"
+    seq = root / "TX-0000-SVC_2V"
+    seq.mkdir(parents=True)
+    for p in record_files["reduced_csv"]:
+        (seq / p.name).write_bytes(p.read_bytes())
+    cfg, dat = record_files["full_cfg"][0], record_files["full_cfg"][1]
+    assert dat.suffix == ".dat"
+    (seq / cfg.name).write_bytes(cfg.read_bytes())
+    later = seq / ("zz_" + record_files["chopped_cff"][0].name)
+    later.write_bytes(record_files["chopped_cff"][0].read_bytes())
+    w = Watcher(root, model_path=model_path, settle_s=0.0)
+    assert [d["status"] for d in w.scan_once()] == ["done"]  # the reference; then the .cfg waits
+    note = seq / (cfg.name + ".error.txt")
+    assert note.is_file()
+    text = note.read_text()
+    assert f"waiting for {dat.name}" in text and "1 shot file(s) after it" in text
+    assert not (seq / (later.name + ".verdict.json")).exists()
+    (seq / dat.name).write_bytes(dat.read_bytes())
+    for p in record_files["full_cfg"][2:]:
+        (seq / p.name).write_bytes(p.read_bytes())
+    assert [d["status"] for d in w.scan_once()] == ["done", "done"]
+    assert not note.exists() and (seq / (later.name + ".verdict.json")).is_file()
+    w.store.close()

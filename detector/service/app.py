@@ -190,6 +190,16 @@ def create_app(settings: Settings) -> FastAPI:
     async def _validation_error(request: Request, exc: RequestValidationError) -> JSONResponse:
         errs = exc.errors()
         first = errs[0] if errs else {}
+        ctype = request.headers.get("content-type", "").split(";")[0].strip().lower()
+        if any(tuple(e.get("loc", ()))[:1] == ("body",) for e in errs) and ctype != "application/json":
+            # only JSON bodies are validated here (multipart uploads are read by the routes themselves)
+            return _error(415, "unsupported_media_type",
+                          f"expected a JSON body (content-type application/json), got {ctype or 'no content type'}",
+                          "content-type")
+        if first.get("type") == "json_invalid":  # its location is a character offset, not a field
+            pos = next((p for p in first.get("loc", ()) if isinstance(p, int)), None)
+            return _error(422, "invalid_input", "the body is not valid JSON"
+                          + (f" (at character {pos})" if pos is not None else "") + f": {first.get('msg')}", "body")
         loc = ".".join(str(p) for p in first.get("loc", ()) if p != "body")
         detail = "; ".join(f"{'.'.join(str(p) for p in e.get('loc', ()))}: {e.get('msg')}" for e in errs[:5])
         return _error(422, "invalid_input", detail or "invalid request", loc or None)
@@ -207,6 +217,27 @@ def create_app(settings: Settings) -> FastAPI:
     app.include_router(health_routes.router)
     app.include_router(compare_routes.router)
     app.include_router(sequence_routes.router)
+    default_openapi = app.openapi
+
+    def openapi_with_models() -> dict[str, Any]:
+        """The API description, with the models of hand-written request bodies (a route's openapi_extra
+        carries them under its schema's ``$defs``, its references pointing to the components) moved to
+        the components, so that every reference resolves."""
+        if app.openapi_schema is not None:
+            return app.openapi_schema
+        doc = default_openapi()
+        comps = doc.setdefault("components", {}).setdefault("schemas", {})
+        for item in doc.get("paths", {}).values():
+            for op in item.values():
+                if not isinstance(op, dict):
+                    continue
+                for media in (op.get("requestBody") or {}).get("content", {}).values():
+                    for name, model in (media.get("schema") or {}).pop("$defs", {}).items():
+                        comps.setdefault(name, model)
+        app.openapi_schema = doc
+        return doc
+
+    app.openapi = openapi_with_models  # type: ignore[method-assign]
 
     if STATIC_DIR.is_dir():
         app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")

@@ -60,8 +60,11 @@ async def run_in_worker(request: Request, func: Any, *args: Any) -> Any:
     return await anyio.to_thread.run_sync(func, *args, limiter=request.app.state.limiter)
 
 
-async def read_multipart(request: Request, fields: tuple[str, ...]) -> tuple[dict[str, list[tuple[str, bytes]]], Any]:
+async def read_multipart(request: Request, fields: tuple[str, ...], *, json_too: bool = False
+                         ) -> tuple[dict[str, list[tuple[str, bytes]]], Any]:
     """Parse a multipart upload into ``{field: [(client file name, bytes), ...]}`` and the form.
+
+    ``json_too`` only changes the message for another content type: the route also takes JSON.
 
     Raises
     ------
@@ -70,7 +73,8 @@ async def read_multipart(request: Request, fields: tuple[str, ...]) -> tuple[dic
     """
     ctype = request.headers.get("content-type", "")
     if not ctype.lower().startswith("multipart/form-data"):
-        raise InputError(f"expected multipart/form-data with fields {', '.join(fields)}, got {ctype or 'no content type'!r}",
+        raise InputError(f"expected multipart/form-data with fields {', '.join(fields)}"
+                         + (" or application/json" if json_too else "") + f", got {ctype or 'no content type'!r}",
                          field="content-type", code="unsupported_media_type", status=415)
     try:
         form = await request.form(max_files=8, max_fields=16)

@@ -74,6 +74,11 @@ def _json_number(x: Any, field: str) -> float:
     return float(x)
 
 
+#: Keys of a record and of a channel in the JSON form (others are refused, not ignored).
+_RECORD_KEYS = ("sample_interval_s", "start_time_s", "channels", "meta")
+_CHANNEL_KEYS = ("name", "unit", "quantity", "samples")
+
+
 def record_from_json(doc: Any, *, name: str = "record") -> Record:
     """Build a record from its JSON form.
 
@@ -102,6 +107,11 @@ def record_from_json(doc: Any, *, name: str = "record") -> Record:
     for key in ("sample_interval_s", "channels"):
         if key not in doc:
             raise InputError(f"missing '{key}'", field=f"{name}.{key}")
+    # a misspelt key (start_time for start_time_s) would otherwise be dropped and its default used
+    unknown = sorted(str(k) for k in doc if k not in _RECORD_KEYS)
+    if unknown:
+        raise InputError(f"unknown key {unknown[0]!r}; a record has {', '.join(_RECORD_KEYS)}",
+                         field=f"{name}.{unknown[0]}")
     dt = _json_number(doc["sample_interval_s"], f"{name}.sample_interval_s")
     t0 = _json_number(doc.get("start_time_s", 0.0), f"{name}.start_time_s")
     chans_in = doc["channels"]
@@ -112,6 +122,10 @@ def record_from_json(doc: Any, *, name: str = "record") -> Record:
         f = f"{name}.channels[{k}]"
         if not isinstance(ch, Mapping):
             raise InputError("expected an object with name, unit and samples", field=f)
+        unknown = sorted(str(k) for k in ch if k not in _CHANNEL_KEYS)
+        if unknown:
+            raise InputError(f"unknown key {unknown[0]!r}; a channel has {', '.join(_CHANNEL_KEYS)}",
+                             field=f"{f}.{unknown[0]}")
         unit = ch.get("unit")
         if not isinstance(unit, str):
             raise InputError("missing or non-text unit (e.g. 'kV', 'A')", field=f"{f}.unit")
@@ -125,6 +139,10 @@ def record_from_json(doc: Any, *, name: str = "record") -> Record:
         if len(samples) > MAX_JSON_SAMPLES:
             raise InputError(f"{len(samples)} samples exceed the limit of {MAX_JSON_SAMPLES}", field=f"{f}.samples",
                              status=413, code="too_large")
+        bad = next((j for j, x in enumerate(samples) if isinstance(x, bool) or not isinstance(x, (int, float))), None)
+        if bad is not None:  # numpy would read null as NaN and true as 1
+            raise InputError(f"samples must all be numbers (no null, text, true/false or nested lists); sample {bad} "
+                             f"is {json.dumps(samples[bad])[:40]}", field=f"{f}.samples[{bad}]")
         try:
             arr = np.asarray(samples, dtype=np.float64)
         except (TypeError, ValueError, OverflowError):

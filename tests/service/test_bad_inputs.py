@@ -100,6 +100,9 @@ def _request_cases(good):
         "json_null_sample": dict(json={"reference": rj, "test": _json(full, channels=[
             {"name": "U", "unit": "kV", "samples": [None] * 100}])}),
         "json_nan_samples": dict(content=nan_body.encode(), headers=hj),
+        "json_misspelt_record_key": dict(json={"reference": rj, "test": {**_json(full), "start_time": -1e-5}}),
+        "json_unknown_channel_key": dict(json={"reference": rj, "test": _json(full, channels=[
+            svc_records.as_json(full)["channels"][0], {**svc_records.as_json(full)["channels"][1], "scale": 2}])}),
         "json_wrong_unit": dict(json={"reference": rj, "test": _json(full, channels=[
             {**svc_records.as_json(full)["channels"][0], "unit": "kW"}, svc_records.as_json(full)["channels"][1]])}),
         "json_quantity_contradicts_unit": dict(json={"reference": rj, "test": _json(full, channels=[
@@ -144,7 +147,8 @@ def _request_cases(good):
 
 CASE_NAMES = ["no_files", "text_plain_body", "json_not_object", "json_syntax", "json_nested_too_deep",
               "json_integer_overflow", "json_missing_test",
-              "json_unknown_field", "json_null_sample", "json_nan_samples", "json_wrong_unit",
+              "json_unknown_field", "json_null_sample", "json_nan_samples", "json_misspelt_record_key",
+              "json_unknown_channel_key", "json_wrong_unit",
               "json_quantity_contradicts_unit", "json_missing_current_channel", "json_unequal_channels",
               "json_negative_interval", "json_interval_text", "json_too_few_samples", "json_no_impulse",
               "json_channel_option_unknown", "huge_body", "huge_chunked_body", "binary_garbage_csv", "binary_garbage_cff",
@@ -167,6 +171,12 @@ def test_bad_requests(bad_client, good, case):
         assert "kW" in body["detail"] and body["field"] == "test.channels[0].unit"
     if case == "json_missing_current_channel":
         assert "current" in body["detail"]
+    if case == "json_null_sample":  # numpy would read null as NaN: named as the sample it is
+        assert body["field"] == "test.channels[0].samples[0]" and "null" in body["detail"]
+    if case == "json_misspelt_record_key":  # 'start_time' for start_time_s used to be dropped, its default used
+        assert body["field"] == "test.start_time" and "unknown key 'start_time'" in body["detail"]
+    if case == "json_unknown_channel_key":
+        assert body["field"] == "test.channels[1].scale"
     if case == "cfg_and_dat_of_two_shots":
         assert r.status_code == 422 and body["field"] == "test" and "not the parts of one record" in body["detail"]
 

@@ -179,6 +179,18 @@ def test_bad_sequence_bodies_are_422(client, body, field):
     assert r.json()["field"].startswith(field)
 
 
+def test_a_sequence_body_that_is_not_json_is_415_and_broken_json_names_the_body(client):
+    """The README promises 415 for a wrong content type; a form or a text body used to get 422 'Input
+    should be a valid dictionary' with no field, and broken JSON a character offset as its field."""
+    form = client.post("/v1/sequences", data={"unit_id": "A", "terminal": "1U"}, headers=AUTH)
+    text = client.post("/v1/sequences", content=b"unit_id=A", headers={**AUTH, "content-type": "text/plain"})
+    for r in (form, text):
+        assert r.status_code == 415 and r.json()["field"] == "content-type", r.text
+    r = client.post("/v1/sequences", content=b'{"unit_id": "A", "terminal": ', headers={**AUTH, "content-type":
+                                                                                           "application/json"})
+    assert r.status_code == 422 and r.json()["field"] == "body" and "not valid JSON" in r.json()["detail"], r.text
+
+
 def test_a_shot_stored_without_its_comparison_is_finished_on_restart(settings, iec_files):
     """A crash between committing a shot and comparing it: the next start compares it."""
     from fastapi.testclient import TestClient

@@ -85,7 +85,7 @@ async def create_comparison(request: Request, engine: EngineDep, actor: Writer) 
             if v is not None and not isinstance(v, str):
                 raise InputError("must be text", field=k)
     else:
-        files, form = await read_multipart(request, ("reference", "test"))
+        files, form = await read_multipart(request, ("reference", "test"), json_too=True)
         opts = {k: form_text(form, k) for k in ("voltage_channel", "current_channel")}
 
     def work() -> tuple[dict[str, Any], bool]:

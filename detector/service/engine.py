@@ -406,6 +406,7 @@ class Engine:
 
     def _run(self, cid: str, reference: StoredRecord, test: StoredRecord, opts: Mapping[str, str],
              actor: str) -> dict[str, Any]:
+        ref = tst = None
         try:
             ref, ref_shape = self.reference(reference, field="reference", **opts)
             tst = self.read(test, field="test", **opts)
@@ -414,7 +415,13 @@ class Engine:
             self.store.fail_comparison(cid, exc.to_dict(), actor=actor)
             raise
         except ShotcheckError as exc:
-            err = InputError(str(exc), field=getattr(exc, "field", None), code="invalid_record")
+            # the comparison's own refusals name the record by its file: the field says which of the two
+            fld, path = getattr(exc, "field", None), getattr(exc, "path", None)
+            owners = [name for name, r in (("reference", ref), ("test", tst)) if r is not None and path is not None
+                      and r.source == path]
+            if fld and len(owners) == 1:
+                fld = f"{owners[0]}.{fld}"
+            err = InputError(str(exc), field=fld, code="invalid_record")
             self.store.fail_comparison(cid, err.to_dict(), actor=actor)
             raise err from None
         self.store.finish_comparison(cid, verdict, actor=actor)

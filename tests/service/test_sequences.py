@@ -123,6 +123,7 @@ def test_a_shot_that_cannot_be_compared_is_refused_and_not_stored(client, iec_fi
         r = _shot(client, sid, bad, "full", 100)
         assert r.status_code == 422, r.text
         assert r.json()["detail"].startswith("not added to the sequence:") and "not comparable" in r.json()["detail"]
+        assert r.json()["field"] == "test.voltage"  # the record the refusal concerns
     view = client.get(f"/v1/sequences/{sid}").json()
     assert len(view["shots"]) == 1 and view["summary"]["shots_received"] == 1
     r = _shot(client, sid, iec_files[1][0], "full", 100)  # the corrected shot takes its place

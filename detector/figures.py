@@ -588,8 +588,9 @@ def transfer_figure(verdict: Verdict) -> Figure:
     -------
     matplotlib.figure.Figure
         Top: |H(f)| = |I(f)/V(f)| [dB re 1 S] of the reference (solid) and the test (dashed); bottom: test
-        minus reference [dB]; log frequency axis [Hz]; the comparison bands shaded. Frequencies where the
-        voltage spectrum is not above its noise are left out (NaN).
+        minus reference [dB]; log frequency axis [Hz]; the comparison bands shaded. Drawn over the
+        frequencies both records resolve (their voltage and current spectra above their noise), the
+        points the indices are computed over.
     """
     tc = verdict.analysis.transfer
     f = np.asarray(tc.frequency_Hz, dtype=np.float64)
@@ -597,6 +598,12 @@ def transfer_figure(verdict: Verdict) -> Figure:
     t = np.asarray(tc.test_dB, dtype=np.float64)
     pos = f > 0
     f, r, t = f[pos], r[pos], t[pos]
+    # drawn where both records resolve the frequency, the band the indices are computed over: one
+    # record's curve beyond it (a pre-trigger quiet to the last code reads as no noise at all, and its
+    # curve then runs on to the Nyquist frequency) would only show noise and squeeze the scale
+    both = np.isfinite(r) & np.isfinite(t)
+    if both.any():
+        r, t = np.where(both, r, np.nan), np.where(both, t, np.nan)
     fig = _new_figure(4.8, hspace=0.35)
     ax_m, ax_d = fig.subplots(2, 1, sharex=True, height_ratios=[3, 2])
     ok = np.isfinite(r) | np.isfinite(t)

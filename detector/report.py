@@ -80,8 +80,9 @@ FIGURE_CAPTIONS: Mapping[str, str] = {
                   "its wavelet levels).",
     "transfer": "Transfer function |I(f)/V(f)| of each record (same exponential window on both signals), "
                 "drawn over the frequencies both records resolve (voltage and current spectra above their "
-                "noise), the points the indices are computed over, and the difference test minus reference. Shaded: the comparison bands. It does not depend on "
-                "the applied wave shape, so a chopped test shot can be compared with a full reference.",
+                "noise), the points the indices are computed over, and the difference test minus "
+                "reference. Shaded: the comparison bands. It does not depend on the applied wave shape, "
+                "so a chopped test shot can be compared with a full reference.",
     "wavelet": "Stationary wavelet difference of the neutral currents, each level in units of its own "
                "noise (median absolute deviation); the line on the colour bar is the significance "
                "threshold. Up to the end of the span the compensated prediction covers, the test current "

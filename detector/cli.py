@@ -165,6 +165,11 @@ def verdict_text(d: dict[str, Any], reference: str, test: str) -> str:
                          f"{e['description']}")
     for w in d.get("warnings") or []:
         lines.append(f"  warning: {w}")
+    m = d.get("model") or {}
+    if m:
+        lines.append(f"  model: {m.get('source') or m.get('name')}"
+                     + (f", trained on {m['training_data']}" if m.get("training_data") else "")
+                     + (f", created {m['created']}" if m.get("created") else ""))
     lines.append("  Advisory second opinion only: the responsible engineer decides.")
     return "\n".join(lines)
 
@@ -189,22 +194,40 @@ def _cmd_compare(args: argparse.Namespace) -> int:
     return 1 if d["fault_indicated"] else 0
 
 
+def _data_description(directory: str) -> str:
+    """``'1200 pairs of the family nv25_hv (seed 7), data set data/nv25'`` from a data set's manifest (its
+    folder name alone where the manifest cannot be read): the model card's default training description."""
+    try:
+        man = json.loads((Path(directory) / "manifest.json").read_text(encoding="utf-8"))
+        fams = [str(f["name"]) for f in man.get("families", [])]
+        what = f"{int(man['n_cases'])} pairs of the famil{'ies' if len(fams) > 1 else 'y'} {', '.join(fams)}"
+        return f"{what} (seed {man.get('seed')}), data set {directory}"
+    except (OSError, ValueError, KeyError, TypeError):
+        return f"data set {directory}"
+
+
 def _cmd_train(args: argparse.Namespace) -> int:
     from .model import save_model
     from .training import class_counts, extract_dataset, report_text, save_report, train
 
     # the options and the output folder first: not after minutes of work
     check_range("--false-alarm-rate", args.false_alarm_rate, 0.0, 0.5, low_inclusive=False)
+    if args.cv_folds < 2:
+        # without out-of-fold benign pairs the threshold would stay at an untuned 0.5 and the false-alarm
+        # target would be ignored without a word
+        raise ShotcheckError(f"--cv-folds: must be at least 2, got {args.cv_folds}; the decision threshold is set "
+                             "on the cross-validated benign pairs to the --false-alarm-rate")
     out_dir = Path(args.out).expanduser().resolve().parent
     if not out_dir.is_dir():
         raise ShotcheckError(f"{args.out}: --out: the folder {out_dir} does not exist; create it first")
     data = extract_dataset(args.data, workers=args.workers, progress=not args.no_progress)
     try:
         model, rep = train(data, false_alarm_rate_target=args.false_alarm_rate, seed=args.seed,
-                           cv_folds=args.cv_folds, description=args.description or f"data set {args.data}")
+                           cv_folds=args.cv_folds, description=args.description or _data_description(args.data))
     except ValueError as exc:  # an estimator refusing the data: in practice a set too small or too one-sided
         raise ShotcheckError(f"{args.data}: training failed on this data set ({class_counts(data.event)}): "
-                             f"{type(exc).__name__}: {exc}; train on more pairs of every class") from None
+                             f"{type(exc).__name__}: {exc}; a class with few usable pairs is the usual cause "
+                             "(see the counts; make more pairs of it)") from None
     save_model(model, args.out)
     print(f"cross-validated figures (grouped by winding design, {args.cv_folds} folds):")
     print(report_text(rep))
@@ -353,7 +376,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", metavar="MODEL", required=True, help="model file to write (.skops)")
     p.add_argument("--false-alarm-rate", type=float, default=0.01, help="threshold false-alarm target (0.01)")
     p.add_argument("--seed", type=int, default=0, help="seed of the estimators")
-    p.add_argument("--cv-folds", type=int, default=3, help="folds of the grouped cross-validation (0: none)")
+    p.add_argument("--cv-folds", type=int, default=3,
+                   help="folds of the grouped cross-validation (at least 2: the decision threshold is set on "
+                        "the out-of-fold benign pairs)")
     p.add_argument("--description", default=None, help="training-data description for the model card")
     p.add_argument("--report-json", default=None, metavar="PATH", help="write the figures as JSON")
     _data_options(p)

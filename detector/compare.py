@@ -468,6 +468,10 @@ def compare(
         loc = loc_pred
     info = {
         "name": str(m.card.get("name", "custom")),
+        # which model spoke: the bundled one, or the file --model named (a retrained model has the same name)
+        "source": ("bundled default model" if model is None else str(model) if isinstance(model, str | Path)
+                   else "model object"),
+        "training_data": m.card.get("training_data"),
         "schema_version": m.schema_version,
         "none_threshold": none_threshold,
         "none_threshold_kind": threshold_kind,

@@ -78,6 +78,23 @@ def _check_params(est: BaseEstimator, constraints: Mapping[str, tuple[type, floa
             )
 
 
+
+def _fittable(X: np.ndarray) -> np.ndarray:
+    """``X`` with every column that holds no finite value set to 0 (a copy only then).
+
+    scikit-learn's histogram boosters refuse such a column ("window shape cannot be larger than input
+    array shape"); in a small or one-sided set (a retraining family whose to-ground faults never hold a
+    tone, say) a feature may be missing in every row of a class. A constant column is never split on,
+    so the fit is the same as without it; where every column has a value, ``X`` is returned as it is
+    (the bundled model's fit is unchanged).
+    """
+    empty = ~np.isfinite(X).any(axis=0)
+    if not empty.any():
+        return X
+    out = np.array(X, dtype=np.float64, copy=True)
+    out[:, empty] = 0.0
+    return out
+
 class FaultClassifier(ClassifierMixin, BaseEstimator):
     """Calibrated gradient-boosting classifier over the event classes.
 
@@ -218,11 +235,11 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
                 idx_fit, idx_cal = train_test_split(
                     np.arange(y.size), test_size=self.calibration_fraction, stratify=y, random_state=seed
                 )
-                base.fit(X[idx_fit], y[idx_fit], sample_weight=None if sw is None else sw[idx_fit])
+                base.fit(_fittable(X[idx_fit]), y[idx_fit], sample_weight=None if sw is None else sw[idx_fit])
                 member = CalibratedClassifierCV(FrozenEstimator(base), method=self.calibration)
-                member.fit(X[idx_cal], y[idx_cal], sample_weight=None if sw is None else sw[idx_cal])
+                member.fit(_fittable(X[idx_cal]), y[idx_cal], sample_weight=None if sw is None else sw[idx_cal])
             else:  # too few samples of a class to hold some out: keep the raw probabilities
-                member = base.fit(X, y, sample_weight=sample_weight)
+                member = base.fit(_fittable(X), y, sample_weight=sample_weight)
             self.members_.append(member)
             n_iter.append(base.n_iter_)
         self.calibrated_ = self.members_[0]
@@ -243,7 +260,7 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
             l2_regularization=self.l2_regularization,
             early_stopping=False,
             random_state=self.random_state,
-        ).fit(X, fault, sample_weight=sw)
+        ).fit(_fittable(X), fault, sample_weight=sw)
 
     def __sklearn_tags__(self):  # missing features (NaN) are handled by the boosted trees
         tags = super().__sklearn_tags__()
@@ -424,8 +441,8 @@ class LocationRegressor(RegressorMixin, BaseEstimator):
                     covered = False
                     continue
                 self.models_[str(c)] = self._booster(int(sel.sum())).fit(
-                    X[sel], y[sel], sample_weight=None if sw is None else sw[sel])
-        self.model_ = None if covered else self._booster(y.size).fit(X, y, sample_weight=sw)
+                    _fittable(X[sel]), y[sel], sample_weight=None if sw is None else sw[sel])
+        self.model_ = None if covered else self._booster(y.size).fit(_fittable(X), y, sample_weight=sw)
         self.n_iter_ = (self.model_.n_iter_ if self.model_ is not None else
                         int(round(float(np.mean([m.n_iter_ for m in self.models_.values()])))))
         return self
@@ -635,7 +652,7 @@ class InstantRegressor(LocationRegressor):
             max_leaf_nodes=self.CHOOSER_LEAVES,
             early_stopping=False,
             random_state=self.random_state,
-        ).fit(rows[keep], right[keep], sample_weight=sw)
+        ).fit(_fittable(rows[keep]), right[keep], sample_weight=sw)
         return self
 
     def choose(self, X: np.ndarray, regressed: np.ndarray, scores: np.ndarray | None) -> np.ndarray:

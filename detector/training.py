@@ -352,7 +352,9 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     seed : int
         Seed of the estimators.
     cv_folds : int
-        Folds of the grouped cross-validation (0 to skip it).
+        Folds of the grouped cross-validation; 0 skips it, and the decision threshold then stays at
+        0.5 instead of being set to ``false_alarm_rate_target`` (quick models for tests only; the CLI
+        refuses it).
     description : str
         Training-data description for the model card.
 

@@ -134,9 +134,11 @@ SCHEMA: dict[str, dict[str, _Key]] = {
         "breakdown_fraction": _Key("range", 0.0, 1.0, required=False, default=[0.05, 0.95]),
         "phases": _Key("choice", dtype=str, required=False, default=["front", "crest", "tail"]),
         "front_region": _Key("fraction", 0.0, 1.0, required=False, default=0.15),
-        "discharge_charge_C": _Key("range", 1e-14, 1e-5, "log", required=False, default=[1e-12, 3e-8]),
+        # the bundled families' ranges: below ~20 nC a discharge moves the neutral current by less than one
+        # code, and a family that left these out used to train on a few dozen visible discharges
+        "discharge_charge_C": _Key("range", 1e-14, 1e-5, "log", required=False, default=[2e-8, 2e-6]),
         "discharge_width_s": _Key("range", 1e-9, 1e-6, required=False, default=[10e-9, 60e-9]),
-        "discharge_pulses": _Key("range", 1, 1000, "int", int, required=False, default=[1, 20]),
+        "discharge_pulses": _Key("range", 1, 1000, "int", int, required=False, default=[3, 30]),
         "discharge_repetition_s": _Key("range", 10e-9, 100e-6, "log", required=False, default=[0.2e-6, 5e-6]),
     },
 }

@@ -145,6 +145,8 @@ def test_demo_runs_the_whole_job_and_the_readme_quotes_what_it_prints(tmp_path, 
     d = json.loads(capsys.readouterr().out)
     truth = d["demo_truth"]
     assert d["fault_indicated"] and d["event"] == "turn_to_turn", d["probabilities"]
+    # which model spoke (a retrained one carries the same name): the bundled one here, with its data
+    assert d["model"]["source"] == "bundled default model" and "64000 pairs" in d["model"]["training_data"]
     assert abs(d["fault_time_us"] - truth["fault_time_us"]) < 3.0
     assert 0.0 <= d["location"] <= 1.0
     for name in ("reference.cfg", "reference.dat", "test.cfg", "test.dat", "verdict.json", "report.html"):
@@ -180,3 +182,15 @@ def test_an_input_error_with_json_prints_a_json_object_naming_file_and_field(tmp
     # without --json nothing goes to stdout
     assert main(["compare", str(good), str(bad)]) == 2
     assert capsys.readouterr().out == ""
+
+
+def test_verdict_text_names_the_model_it_came_from():
+    from detector.cli import verdict_text
+
+    d = {"fault_indicated": False, "event": "none", "probabilities": {"none": 0.9},
+         "model": {"name": "shotcheck synthetic model", "source": "lab/nv25.skops",
+                   "training_data": "1200 pairs of the family nv25_hv (seed 7), data set data/nv25",
+                   "created": "2026-12-05T10:00:00+00:00"}}
+    text = verdict_text(d, "r.cfg", "t.cfg")
+    assert ("  model: lab/nv25.skops, trained on 1200 pairs of the family nv25_hv (seed 7), data set data/nv25, "
+            "created 2026-12-05T10:00:00+00:00") in text.splitlines()

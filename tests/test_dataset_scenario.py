@@ -163,3 +163,10 @@ def test_minimal_family_uses_documented_defaults(tmp_path):
     assert sc.winding["n_sections"] == 10 and sc.bil_V == 125e3 and sc.reduced_level == 0.6
     assert math.isinf(sc.magnetising_reference_H)
     assert sc.recorder_test["sample_rate_Hz"] == 100e6 and sc.recorder_test["bits"] == 12
+    # a family without a [faults] table draws the bundled families' discharges (20 nC - 2 uC, 3-30 pulses),
+    # not ones too small to move the neutral current by a code (the README's example has no such table)
+    bundled = tomllib.loads((DESIGN_DIR / "power.toml").read_text())["faults"]
+    for k in range(20):
+        d = sample_scenario(np.random.default_rng(k), fam, event="discharge_only").fault
+        assert bundled["discharge_charge_C"][0] <= d["charge_C"] <= bundled["discharge_charge_C"][1]
+        assert bundled["discharge_pulses"][0] <= d["max_pulses"] <= bundled["discharge_pulses"][1]

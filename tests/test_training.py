@@ -343,6 +343,9 @@ def test_train_command_checks_its_options_before_the_work(tmp_path, capsys, monk
     assert "the folder" in capsys.readouterr().err and not called
     assert cli.main(["train", str(tmp_path), "--out", str(tmp_path / "m.skops"), "--false-alarm-rate", "5"]) == 2
     assert "--false-alarm-rate" in capsys.readouterr().err and not called
+    # without cross-validation the threshold would stay at an untuned 0.5, the target ignored
+    assert cli.main(["train", str(tmp_path), "--out", str(tmp_path / "m.skops"), "--cv-folds", "0"]) == 2
+    assert "--cv-folds: must be at least 2" in capsys.readouterr().err and not called
 
     def refuse(*a, **k):
         raise ValueError("window shape cannot be larger than input array shape")
@@ -454,3 +457,15 @@ def test_location_medians_by_effect_and_by_position_take_their_bins_detected_fau
     assert by_pos["0.8-1"]["n"] == 2 and by_pos["0.8-1"]["median"] == pytest.approx(0.4)  # 0.2, 0.6
     text = report_text(rep)
     assert "by effect [codes]: 1-5 0.150 (2)" in text and "0.8-1 0.400 (2)" in text
+
+
+def test_the_default_training_description_names_the_families(tmp_path):
+    """A retrained model's card said only 'data set data/nv25'; it names what the set holds now."""
+    import json
+
+    from detector.cli import _data_description
+
+    (tmp_path / "manifest.json").write_text(json.dumps({"n_cases": 1200, "seed": 7, "families": [
+        {"name": "nv25_hv", "source": "nv25_hv.toml", "values": {}}]}))
+    assert _data_description(str(tmp_path)) == f"1200 pairs of the family nv25_hv (seed 7), data set {tmp_path}"
+    assert _data_description(str(tmp_path / "missing")) == f"data set {tmp_path / 'missing'}"

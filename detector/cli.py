@@ -230,6 +230,10 @@ def _cmd_train(args: argparse.Namespace) -> int:
                              "(see the counts; make more pairs of it)") from None
     save_model(model, args.out)
     print(f"cross-validated figures (grouped by winding design, {args.cv_folds} folds):")
+    n_left = model.card.get("n_invisible_faults_left_out")
+    if n_left:
+        print(f"left out of training and figures: {n_left} faulted pairs whose effect is under "
+              f"{model.card.get('min_effect_lsb', 1):g} recorder code(s) (noise-free)")
     print(report_text(rep))
     print(f"model written to {args.out}")
     if args.report_json:

@@ -366,16 +366,21 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
     """
     from sklearn.model_selection import GroupKFold
 
-    n_invisible = int((data.effect_lsb < min_effect_lsb).sum())
+    invisible = data.effect_lsb < min_effect_lsb
+    n_invisible = int(invisible.sum())
+    left_out = class_counts(data.event[invisible]) if n_invisible else ""
     data = _subset(data, _usable(data) & (data.effect_lsb >= min_effect_lsb))
     X, y, pos, groups = data.X, data.event, data.position, data.groups
     if len(set(y)) < 2:
         raise ShotcheckError("the training set needs at least two event classes")
     if np.unique(y, return_counts=True)[1].min() < MIN_PAIRS_PER_CLASS:
         where = f"{data.source}: " if data.source else ""
+        why = (f"; {n_invisible} faulted pairs were left out because their effect is under {min_effect_lsb:g} "
+               f"recorder code(s) ({left_out}): if most of a class is, its faults are too small to see (for "
+               "discharges, the [faults] discharge_charge_C range of the winding family)") if n_invisible else ""
         raise ShotcheckError(f"{where}the training set has too few usable pairs ({class_counts(y)}); at least "
                              f"{MIN_PAIRS_PER_CLASS} of each class present are needed, and hundreds for a "
-                             "useful model (make more with `shotcheck synth --cases N`)")
+                             f"useful model (make more with `shotcheck synth --cases N`){why}")
     report: dict[str, Any] = {}
     none_threshold, none_threshold_chopped = 0.5, None
     chopped = chopped_test(X, FEATURE_NAMES)
@@ -942,6 +947,14 @@ def report_text(rep: dict[str, Any]) -> str:
     level = rep.get("confidence_level")
     lines.append(f"pairs evaluated: {rep.get('n_pairs')}"
                  + ("" if level is None else f" (in brackets: {100 * level:g} % confidence interval, count)"))
+    allf = rep.get("all_faults_including_invisible") or {}
+    if allf.get("n_pairs") is not None and rep.get("n_pairs") is not None and allf["n_pairs"] > rep["n_pairs"]:
+        # the faults no comparison of records can see are left out of the figures below: say how many,
+        # and what detection is with them
+        lines.append(f"left out: {allf['n_pairs'] - rep['n_pairs']} faulted pairs whose effect is under "
+                     f"{rep.get('min_effect_lsb', 1):g} recorder code(s) (noise-free); detection with them: "
+                     + ", ".join(f"{c} {'-' if v is None else f'{v:.3f}'}"
+                                 for c, v in (allf.get("detection_rate") or {}).items()))
 
     def _ci(ci: Sequence[float] | None, counts: Mapping[str, int] | None = None, unit: str = "") -> str:
         out = "" if ci is None else f"  [{ci[0]:.3f}, {ci[1]:.3f}]{unit}"
@@ -1027,7 +1040,10 @@ def plot_roc(rep: dict[str, Any], path: str | Path) -> None:
         raise ShotcheckError("the evaluation has no ROC curve (it needs both benign and faulted pairs)")
     fig, ax = plt.subplots(figsize=(5, 4.5))
     ax.plot(roc["fpr"], roc["tpr"], color="#0072B2", lw=2, label=f"AUC {rep.get('roc_auc', float('nan')):.3f}")
-    ax.plot([0, 1], [0, 1], color="#999999", ls=":", lw=1)
+    # chance: detection rate equal to the false-alarm rate, drawn through many points (two points joined
+    # by a straight line on the symlog axis would show 0.5 detection at 1 % false alarms)
+    chance = np.linspace(0.0, 1.0, 1001)
+    ax.plot(chance, chance, color="#999999", ls=":", lw=1, label="chance")
     ax.set_xscale("symlog", linthresh=0.01)
     ax.set_xlabel("false-alarm rate on benign pairs [1]")
     ax.set_ylabel("detection rate of faults [1]")

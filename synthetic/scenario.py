@@ -202,6 +202,21 @@ class Family:
         return float(rng.uniform(lo, hi))
 
 
+def _expected(spec: _Key) -> str:
+    """What a key takes, for a message: ``'a number or [low, high] within 2..400 (ladder sections)'``."""
+    if spec.kind == "range":
+        what = "a whole number" if spec.dtype is int else "a number"
+        text = f"{what} or [low, high] within {spec.low:g}..{spec.high:g}" + (" (drawn log-uniform)"
+                                                                            if spec.scale == "log" else "")
+    elif spec.kind == "fraction":
+        text = f"a fraction within {spec.low:g}..{spec.high:g}"
+    elif spec.kind == "choice":
+        text = "a list of choices"
+    else:
+        text = "a text"
+    return text + (f" ({spec.doc})" if spec.doc else "")
+
+
 def _check_value(path: str, table: str, key: str, spec: _Key, raw: Any) -> Any:
     where = f"{path}: [{table}] {key}"
 
@@ -304,16 +319,27 @@ def family_from_dict(doc: Mapping[str, Any], *, source: str = "<dict>") -> Famil
             if key in given:
                 values[f"{table}.{key}"] = _check_value(source, table, key, spec, given[key])
             elif spec.required:
-                raise ShotcheckError(f"{source}: [{table}] {key}: required key is missing ({spec.doc or spec.kind})")
+                if table not in doc:
+                    need = ", ".join(k for k, sp in keys.items() if sp.required)
+                    raise ShotcheckError(f"{source}: the table [{table}] is missing; it needs {need} "
+                                         f"(first: {key}, {_expected(spec)})")
+                raise ShotcheckError(f"{source}: [{table}] {key}: required key is missing; expected {_expected(spec)}")
             else:
                 values[f"{table}.{key}"] = spec.default
     w = values
-    if isinstance(w["faults.shorted_turns"], list) and isinstance(w["winding.turns_per_section"], list):
-        if w["faults.shorted_turns"][0] >= w["winding.turns_per_section"][1]:
-            raise ShotcheckError(
-                f"{source}: [faults] shorted_turns: at least {w['faults.shorted_turns'][0]} turns cannot be "
-                f"bridged inside sections of at most {w['winding.turns_per_section'][1]} turns"
-            )
+
+    def span(v: Any) -> tuple[float, float]:  # a fixed number or a [low, high] range
+        return (float(v[0]), float(v[-1])) if isinstance(v, list) else (float(v), float(v))
+
+    short_lo, turns_lo = span(w["faults.shorted_turns"])[0], span(w["winding.turns_per_section"])[0]
+    if short_lo >= turns_lo:
+        # a short of k turns inside one section needs k + 1 turns there; a section that cannot hold the
+        # smallest short drawn used to get a one-turn short instead, without a word
+        raise ShotcheckError(
+            f"{source}: [faults] shorted_turns: at least {short_lo:g} turns cannot be bridged inside sections of "
+            f"{turns_lo:g} turns ([winding] turns_per_section); the smallest short must be below the fewest turns "
+            "per section"
+        )
     return Family(name=values["family.name"], description=values["family.description"], values=values, source=source)
 
 

@@ -122,7 +122,11 @@ BASE = (DESIGN_DIR / "distribution.toml").read_text()
     [
         ("alpha = [4.0, 15.0]", "alpah = [4.0, 15.0]", r"\[winding\] alpah: unknown key.*Did you mean 'alpha'"),
         ("[recorder]", "[recorders]", r"unknown table \[recorders\].*Did you mean 'recorder'"),
-        ("alpha = [4.0, 15.0]", "", r"\[winding\] alpha: required key is missing"),
+        ("alpha = [4.0, 15.0]", "", r"\[winding\] alpha: required key is missing; expected a number or "
+                                    r"\[low, high\] within 0.3..60"),
+        # a short that the smallest sections cannot hold used to become a one-turn short without a word
+        ("shorted_turns = [1, 10]", "shorted_turns = [20, 30]", r"\[faults\] shorted_turns: at least 20 turns "
+                                                              r".*sections of 20 turns \(\[winding\] turns_per_section\)"),
         ("alpha = [4.0, 15.0]", "alpha = [15.0, 4.0]", r"\[winding\] alpha: low 15.0 is above high 4.0"),
         ("k0 = [0.4, 0.7]", "k0 = [0.4, 1.2]", r"\[winding\] k0: 1.2 is outside the allowed"),
         ("bits = [10, 12, 14]", "bits = [10, 12, 24]", r"\[recorder\] bits: 24 is outside"),
@@ -149,6 +153,15 @@ def test_missing_design_file_and_unknown_family(tmp_path):
         load_family(tmp_path / "nope.toml")
     with pytest.raises(ShotcheckError, match="unknown winding family 'powr'.*Did you mean 'power'"):
         sample_scenario(np.random.default_rng(0), "powr")
+
+
+def test_a_missing_table_is_named_with_what_it_needs(tmp_path):
+    p = tmp_path / "no_test.toml"
+    p.write_text('[family]\nname = "x"\n[winding]\nsections = 10\nturns_per_section = 12\n'
+                 "total_inductance_H = 5e-3\ntotal_ground_capacitance_F = 1e-9\nalpha = 8\nk0 = 0.5\n")
+    with pytest.raises(ShotcheckError, match=r"no_test.toml: the table \[test\] is missing; it needs bil_V, "
+                                             r"reduced_level \(first: bil_V, a number or \[low, high\] within"):
+        load_family(p)
 
 
 def test_minimal_family_uses_documented_defaults(tmp_path):

@@ -332,6 +332,11 @@ def test_too_small_a_training_set_is_an_input_error():
     with pytest.raises(ShotcheckError, match=r"too few usable pairs \(discharge_only \d, none 5, "
                                              r".*at least 6 of each class present"):
         train(_data(5, 0), cv_folds=3)
+    # the message says how many faults were left out as too small to see, and by class (a family whose
+    # discharges are all invisible gets the reason, not only 'make more pairs')
+    with pytest.raises(ShotcheckError, match=r"faulted pairs were left out because their effect is under 1 "
+                                             r"recorder code\(s\) \(.*\).*discharge_charge_C"):
+        train(_data(5, 0), cv_folds=3)
 
 
 def test_train_command_checks_its_options_before_the_work(tmp_path, capsys, monkeypatch):
@@ -469,3 +474,15 @@ def test_the_default_training_description_names_the_families(tmp_path):
         {"name": "nv25_hv", "source": "nv25_hv.toml", "values": {}}]}))
     assert _data_description(str(tmp_path)) == f"1200 pairs of the family nv25_hv (seed 7), data set {tmp_path}"
     assert _data_description(str(tmp_path / "missing")) == f"data set {tmp_path / 'missing'}"
+
+
+def test_the_evaluation_text_says_how_many_faults_it_left_out():
+    """`evaluate` printed 'pairs evaluated: 152' of 200 without saying that 48 faults were too small to
+    see and left out; the figure with them was only in the JSON."""
+    from detector.training import report_text
+
+    rep = {"n_pairs": 152, "min_effect_lsb": 1.0, "detection_rate": {"discharge_only": 0.5},
+           "all_faults_including_invisible": {"n_pairs": 200, "detection_rate": {"discharge_only": 0.02}}}
+    text = report_text(rep)
+    assert ("left out: 48 faulted pairs whose effect is under 1 recorder code(s) (noise-free); detection with "
+            "them: discharge_only 0.020") in text.splitlines()

@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 
 from detector.formats import read, write
+from detector.preprocess import shift_fourier
 from detector.record import Channel, Record
 from detector.units import QUANTITY_UNITS
 
@@ -132,10 +133,12 @@ def test_hand_written_1999_field_by_field(hand_1999: Path) -> None:
     assert [c.source_unit for c in r.channels] == ["V", "mA"]
     # Vdiv: secondary values (flag S) times primary/secondary = 1000/1: 0.01 * x V * 1000
     np.testing.assert_allclose(r.channels[0].samples, 0.01 * np.array(X1) * 1000.0, rtol=1e-15)
-    # Ishunt: primary (flag P): (0.2 x + 0.5) mA
-    np.testing.assert_allclose(r.channels[1].samples, (0.2 * np.array(X2) + 0.5) * 1e-3, rtol=1e-15)
-    # skew 2.5 us (7.4.4) is reported, not applied
+    # Ishunt: primary (flag P): (0.2 x + 0.5) mA, sampled 2.5 us after the time stamps (skew, 7.4.4): moved
+    # back onto them (the shift itself is checked on a sinusoid in test_channel_skew_is_applied)
+    np.testing.assert_allclose(r.channels[1].samples, shift_fourier((0.2 * np.array(X2) + 0.5) * 1e-3, 2.5e-6, 1e-7),
+                               rtol=1e-12, atol=1e-15)
     assert r.meta["channel_skew_s"] == {"Ishunt": pytest.approx(2.5e-6)}
+    assert any(step.startswith("channel skew applied: Ishunt 2.5 us") for step in r.processing)
     # 10 MS/s; first time stamp 5 ticks of timemult 0.1 us -> start at 0.5 us
     assert r.sample_interval_s == pytest.approx(1e-7, rel=1e-15)
     assert r.start_time_s == pytest.approx(0.5e-6, rel=1e-12)
@@ -153,7 +156,9 @@ def test_hand_written_1999_agrees_with_pypi_comtrade(hand_1999: Path) -> None:
     assert (ch[1].a, ch[1].b, ch[1].skew, ch[1].ccbm) == (0.2, 0.5, 2.5, "N")
     # the reference leaves secondary values unconverted: apply primary/secondary = 1000 ourselves
     np.testing.assert_allclose(np.asarray(ref.analog[0]) * 1000.0, r.channels[0].samples, rtol=1e-15)
-    np.testing.assert_allclose(np.asarray(ref.analog[1]) * 1e-3, r.channels[1].samples, rtol=1e-15)
+    # (the reference does not apply the skew: we do, with the same shift on its values)
+    np.testing.assert_allclose(shift_fourier(np.asarray(ref.analog[1]) * 1e-3, 2.5e-6, 1e-7), r.channels[1].samples,
+                               rtol=1e-12, atol=1e-15)
     # with a rate, the reference counts time from the first sample; we start at its time stamp
     np.testing.assert_allclose(np.asarray(ref.time), r.times() - r.start_time_s, atol=1e-15)
     assert np.asarray(ref.status[1]).tolist() == [int(k >= 9) for k in range(16)]
@@ -215,4 +220,26 @@ def test_hand_written_binary_row_layout(tmp_path: Path) -> None:
     (tmp_path / "b.dat").write_bytes(rows)
     r = read(tmp_path / "b.cfg")
     np.testing.assert_allclose(r.channels[0].samples, 10.0 * np.array(X1), rtol=1e-15)
-    np.testing.assert_allclose(r.channels[1].samples, (0.2 * np.array(X2) + 0.5) * 1e-3, rtol=1e-15)
+    np.testing.assert_allclose(r.channels[1].samples, shift_fourier((0.2 * np.array(X2) + 0.5) * 1e-3, 2.5e-6, 1e-7),
+                               rtol=1e-12, atol=1e-15)
+
+
+def test_channel_skew_is_applied(tmp_path: Path) -> None:
+    """A channel with skew (C37.111-1999 7.4.4, from memory: the time from the start of the sample period
+    to the channel's sampling instant) holds the signal that much later than the time stamps say. A
+    current sampled 40 ns late (skew 0.04 us at 100 MS/s) must come back as the signal at the stamps;
+    it used to be read as it was, a delay between voltage and current that the transfer function reads
+    as the winding's phase."""
+    n, fs, f0, skew = 400, 100e6, 1e6, 40e-9
+    t = np.arange(n) / fs
+    volts = np.round(1000.0 * np.sin(2 * np.pi * f0 * t))
+    amps = np.round(1000.0 * np.sin(2 * np.pi * f0 * (t + skew)))  # sampled 40 ns after each stamp
+    cfg = ("Invented Lab,Skew test,1999\n2,2A,0D\n1,U,,,V,1,0,0,-99999,99999,1,1,P\n"
+           "2,I,,,A,0.001,0,0.04,-99999,99999,1,1,P\n50\n1\n100000000,400\n01/01/2026,00:00:00.000000\n"
+           "01/01/2026,00:00:00.000000\nASCII\n1\n")
+    (tmp_path / "s.cfg").write_text(cfg)
+    (tmp_path / "s.dat").write_text("".join(f"{k + 1},{k * 10},{int(volts[k])},{int(amps[k])}\n" for k in range(n)))
+    r = read(tmp_path / "s.cfg")
+    inner = slice(40, n - 40)  # away from the ends, where the shift brings in the record's extension
+    np.testing.assert_allclose(r.current.samples[inner], np.sin(2 * np.pi * f0 * t)[inner], atol=2e-3)
+    np.testing.assert_allclose(r.voltage.samples, volts)  # a channel without skew is left as it is

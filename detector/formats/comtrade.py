@@ -41,6 +41,7 @@ secondary ratios", clause 7 configuration file, 7.4.8 "date/time stamps") was se
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import math
 import os
@@ -541,7 +542,7 @@ def _read(
         except RecordError as e:  # e.g. a huge multiplier overflowing to inf: name the file too
             raise RecordError(e.detail, path=sp, field=e.field) from None
         if an.skew_us:
-            skews[an.name] = an.skew_us * 1e-6
+            skews[chans[-1].name] = an.skew_us * 1e-6
     for key in (voltage_channel, current_channel):
         if isinstance(key, str) and key in skipped and key not in [c.name for c in chans]:
             raise RecordError(
@@ -593,6 +594,19 @@ def _read(
                 path=dat_path, field=f"sample {i + 2}",
             )
         rec = Record.from_times(ts * unit_s + offset, chans, meta=meta, source=sp)
+    if skews:
+        # a channel's skew (7.4.4: the time from the start of the sample period to its sampling instant)
+        # puts its samples that much later than the time stamps say: each skewed channel is moved back onto
+        # the common time base (a Fourier phase shift), so the voltage and the current line up in time
+        # (left as they were, a skew between them read as a phase of the winding's transfer function)
+        from ..preprocess import shift_fourier
+
+        interval_s = rec.sample_interval_s
+        rec = rec.replace(channels=tuple(
+            dataclasses.replace(c, samples=shift_fourier(c.samples, skews[c.name], interval_s)) if c.name in skews
+            else c
+            for c in rec.channels), step="channel skew applied: " + ", ".join(
+                f"{k} {v * 1e6:g} us" for k, v in skews.items()))
     if voltage_channel is not None or current_channel is not None:
         rec = rec.select(voltage_channel, current_channel)
     return rec

@@ -296,8 +296,11 @@ class Record:
             if c.quantity == "current":
                 return c
         names = ", ".join(f"{c.name!r} ({c.unit})" for c in self.channels)
+        ignored = self.meta.get("comtrade_ignored_channels") or {}
+        why = ("; ignored for their units (not a voltage or current unit: V, kV, A, mA, kA...): "
+               + ", ".join(f"{k!r} [{u}]" for k, u in ignored.items())) if ignored else ""
         raise RecordError(
-            f"no current channel among {names}; the comparison needs the neutral current",
+            f"no current channel among {names}{why}; the comparison needs the neutral current",
             path=self.source,
             field="channels",
         )

@@ -56,7 +56,11 @@ def parse_unit(text: str, *, path: str | None = None, field: str | None = None) 
     t = text.strip()
     if t in QUANTITY_UNITS:
         return QUANTITY_UNITS[t]
-    # tolerate case slips where they are unambiguous (kv, KV, ka) but never mV/MV
+    # tolerate case slips where they are unambiguous (kv, KV, ka) but never mV/MV, and not 'MA' or 'Ma',
+    # which SI reads as megaampere (folding them to mA would scale a current by 1e-9 of what was meant)
+    if t in ("MA", "Ma"):
+        raise RecordError(f"ambiguous unit {text!r}: MA is megaampere in SI; write mA for milliampere or kA",
+                          path=path, field=field)
     folded = {k.lower(): k for k in QUANTITY_UNITS if k not in ("mV", "MV")}
     if t.lower() in folded:
         return QUANTITY_UNITS[folded[t.lower()]]

@@ -99,3 +99,61 @@ def test_property_time_base_survives_any_rate(
     back = read(path)
     assert back.sample_interval_s == pytest.approx(dt, rel=1e-9 if not stamps else 1e-4)
     assert back.start_time_s == pytest.approx(rec.start_time_s, abs=1e-6 * dt)
+
+
+def _small_cfg(tmp_path: Path, *, date: str = "15/06/2026") -> Path:
+    cfg = ("Invented Lab,Rec 3,1999\n2,2A,0D\n1,U,,,kV,1,0,0,-99999,99999,1,1,P\n"
+           "2,I,,,A,1,0,0,-99999,99999,1,1,P\n50\n1\n10000000,20\n"
+           f"{date},10:00:00.000000\n{date},10:00:00.000000\nASCII\n1\n")
+    (tmp_path / "r.cfg").write_text(cfg)
+    return tmp_path / "r.cfg"
+
+
+def test_lines_ended_by_cr_alone_are_read(tmp_path: Path) -> None:
+    """Old recorders and spreadsheet exports end lines with CR alone; the rows used to run together
+    ('has 61 fields, expected 4', or a unit read as 'A\\r0')."""
+    p = _small_cfg(tmp_path)
+    (tmp_path / "r.dat").write_bytes("".join(f"{k + 1},{k * 100},{k},{-k}\r" for k in range(20)).encode())
+    r = read(p)
+    np.testing.assert_array_equal(r.voltage.samples, np.arange(20) * 1e3)
+    c = tmp_path / "cr.csv"
+    c.write_bytes("time_us,voltage_kV,current_A\r".encode() + "".join(
+        f"{k * 0.01:.2f},{k},{-k}\r" for k in range(20)).encode())
+    r = read(c)
+    np.testing.assert_array_equal(r.current.samples, -np.arange(20.0))
+
+
+def test_a_two_digit_year_is_not_read_as_year_24(tmp_path: Path) -> None:
+    """C37.111 dates are dd/mm/yyyy; '01/02/24' used to become the year 0024. It is not a date then."""
+    p = _small_cfg(tmp_path, date="01/02/24")
+    (tmp_path / "r.dat").write_text("".join(f"{k + 1},{k * 100},{k},{-k}\n" for k in range(20)))
+    assert "recorded_at" not in read(p).meta
+    assert read(_small_cfg(tmp_path)).meta["recorded_at"] == "2026-06-15T10:00:00"
+
+
+def test_ambiguous_or_foreign_unit_spellings(tmp_path: Path) -> None:
+    """'MA' is megaampere in SI: it used to be folded to milliampere. A tab-separated CSV with decimal
+    commas is told so. Greek mu in a time header is the micro sign, as in channel units."""
+    from detector.units import parse_unit
+
+    with pytest.raises(ShotcheckError, match="ambiguous unit 'MA'"):
+        parse_unit("MA")
+    assert parse_unit("ma") == ("current", 1e-3) and parse_unit("KV") == ("voltage", 1e3)
+    t = tmp_path / "tab.csv"
+    t.write_text("time_ms\tvoltage_kV\tcurrent_A\n0,0\t1\t0,5\n0,1\t2\t0,5\n")
+    with pytest.raises(ShotcheckError, match="decimal comma"):
+        read(t)
+    g = tmp_path / "mu.csv"
+    g.write_text("time [\u03bcs],voltage_kV,current_A\n" + "".join(f"{k * 0.01:.2f},{k},{k}\n" for k in range(20)))
+    assert read(g).sample_interval_s == pytest.approx(1e-8)
+
+
+def test_a_channel_ignored_for_its_unit_is_named_when_the_current_is_missing(tmp_path: Path) -> None:
+    """A current channel written with a unit the reader does not know ('AMP') was dropped, and the
+    error said only 'no current channel among U'."""
+    p = _small_cfg(tmp_path)
+    p.write_text(p.read_text().replace("2,I,,,A,", "2,I_N,,,AMP,"))
+    (tmp_path / "r.dat").write_text("".join(f"{k + 1},{k * 100},{k},{-k}\n" for k in range(20)))
+    with pytest.raises(ShotcheckError, match=r"no current channel among 'U' \(V\); ignored for their units .*"
+                                             r"'I_N' \[AMP\]"):
+        read(p).current

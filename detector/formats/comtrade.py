@@ -123,7 +123,7 @@ def _num(text: str, kind: type, path: str, field: str, what: str) -> Any:
 
 def _parse_datetime(line: str) -> dt.datetime | None:
     m = re.match(
-        r"\s*(\d{1,2})/(\d{1,2})/(\d{2,4})\s*,\s*(\d{1,2}):(\d{1,2}):(\d{1,2})(?:\.(\d{1,9}))?\s*$", line
+        r"\s*(\d{1,2})/(\d{1,2})/(\d{4})\s*,\s*(\d{1,2}):(\d{1,2}):(\d{1,2})(?:\.(\d{1,9}))?\s*$", line
     )
     if not m:
         return None
@@ -293,7 +293,8 @@ def _parse_dat(data: bytes, cfg: _Cfg, path: str) -> tuple[np.ndarray, np.ndarra
         if b"\x00" in data:
             raise FormatError("ASCII data file holds binary bytes (NUL); expected text lines", path=path)
         ncols = 2 + cfg.n_analog + cfg.n_digital
-        body = data.replace(b"\r", b"").rstrip(b"\n\x1a \t")
+        # CR LF, LF, or CR alone (old recorders) all end a line
+        body = data.replace(b"\r\n", b"\n").replace(b"\r", b"\n").rstrip(b"\n\x1a \t")
         if not body:
             raise FormatError(f"data file is empty; the configuration says {n} samples", path=path)
         if b",," in body or b",\n" in body or body.endswith(b","):
@@ -574,6 +575,8 @@ def _read(
     meta["comtrade_data_type"] = cfg.data_type
     if skews:
         meta["channel_skew_s"] = skews
+    if skipped:  # channels left out for their units: an error about a missing channel lists them
+        meta["comtrade_ignored_channels"] = dict(skipped)
 
     if cfg.nrates > 0:
         start = 0.0 if np.isnan(ts[0]) else ts[0] * unit_s

@@ -156,10 +156,10 @@ def parse_table(
     integer attempt first. The field count of every row is checked on the raw bytes (vectorised,
     ``searchsorted`` of separators against line ends) only when parsing fails or the width is wrong.
     """
-    data = data.replace(b"\r", b"").rstrip(b"\n\x1a \t")
+    data = data.replace(b"\r\n", b"\n").replace(b"\r", b"\n").rstrip(b"\n\x1a \t")  # CR LF, LF or CR alone
     if not data.strip():
         raise FormatError("no data rows", path=path, field=f"{what} {first_line}")
-    if sep == ";" and b"," in data:
+    if sep in (";", "\t") and b"," in data:
         row = data[: data.index(b",")].count(b"\n")
         raise FormatError(
             "decimal comma found; numbers must use a decimal point", path=path,
@@ -331,6 +331,8 @@ def _read(
         raise FormatError("not a text file (it holds NUL bytes); expected a CSV text file", path=p)
     if raw.startswith(b"\xef\xbb\xbf"):
         raw = raw[3:]
+    if b"\r" in raw[:4096] and b"\n" not in raw[:4096]:  # lines ended by CR alone (old spreadsheet exports)
+        raw = raw.replace(b"\r", b"\n")
     # metadata comments and header: scan the first lines only (bounded, not per sample)
     meta: dict[str, Any] = {}
     pos = 0
@@ -368,9 +370,12 @@ def _read(
     if len(cells) < 2:
         raise FormatError(
             f"header {header!r} has one column; expected time and at least a voltage column, "
-            "separated by ',' or ';'", path=p, field=f"line {header_line}",
+            "separated by ',', ';' or a tab (a metadata line above it starts with '#')", path=p,
+            field=f"line {header_line}",
         )
     tname, tunit = names_units[0]
+    if tunit is not None:
+        tunit = tunit.replace("\u03bc", "\u00b5")  # Greek mu for the micro sign, as the channel units take it
     if tname.lower() in _TIME_NAMES and tunit is None:
         raise FormatError(
             f"first column {cells[0].strip()!r} has no unit; expected time_s, time_ms, time_us or time_ns "

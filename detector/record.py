@@ -191,6 +191,7 @@ class Record:
         meta: Mapping[str, Any] | None = None,
         source: str | None = None,
         rtol: float = 1e-3,
+        atol: float = 0.0,
     ) -> Record:
         """Build a record from explicit sample times, checking that they are uniform.
 
@@ -205,7 +206,10 @@ class Record:
         source : str, optional
             File name for messages.
         rtol : float
-            Allowed deviation of any interval from the mean interval, relative.
+            Allowed deviation of any interval from the typical (median) interval, relative.
+        atol : float
+            Further allowed deviation [s]: the resolution the times were written with (a COMTRADE time
+            stamp counts whole ticks of ``timemult``, so 3 MS/s in 1 ns ticks alternates 333 and 334).
 
         Returns
         -------
@@ -227,12 +231,13 @@ class Record:
                 field="time",
             )
         dt = (t[-1] - t[0]) / (t.size - 1)
-        dev = np.abs(d - dt) > rtol * dt
+        typical = float(np.median(d))  # a single jump must not shift the yardstick onto the first interval
+        dev = np.abs(d - typical) > rtol * typical + atol
         if dev.any():
             i = int(np.argmax(dev))
             raise RecordError(
-                f"non-uniform sampling: interval before sample {i + 1} is {d[i]:.6g} s, mean interval is "
-                f"{dt:.6g} s; a uniform time base is required (resample first)",
+                f"non-uniform sampling: interval before sample {i + 2} (counting from 1) is {d[i]:.6g} s, the "
+                f"typical interval is {typical:.6g} s; a uniform time base is required (resample first)",
                 path=source,
                 field="time",
             )

@@ -117,7 +117,7 @@ def test_lines_ended_by_cr_alone_are_read(tmp_path: Path) -> None:
     r = read(p)
     np.testing.assert_array_equal(r.voltage.samples, np.arange(20) * 1e3)
     c = tmp_path / "cr.csv"
-    c.write_bytes("time_us,voltage_kV,current_A\r".encode() + "".join(
+    c.write_bytes(b"time_us,voltage_kV,current_A\r" + "".join(
         f"{k * 0.01:.2f},{k},{-k}\r" for k in range(20)).encode())
     r = read(c)
     np.testing.assert_array_equal(r.current.samples, -np.arange(20.0))
@@ -156,4 +156,22 @@ def test_a_channel_ignored_for_its_unit_is_named_when_the_current_is_missing(tmp
     (tmp_path / "r.dat").write_text("".join(f"{k + 1},{k * 100},{k},{-k}\n" for k in range(20)))
     with pytest.raises(ShotcheckError, match=r"no current channel among 'U' \(V\); ignored for their units .*"
                                              r"'I_N' \[AMP\]"):
-        read(p).current
+        _ = read(p).current
+
+
+def test_critical_time_stamps_rounded_to_whole_ticks_are_uniform(tmp_path: Path) -> None:
+    """nrates = 0: the time stamps are the time base, in whole ticks of timemult. 3 MS/s in 1 ns ticks
+    alternates 333 and 334 ns (0.3 % apart) and was refused as non-uniform sampling; a real jump is still
+    refused, and named at the sample where it happens (it used to name sample 1)."""
+    cfg = ("Invented Lab,Rec 3,1999\n2,2A,0D\n1,U,,,kV,1,0,0,-99999,99999,1,1,P\n"
+           "2,I,,,A,1,0,0,-99999,99999,1,1,P\n50\n0\n0,30\n01/01/2026,00:00:00.000000\n"
+           "01/01/2026,00:00:00.000000\nASCII\n0.001\n")
+    (tmp_path / "r.cfg").write_text(cfg)
+    stamps = np.round(np.arange(30) * 1e9 / 3e6).astype(int)  # ns ticks
+    (tmp_path / "r.dat").write_text("".join(f"{k + 1},{stamps[k]},{k},{-k}\n" for k in range(30)))
+    r = read(tmp_path / "r.cfg")
+    assert r.sample_interval_s == pytest.approx(1 / 3e6, rel=1e-3)
+    stamps[12:] += 100  # a gap of 100 ns after sample 12 (counting from 1)
+    (tmp_path / "r.dat").write_text("".join(f"{k + 1},{stamps[k]},{k},{-k}\n" for k in range(30)))
+    with pytest.raises(ShotcheckError, match=r"non-uniform sampling: interval before sample 13 \(counting from 1\)"):
+        read(tmp_path / "r.cfg")

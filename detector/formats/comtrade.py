@@ -596,7 +596,8 @@ def _read(
                 f"time stamps go backwards or repeat ({ts[i + 1]:.0f} after {ts[i]:.0f}); they must increase",
                 path=dat_path, field=f"sample {i + 2}",
             )
-        rec = Record.from_times(ts * unit_s + offset, chans, meta=meta, source=sp)
+        # whole ticks of timemult: a rate that is no whole number of ticks alternates by one tick
+        rec = Record.from_times(ts * unit_s + offset, chans, meta=meta, source=sp, atol=1.01 * unit_s)
     if skews:
         # a channel's skew (7.4.4: the time from the start of the sample period to its sampling instant)
         # puts its samples that much later than the time stamps say: each skewed channel is moved back onto

@@ -93,6 +93,10 @@ def waveshape_table(d: dict[str, Any], source: str) -> str:
         ("within tolerance", d.get("within_tolerance"), ""),
     ]
     lines = [f"Wave shape of {source} (IEC 60060-1)"]
+    rec = d.get("record") or {}
+    if rec:  # what was read: the channel evaluated, its unit in the file, the time base
+        lines.append(f"  voltage channel {rec.get('voltage_channel')!r} [{rec.get('source_unit')}], "
+                     f"{rec.get('sample_rate_Hz', 0) / 1e6:.6g} MS/s, {rec.get('n_samples')} samples")
     for name, value, unit in rows:
         if value is None and name not in ("test voltage", "within tolerance"):
             continue
@@ -130,6 +134,9 @@ def _cmd_waveshape(args: argparse.Namespace) -> int:
             spec = -spec
         shape = evaluate_waveshape(record, specified_test_voltage_V=spec, **kwargs)
     result = shape.to_dict()
+    v = record.voltage
+    result["record"] = {"voltage_channel": v.name, "source_unit": v.source_unit,
+                        "sample_rate_Hz": record.sampling_rate_Hz, "n_samples": record.n_samples}
     if args.json:
         print(dumps(result))
     else:

@@ -56,6 +56,9 @@ def test_waveshape_standard_lightning_impulse_json(tmp_path, capsys):
     assert set(d) >= {"kind", "peak_kV", "test_voltage_kV", "front_time_us", "time_to_half_us",
                       "overshoot_percent", "chopping_time_us", "within_tolerance", "warnings"}
     assert d["kind"] == "lightning_full"
+    # what was read, so that a user can check it (the channel taken as the voltage, its unit, the rate)
+    assert d["record"] == {"voltage_channel": rec.voltage.name, "source_unit": rec.voltage.source_unit,
+                           "sample_rate_Hz": pytest.approx(rec.sampling_rate_Hz), "n_samples": rec.n_samples}
     # T1 and T2 within 1 % of the nominal 1.2/50 us (IEC 60060-1:2010 standard lightning impulse)
     assert d["front_time_us"] == pytest.approx(T1_NOMINAL_US, rel=0.01)
     assert d["time_to_half_us"] == pytest.approx(T2_NOMINAL_US, rel=0.01)

@@ -175,3 +175,14 @@ def test_critical_time_stamps_rounded_to_whole_ticks_are_uniform(tmp_path: Path)
     (tmp_path / "r.dat").write_text("".join(f"{k + 1},{stamps[k]},{k},{-k}\n" for k in range(30)))
     with pytest.raises(ShotcheckError, match=r"non-uniform sampling: interval before sample 13 \(counting from 1\)"):
         read(tmp_path / "r.cfg")
+
+
+def test_a_blank_analog_field_is_named_as_such(tmp_path: Path) -> None:
+    """'4,3,,3' used to be reported as 'value nan in column 1 (U)': the file holds no 'nan', and the
+    field is the line's third."""
+    p = _small_cfg(tmp_path)
+    rows = [f"{k + 1},{k * 100},{k},{-k}" for k in range(20)]
+    rows[3] = "4,300,,-3"
+    (tmp_path / "r.dat").write_text("\n".join(rows) + "\n")
+    with pytest.raises(ShotcheckError, match=r"r.dat: line 4: empty field in column 3 \(U\)"):
+        read(p)

@@ -312,6 +312,12 @@ def _parse_dat(data: bytes, cfg: _Cfg, path: str) -> tuple[np.ndarray, np.ndarra
         ts = table[:, 1]
         x = table[:, 2 : 2 + cfg.n_analog]
         if not np.isfinite(x).all():
+            bad = ~np.isfinite(x)
+            r, c = np.unravel_index(int(np.argmax(bad)), x.shape)
+            if np.isnan(x[r, c]):  # a blank field (read as NaN above): a missing value, not a number 'nan'
+                raise FormatError(f"empty field in column {c + 3} ({names[c]}): an analog value is missing; "
+                                  "every analog field of a compared record needs a value",
+                                  path=path, field=f"line {int(r) + 1}")
             check_finite_table(x, path=path, first_line=1, column_names=names)
         missing = x == _MISSING_INT["ASCII"]
         _check_missing(missing, names, path, "line")

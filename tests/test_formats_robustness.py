@@ -186,3 +186,17 @@ def test_a_blank_analog_field_is_named_as_such(tmp_path: Path) -> None:
     (tmp_path / "r.dat").write_text("\n".join(rows) + "\n")
     with pytest.raises(ShotcheckError, match=r"r.dat: line 4: empty field in column 3 \(U\)"):
         read(p)
+
+
+def test_absurd_rate_or_timemult_names_the_cfg_field(tmp_path: Path) -> None:
+    """A rate of 1e-320 Hz and a timemult of 1e308 used to be refused as 'sample_interval_s ... inf' and
+    'start_time_s ... inf', names the .cfg does not have."""
+    p = _small_cfg(tmp_path)
+    (tmp_path / "r.dat").write_text("".join(f"{k + 1},{k * 100 + 5},{k},{-k}\n" for k in range(20)))
+    good = p.read_text()
+    p.write_text(good.replace("10000000,20", "1e-320,20"))
+    with pytest.raises(ShotcheckError, match=r"r.cfg: line 7: bad sample-rate line: samp = '1e-320'"):
+        read(p)
+    p.write_text(good.replace("ASCII\n1\n", "ASCII\n1e308\n"))
+    with pytest.raises(ShotcheckError, match=r"r.cfg: timemult: the first time stamp 5 times timemult"):
+        read(p)

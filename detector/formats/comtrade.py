@@ -234,6 +234,9 @@ def _parse_cfg(text: str, path: str) -> _Cfg:
             )
         samp = _num(f[0], float, path, where, "a sample rate in Hz (samp)")
         end = _num(f[1], int, path, where, "a last sample number (endsamp)")
+        if nrates > 0 and samp > 0 and not math.isfinite(1.0 / samp):
+            raise FormatError(f"bad sample-rate line: samp = {f[0].strip()!r} Hz gives no finite sample interval; "
+                              "expected the rate in Hz (e.g. 100000000)", path=path, field=where)
         if nrates > 0 and samp <= 0:
             raise FormatError(
                 f"bad sample-rate line: samp = {f[0].strip()!r}; expected a rate > 0 Hz (nrates = {nrates})",
@@ -586,6 +589,13 @@ def _read(
 
     if cfg.nrates > 0:
         start = 0.0 if np.isnan(ts[0]) else ts[0] * unit_s
+        interval = 1.0 / cfg.rates[0][0]
+        if not abs(start + offset) * 2.0**-52 < 1e-3 * interval:  # also NaN and inf
+            # a start so late that float times no longer resolve the sample interval: not a time in seconds
+            raise FormatError(f"the first time stamp {ts[0]:.0f} times timemult {cfg.timemult:g} us gives a start "
+                              f"time of {start + offset:.3g} s, too large to resolve the {interval:.3g} s sample "
+                              "interval; expected timemult in microseconds (e.g. 1 or 0.001)", path=sp,
+                              field="timemult")
         rec = Record(start + offset, 1.0 / cfg.rates[0][0], tuple(chans), meta=meta, source=sp)
     else:
         bad = np.isnan(ts)

@@ -200,3 +200,16 @@ def test_absurd_rate_or_timemult_names_the_cfg_field(tmp_path: Path) -> None:
     p.write_text(good.replace("ASCII\n1\n", "ASCII\n1e308\n"))
     with pytest.raises(ShotcheckError, match=r"r.cfg: timemult: the first time stamp 5 times timemult"):
         read(p)
+
+
+def test_a_csv_time_column_printed_with_few_decimals_is_uniform(tmp_path: Path) -> None:
+    """3 MS/s written in us with three decimals (0.000, 0.333, 0.667, ...) alternates by one unit of the
+    last digit and was refused as non-uniform sampling; a real jump still is."""
+    times = np.round(np.arange(40) / 3.0, 3)
+    c = tmp_path / "t.csv"
+    c.write_text("time_us,voltage_kV,current_A\n" + "".join(f"{t:.3f},{k},{-k}\n" for k, t in enumerate(times)))
+    assert read(c).sample_interval_s == pytest.approx(1e-6 / 3.0, rel=1e-4)
+    times[20:] += 0.1
+    c.write_text("time_us,voltage_kV,current_A\n" + "".join(f"{t:.3f},{k},{-k}\n" for k, t in enumerate(times)))
+    with pytest.raises(ShotcheckError, match="non-uniform sampling"):
+        read(c)

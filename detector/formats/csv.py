@@ -428,10 +428,25 @@ def _read(
     except RecordError as e:  # e.g. 1e308 kV overflowing to inf: name the file too
         raise RecordError(e.detail, path=p, field=e.field) from None
     meta["source_format"] = "CSV"
-    rec = Record.from_times(t, chans, meta=meta, source=p)
+    # a time column printed with few decimals (0.333 us steps written 0.000, 0.333, 0.667) alternates by
+    # one unit of its last digit: that much is the resolution it was written with, not non-uniform sampling
+    rec = Record.from_times(t, chans, meta=meta, source=p,
+                            atol=1.01 * _printed_resolution(table[:, 0]) * time_factor)
     if voltage_channel is not None or current_channel is not None:
         rec = rec.select(voltage_channel, current_channel)
     return rec
+
+
+def _printed_resolution(values: np.ndarray) -> float:
+    """The step of the last decimal the values were printed with (``1e-3`` for 0.333, 0.667, ...), or 0
+    when they hold more than 12 decimals (full float precision: no rounding to allow for)."""
+    v = np.asarray(values, dtype=np.float64)
+    scale = max(float(np.max(np.abs(v))), 1.0)
+    for k in range(13):  # a few decimal places, not samples
+        x = v * 10.0**k
+        if np.all(np.abs(x - np.round(x)) <= 1e-6 * max(1.0, scale * 10.0**k * 1e-9)):
+            return 10.0**-k
+    return 0.0
 
 
 def unit_info(text: str, *, path: str | None = None, field: str | None = None) -> tuple[str, float, str]:

@@ -126,7 +126,15 @@ def _cmd_waveshape(args: argparse.Namespace) -> int:
     kwargs: dict[str, Any] = {}
     if args.kind is not None:
         kwargs["kind"] = args.kind
-    shape = evaluate_waveshape(record, **kwargs)
+    voltages = [c.name for c in record.channels if c.quantity == "voltage"]
+    try:
+        shape = evaluate_waveshape(record, **kwargs)
+    except ShotcheckError as exc:
+        if len(voltages) < 2 or args.voltage_channel is not None:
+            raise
+        # the first voltage channel was taken: with several, it may be the wrong one (a chopping gap's)
+        raise ShotcheckError(f"{exc} (the voltage channel evaluated was {voltages[0]!r}, the first of "
+                             f"{', '.join(repr(v) for v in voltages)}; --voltage-channel chooses another)") from None
     if args.test_voltage_kV is not None:
         # the option is a magnitude; a negative value insists on that polarity
         spec = args.test_voltage_kV * 1e3

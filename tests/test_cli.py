@@ -197,3 +197,19 @@ def test_verdict_text_names_the_model_it_came_from():
     text = verdict_text(d, "r.cfg", "t.cfg")
     assert ("  model: lab/nv25.skops, trained on 1200 pairs of the family nv25_hv (seed 7), data set data/nv25, "
             "created 2026-12-05T10:00:00+00:00") in text.splitlines()
+
+
+def test_waveshape_on_the_wrong_of_several_voltage_channels_says_which_it_took(tmp_path, capsys):
+    """A chopping gap's voltage listed before the divider's was evaluated without a word; the error now
+    names the channel taken and the option that chooses another."""
+    import dataclasses
+
+    rec, _, _ = _lightning_record()
+    gap = dataclasses.replace(rec.voltage, name="U_gap", samples=np.zeros(rec.n_samples))
+    two = rec.replace(channels=(gap, *rec.channels))
+    path = tmp_path / "two.csv"
+    write(two, path)
+    assert main(["waveshape", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert "the voltage channel evaluated was 'U_gap', the first of 'U_gap', " in err and "--voltage-channel" in err
+    assert main(["waveshape", str(path), "--voltage-channel", rec.voltage.name]) == 0

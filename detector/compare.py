@@ -39,6 +39,7 @@ from .features import (
 from .model import EVENT_CLASSES, ShotModel, chopped_test, load_model, missing_model_error
 from .record import Record
 from .scoring import DECISIVE, exceeded
+from .sequence import REDUCED_KINDS
 from .waveshape import WaveShape
 
 __all__ = ["Verdict", "compare", "default_model", "DEFAULT_MODEL_PATH"]
@@ -220,9 +221,9 @@ def check_levels(ref_test_voltage_V: float, test_test_voltage_V: float, *, refer
         path=test or "test record", field="voltage")
 
 
-#: Declared shot kinds of a full-level shot and of a reduced-level one (``meta['shot_kind']``).
+#: Declared shot kinds of a full-level shot (``meta['shot_kind']``; the reduced ones are
+#: :data:`detector.sequence.REDUCED_KINDS`).
 FULL_LEVEL_KINDS = ("full", "chopped")
-REDUCED_LEVEL_KINDS = ("reduced", "reduced_chopped")
 
 
 def declared_level(record: Record) -> tuple[str | None, str]:
@@ -248,7 +249,7 @@ def declared_level(record: Record) -> tuple[str | None, str]:
     except (TypeError, ValueError):
         pct = None
     said = []
-    if kind in FULL_LEVEL_KINDS or kind in REDUCED_LEVEL_KINDS:
+    if kind in FULL_LEVEL_KINDS or kind in REDUCED_KINDS:
         said.append(("full" if kind in FULL_LEVEL_KINDS else "reduced", f"meta.shot_kind {kind!r}"))
     if pct is not None and math.isfinite(pct) and (pct >= 100.0 or 0.0 < pct < 80.0):
         # between 80 and 100 % a shot may be either (the sequence's full-level shots start at 80 %)

@@ -237,7 +237,7 @@ class FaultClassifier(ClassifierMixin, BaseEstimator):
                 )
                 base.fit(_fittable(X[idx_fit]), y[idx_fit], sample_weight=None if sw is None else sw[idx_fit])
                 member = CalibratedClassifierCV(FrozenEstimator(base), method=self.calibration)
-                member.fit(_fittable(X[idx_cal]), y[idx_cal], sample_weight=None if sw is None else sw[idx_cal])
+                member.fit(X[idx_cal], y[idx_cal], sample_weight=None if sw is None else sw[idx_cal])
             else:  # too few samples of a class to hold some out: keep the raw probabilities
                 member = base.fit(_fittable(X), y, sample_weight=sample_weight)
             self.members_.append(member)

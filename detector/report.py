@@ -402,8 +402,7 @@ def _basis_section(verdict: Verdict) -> str:
     p = a.pair
     td = a.time_domain
     off = float(p.test_times_s[0] - p.times_s[0])
-    ut_r, ut_t = abs(p.ref_test_voltage_V), abs(p.test_test_voltage_V)
-    ratio = 100.0 * ut_r / ut_t if ut_t else math.nan
+    ut_t = abs(p.test_test_voltage_V)
 
     def t_test_us(t_pair_s: float | None) -> str:
         return "—" if t_pair_s is None else _num((t_pair_s + off) * 1e6, ".3f", "µs")
@@ -411,7 +410,7 @@ def _basis_section(verdict: Verdict) -> str:
     rows = [
         ("Test voltage values (reference / test)", f"{_num(p.ref_test_voltage_V * 1e-3, '.4g')} kV / "
                                                    f"{_num(p.test_test_voltage_V * 1e-3, '.4g')} kV "
-                                                   f"(reference at {_num(ratio, '.1f')} % of the test level)"),
+                                                   f"(reference {_level_text(verdict)})"),
         ("Common sample interval", f"{_num(p.sample_interval_s * 1e9, '.4g', 'ns')} "
                                    f"({_num(1e-6 / p.sample_interval_s, '.4g', 'MS/s')}), {p.n_samples} samples"),
         ("Test front delay removed", _num(p.delay_s * 1e9 + 0.0, ".3f", "ns").replace("-0.000", "0.000")),

@@ -297,7 +297,8 @@ def _parse_dat(data: bytes, cfg: _Cfg, path: str) -> tuple[np.ndarray, np.ndarra
             raise FormatError("ASCII data file holds binary bytes (NUL); expected text lines", path=path)
         ncols = 2 + cfg.n_analog + cfg.n_digital
         # CR LF, LF, or CR alone (old recorders) all end a line
-        body = data.replace(b"\r\n", b"\n").replace(b"\r", b"\n").rstrip(b"\n\x1a \t")
+        body = data.replace(b"\r\n", b"\n").replace(b"\r", b"\n") if b"\r" in data else data
+        body = body.rstrip(b"\n\x1a \t")
         if not body:
             raise FormatError(f"data file is empty; the configuration says {n} samples", path=path)
         if b",," in body or b",\n" in body or body.endswith(b","):

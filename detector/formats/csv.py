@@ -156,7 +156,9 @@ def parse_table(
     integer attempt first. The field count of every row is checked on the raw bytes (vectorised,
     ``searchsorted`` of separators against line ends) only when parsing fails or the width is wrong.
     """
-    data = data.replace(b"\r\n", b"\n").replace(b"\r", b"\n").rstrip(b"\n\x1a \t")  # CR LF, LF or CR alone
+    if b"\r" in data:  # CR LF, or CR alone: both end a line
+        data = data.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
+    data = data.rstrip(b"\n\x1a \t")
     if not data.strip():
         raise FormatError("no data rows", path=path, field=f"{what} {first_line}")
     if sep in (";", "\t") and b"," in data:

@@ -22,6 +22,7 @@ import numpy as np
 from .._validation import ShotcheckError
 from ..record import Channel, Record
 from ..sequence import (
+    REDUCED_KINDS,
     check_declared,
     check_level,
     level_warning,
@@ -583,7 +584,6 @@ class Engine:
             raise InputError(f"{rec.name}: no current channel; a shot needs the neutral current",
                              field="record.channels", code="invalid_record")
         from ..compare import declared_level
-        from ..sequence import REDUCED_KINDS
 
         said_level, said = declared_level(record)
         posted_level = "reduced" if kind in REDUCED_KINDS else "full"

@@ -618,7 +618,13 @@ def transfer_figure(verdict: Verdict) -> Figure:
             continue
         for ax in (ax_m, ax_d):
             ax.axvspan(b0, b1, color=_BAND_SHADES[k % len(_BAND_SHADES)], alpha=0.13, linewidth=0)
-        ax_m.annotate(f"{name}\n{format_frequency(b.f_low_Hz)}–{format_frequency(b.f_high_Hz)}",
+        # the label names what is drawn and computed (the part of the band both records resolve) and,
+        # when that is less, the standard's whole band: an axis starting at 30 kHz under a label that
+        # reads "1 kHz" would misstate it
+        label = f"{name}\n{format_frequency(b0)}–{format_frequency(b1)}"
+        if format_frequency(b0) != format_frequency(b.f_low_Hz) or format_frequency(b1) != format_frequency(b.f_high_Hz):
+            label += f"\n(of {format_frequency(b.f_low_Hz)}–{format_frequency(b.f_high_Hz)})"
+        ax_m.annotate(label,
                       (math.sqrt(b0 * b1), 1.0), xycoords=("data", "axes fraction"), xytext=(0, -4),
                       textcoords="offset points", ha="center", va="top", fontsize=_FONT_PT - 1.5,
                       color="#333333")

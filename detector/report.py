@@ -81,7 +81,8 @@ FIGURE_CAPTIONS: Mapping[str, str] = {
     "transfer": "Transfer function |I(f)/V(f)| of each record (same exponential window on both signals), "
                 "drawn over the frequencies both records resolve (voltage and current spectra above their "
                 "noise), the points the indices are computed over, and the difference test minus "
-                "reference. Shaded: the comparison bands. It does not depend on the applied wave shape, "
+                "reference. Shaded: the comparison bands (DL/T 911-2016), each labelled with the part the records "
+                "resolve and, where that is less, the whole band. It does not depend on the applied wave shape, "
                 "so a chopped test shot can be compared with a full reference.",
     "wavelet": "Stationary wavelet difference of the neutral currents, each level in units of its own "
                "noise (median absolute deviation); the line on the colour bar is the significance "

@@ -465,6 +465,21 @@ def test_transfer_bands_are_the_comparison_bands(fault_figures, fault_case):
     for name in bands:
         assert name in texts
     assert "100 kHz–600 kHz" in texts
+    # each label's first line after the name is the part drawn: it lies on the axis (a label reading
+    # "1 kHz" over an axis that starts at tens of kHz misstated what the indices were computed over)
+    lo, hi = ax_m.get_xlim()
+    scale = {"Hz": 1.0, "kHz": 1e3, "MHz": 1e6}
+    for t in ax_m.texts:
+        lines = t.get_text().split("\n")
+        if lines[0] not in bands:
+            continue
+        a, b = lines[1].split("–")
+        f0 = float(a.split()[0]) * scale[a.split()[1]]
+        f1 = float(b.split()[0]) * scale[b.split()[1]]
+        assert lo * 0.99 <= f0 < f1 <= hi * 1.01, (t.get_text(), lo, hi)
+        full = bands[lines[0]]
+        if f0 > 1.01 * full.f_low_Hz or f1 < 0.99 * full.f_high_Hz:
+            assert lines[2] == f"(of {format_frequency(full.f_low_Hz)}–{format_frequency(full.f_high_Hz)})"
 
 
 def test_wavelet_levels_are_labelled_with_dyadic_bands(fault_figures, fault_case):

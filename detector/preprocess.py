@@ -400,8 +400,12 @@ def _resample_channels(rec: Record, up: int, down: int, method: str) -> list[np.
         else:
             k = np.arange(x.size)
             line = x[0] + (x[-1] - x[0]) * k / (x.size - 1)
-            y = signal.resample(x - line, n_new)
-            kn = np.arange(n_new) * (down / up)
+            # resample() spaces its output len(in)/len(out) input samples apart: padded to a multiple of
+            # ``down`` (zeros continue the detrended record, which ends at 0), that is exactly down/up
+            n_pad = -(-x.size // down) * down
+            r = np.concatenate((x - line, np.zeros(n_pad - x.size)))
+            y = signal.resample(r, n_pad // down * up)[:n_new]
+            kn = np.arange(y.size) * (down / up)
             y = y + x[0] + (x[-1] - x[0]) * kn / (x.size - 1)
         out.append(np.ascontiguousarray(y[:n_new], dtype=np.float64))
     return out
@@ -432,7 +436,14 @@ def common_grid(reference: Record, test: Record, *, method: str = "polyphase") -
     The interval ratio is approximated by a fraction ``up/down`` with ``down <= 1000``; the resampled
     record is given exactly the coarser interval, which stretches its time base by the approximation
     error (below 1e-6 for any ratio, zero for the usual 50/100/200/250 MS/s rates). A stretch of more than
-    0.05 sample over the record is reported.
+    0.05 sample over the record is reported, of more than half a sample refused. Where the rates differ by
+    more than 100 times, the finer record is first decimated by an integer factor (with the same method),
+    which leaves a ratio of about 1:10 for the fraction.
+
+    Raises
+    ------
+    ShotcheckError
+        If the method is unknown or no fraction keeps the time base within half a sample.
     """
     check_option("method", method, RESAMPLE_METHODS)
     dt_r, dt_t = reference.sample_interval_s, test.sample_interval_s
@@ -442,6 +453,17 @@ def common_grid(reference: Record, test: Record, *, method: str = "polyphase") -
         return GridPair(reference, test, ())
     fine, coarse, which = (reference, test, "reference") if dt_r < dt_t else (test, reference, "test")
     dt_c = coarse.sample_interval_s
+    dt_f = fine.sample_interval_s
+    steps = ""
+    q = int(round(dt_c / dt_f)) // 10
+    if dt_c / dt_f > MAX_RESAMPLE_DENOMINATOR / 10 and q >= 2:
+        # a ratio beyond 1:100 (20 GS/s against 50 MS/s, say): first by an integer factor, which leaves
+        # about 1:10 for the fraction (a denominator <= 1000 could not approximate 1:4000 at all)
+        chans = _resample_channels(fine, 1, q, method)
+        fine = fine.replace(sample_interval_s=dt_f * q,
+                            channels=tuple(c.with_samples(y) for c, y in zip(fine.channels, chans, strict=True)),
+                            step=f"resample(up=1, down={q}, method={method!r})")
+        steps = f"1/{q} then "
     ratio = Fraction(fine.sample_interval_s / dt_c).limit_denominator(MAX_RESAMPLE_DENOMINATOR)
     up, down = ratio.numerator, ratio.denominator
     chans = _resample_channels(fine, up, down, method)
@@ -454,8 +476,15 @@ def common_grid(reference: Record, test: Record, *, method: str = "polyphase") -
     warnings = [
         f"sample rates differ ({reference.sampling_rate_Hz / 1e6:.6g} MS/s reference, "
         f"{test.sampling_rate_Hz / 1e6:.6g} MS/s test): the {which} record was resampled to "
-        f"{1e-6 / dt_c:.6g} MS/s ({method}, ratio {up}/{down})"
+        f"{1e-6 / dt_c:.6g} MS/s ({method}, ratio {steps}{up}/{down})"
     ]
+    if stretch * new.n_samples > 0.5:
+        raise ShotcheckError(
+            f"sample rates {reference.sampling_rate_Hz / 1e6:.6g} MS/s (reference) and "
+            f"{test.sampling_rate_Hz / 1e6:.6g} MS/s (test): no resampling ratio with a denominator of at "
+            f"most {MAX_RESAMPLE_DENOMINATOR} keeps the {which} time base within half a sample "
+            f"(ratio {up}/{down} stretches it by {stretch * new.n_samples:.2g} samples); "
+            "resample one record to the other's rate before comparing")
     if stretch * new.n_samples > 0.05:
         warnings.append(
             f"resampling ratio {up}/{down} approximates the interval ratio with a relative error of "

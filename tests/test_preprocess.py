@@ -150,6 +150,57 @@ def test_common_grid_resamples_the_finer_record(method):
     assert np.sqrt(np.mean((got[100:-100] - exact[100:-100]) ** 2)) < 1e-4 * 500e3
 
 
+@pytest.mark.parametrize("n_fine", [50001, 50003])
+def test_fourier_resampling_keeps_the_time_base_for_any_length(n_fine):
+    # scipy.signal.resample spaces its output len(in)/len(out) input samples apart; for a length that is
+    # no multiple of the ratio's denominator that is not 5/2, and a time base labelled 10 ns drifted by
+    # half a sample towards the end. Against the exact samples at 100 MS/s, including the last 2000.
+    def tone_record(rate_Hz, n):
+        t = np.arange(n) / rate_Hz
+        x = np.sin(2 * np.pi * 3e6 * t)  # 3 MHz, well inside both bands
+        return Record(0.0, 1.0 / rate_Hz, (Channel("U", "voltage", 1e5 * x), Channel("I", "current", x)))
+
+    ref = tone_record(100e6, 20000)
+    g = common_grid(ref, tone_record(250e6, n_fine), method="fourier")
+    exact = ref.current.samples
+    got = g.test.current.samples[: exact.size]
+    # a drift of half a sample at 10 ns is 0.09 rad of the tone; the ends ring (the tone is not periodic
+    # in the record)
+    np.testing.assert_allclose(got[-4000:-400], exact[-4000:-400], atol=1e-3)
+
+
+@pytest.mark.parametrize("method", ["polyphase", "fourier"])
+@pytest.mark.parametrize("fine_rate_Hz", [7.5e9, 20e9])
+def test_common_grid_rates_more_than_a_thousand_times_apart(method, fine_rate_Hz):
+    # 5 MS/s and 20 GS/s are both accepted record rates; a fraction with a denominator of at most 1000
+    # cannot approximate 1:4000 (it gave up = 0 and a traceback, or 1/1000 and a time base stretched by
+    # half). The finer record is first decimated by an integer factor.
+    coarse = make_record(rate_Hz=5e6, n=600, pretrigger_s=10e-6)
+    n = int(round(60e-6 * fine_rate_Hz))
+    fine = make_record(rate_Hz=fine_rate_Hz, n=n, pretrigger_s=10e-6)
+    g = common_grid(coarse, fine, method=method)
+    assert g.test.sample_interval_s == coarse.sample_interval_s
+    assert g.test.n_samples * g.test.sample_interval_s == pytest.approx(60e-6, abs=0.21e-6)
+    exact = coarse.voltage.samples[: g.test.n_samples]
+    got = g.test.voltage.samples[: exact.size]
+    # the front of 1.2 us is 6 samples at 5 MS/s, its kink at the start is not band limited: away from
+    # it (and from the ends) the anti-alias filters change the wave by under 1 %
+    keep = np.abs(np.arange(exact.size) * 0.2e-6 - 10e-6) > 2e-6
+    keep[:5] = keep[-10:] = False
+    np.testing.assert_allclose(got[keep], exact[keep], atol=1e-2 * 500e3)
+    assert "resampled to 5 MS/s" in g.warnings[0]
+
+
+def test_common_grid_refuses_a_ratio_it_cannot_approximate(monkeypatch):
+    import detector.preprocess as pp
+
+    # with denominators of at most 3, 100/137 can only be read as 2/3: a time base stretched by some
+    # 1800 samples, refused rather than compared
+    monkeypatch.setattr(pp, "MAX_RESAMPLE_DENOMINATOR", 3)
+    with pytest.raises(ShotcheckError, match=r"137 MS/s \(test\).*half a sample.*resample one record"):
+        common_grid(make_record(rate_Hz=100e6, n=20000), make_record(rate_Hz=137e6, n=27400))
+
+
 def test_common_grid_same_rate_and_bad_method():
     a, b = make_record(n=1000), make_record(n=1200)
     g = common_grid(a, b)

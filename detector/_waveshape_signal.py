@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 from scipy import ndimage, signal
 
-from ._stats import median1d
+from ._stats import code_grid, median1d
 from ._validation import NoImpulseError, RecordError, check_finite_1d
 from .record import MIN_SAMPLES
 
@@ -107,7 +107,8 @@ def _smooth(u: np.ndarray, window: int) -> np.ndarray:
 
 
 def _quantisation_step(v: np.ndarray) -> float | None:
-    """Step of the sample values if they are quantised, else None (continuous values)."""
+    """Step of the sample values if they are quantised, else None (continuous values); values near a
+    grid but not on it count (:func:`detector._stats.code_grid`)."""
     vals = np.unique(v)
     if vals.size < 3:
         return None
@@ -123,7 +124,9 @@ def _quantisation_step(v: np.ndarray) -> float | None:
     # fractional parts spread over 0-0.5)
     if np.median(frac) < 0.02 and np.percentile(frac, 90) < 0.1:
         return q
-    return None
+    # values scattered by a small fraction of a code about a grid (converted, stored as 32-bit floats)
+    near, exact = code_grid(v)
+    return near if near > 0.0 and not exact else None
 
 
 def _prepare(times_s: Any, voltage_V: Any, source: str | None) -> _Prepared:

@@ -31,7 +31,6 @@ from .metrics.compensated import (
     core_term,
     driven_fraction,
     multiscale_z,
-    quantisation_step,
 )
 from .metrics.oscillation import OscillationScan, damped_oscillation_scan
 from .metrics.timedomain import TimeDomainMetrics, time_domain_metrics, voltage_steps
@@ -47,7 +46,7 @@ from .metrics.wavelet import (
     level_half_supports,
     wavelet_difference,
 )
-from .preprocess import AlignedPair, align_pair
+from .preprocess import AlignedPair, align_pair, snap_to_codes
 from .record import Record
 from .waveshape import MAX_SAMPLE_RATE_HZ, WaveShape, evaluate_waveshape
 
@@ -284,11 +283,18 @@ FRONT_WINDOW_S = (-0.3e-6, 1.0e-6)
 CHOP_WINDOW_S = (-0.3e-6, 1.0e-6)
 
 
-def _quantisation_floor(reference: Record, test: Record, pair: AlignedPair) -> float:
+def _channel_step(rec: Record, steps: tuple[float, ...], channel: Any) -> float:
+    """The code step of ``channel`` (a channel of ``rec``) from ``steps`` (one per channel of ``rec``)."""
+    return next(q for c, q in zip(rec.channels, steps, strict=True) if c is channel)
+
+
+def _quantisation_floor(reference: Record, test: Record, pair: AlignedPair,
+                        steps: tuple[tuple[float, ...], tuple[float, ...]]) -> float:
     """Non-averaging noise of the compensated difference from the code steps of both records [A/V].
 
     Each current's step, and each voltage's step times the current-to-voltage ratio, in per unit of its
     record's test voltage; uniform quantisation error has the standard deviation step/sqrt(12).
+    ``steps`` holds each record's channel steps (:func:`detector.preprocess.snap_to_codes`).
 
     That is the bound for a record without noise. With noise at the quantiser's input (dither) the
     part of the error that does not average away shrinks fast: its mean for a given input keeps the
@@ -302,9 +308,9 @@ def _quantisation_floor(reference: Record, test: Record, pair: AlignedPair) -> f
     ut_r, ut_t = pair.ref_test_voltage_V, pair.test_test_voltage_V
     ratio = float(np.max(np.abs(pair.ref_current_pu)))  # current per unit of voltage [A/V]
     terms = []
-    for rec, ut in ((reference, ut_r), (test, ut_t)):
-        qi = quantisation_step(rec.current.samples) / ut
-        qv = quantisation_step(rec.voltage.samples) / ut * ratio
+    for rec, ut, st in ((reference, ut_r, steps[0]), (test, ut_t, steps[1])):
+        qi = _channel_step(rec, st, rec.current) / ut
+        qv = _channel_step(rec, st, rec.voltage) / ut * ratio
         terms += [qi, qv]
     return float(np.sqrt(np.sum(np.square(terms)) / 12.0))
 
@@ -663,6 +669,9 @@ def extract(
     clock = _Clock(timings)
     check_comparable(reference, "reference")
     check_comparable(test, "test")
+    # values scattered about their code grid read as the codes they stand for (snap_to_codes)
+    reference, ref_steps = snap_to_codes(reference)
+    test, test_steps = snap_to_codes(test)
     notes: list[str] = []
     ws_r = reference_shape if reference_shape is not None else _shape_or_none(reference, "reference", notes)
     ws_t = test_shape if test_shape is not None else _shape_or_none(test, "test", notes)
@@ -695,7 +704,7 @@ def extract(
     notes += [f"interference at {f / 1e3:.0f} kHz on the {owner} record's voltage channel ({100.0 * amp:.2g} % of "
               "its test voltage) was taken out before the current was predicted"
               for f, amp, owner in cd.voltage_tones if amp >= 0.1 * v_max]
-    floor = _quantisation_floor(reference, test, pair)
+    floor = _quantisation_floor(reference, test, pair, (ref_steps, test_steps))
     chop_s = None
     if td.test_collapse is not None:
         chop_s = td.test_collapse.time_s

@@ -36,7 +36,7 @@ from scipy import signal
 from scipy.interpolate import CubicSpline
 
 from ._fourier import phasor
-from ._stats import median1d
+from ._stats import code_grid, median1d
 from ._validation import RecordError, ShotcheckError, check_option, check_range
 from .record import Record
 
@@ -61,6 +61,7 @@ __all__ = [
     "remove_baseline",
     "robust_peak_V",
     "shift_fourier",
+    "snap_to_codes",
 ]
 
 #: Median absolute deviation of a standard normal variable: sigma = MAD / 0.6745 (Donoho & Johnstone,
@@ -299,7 +300,8 @@ def clipping_warning(samples: np.ndarray, label: str, *, unit: str = "", quantit
     (common practice) if the channel also spends more than ``CLIP_NEAR_RATIO`` times as many samples at
     that value as within the two quantisation steps below it. The second condition keeps the flat
     crest of a coarsely quantised record (8 bits), which spends comparable times at its top code and
-    the codes just below, from counting.
+    the codes just below, from counting. Values scattered about their code grid repeat no value: put
+    them back on it first (:func:`snap_to_codes`, as :func:`detector.features.extract` does).
     """
     return _clip_message(_clip_runs(samples), label, unit, quantity)
 
@@ -377,6 +379,50 @@ def clipped_near(mask: np.ndarray, start_time_s: float, sample_interval_s: float
     lo = np.clip(np.ceil((t - guard_s - start_time_s) / sample_interval_s - 1e-9), 0, m.size).astype(np.int64)
     hi = np.clip(np.floor((t + guard_s - start_time_s) / sample_interval_s + 1e-9) + 1, 0, m.size).astype(np.int64)
     return c[np.maximum(hi, lo)] - c[lo] > 0
+
+
+# --------------------------------------------------------------------------------------------------
+# code grid
+# --------------------------------------------------------------------------------------------------
+def snap_to_codes(record: Record) -> tuple[Record, tuple[float, ...]]:
+    """Put samples that sit near their recorder's code grid, but not on it, back on it.
+
+    A record converted to other units, stored as 32-bit floats or printed with a few digits and read
+    again holds each code as values a small fraction of a code apart. Nothing measured is in that
+    scatter, but the comparison reads the code grid (the median absolute deviation of a pre-trigger on
+    one code is zero, a clipped channel repeats its limit, the quantisation floor is a step): values
+    0.001 code off their grid turned benign pairs into confident fault verdicts. Each such channel is
+    rounded to its grid (step and offset from the channel's own values, :func:`detector._stats.code_grid`),
+    which moves no sample by more than a tenth of a code; channels exactly on a grid, and float
+    channels on none, are returned as they are.
+
+    Parameters
+    ----------
+    record : Record
+        A recorded impulse (any channels).
+
+    Returns
+    -------
+    (record, steps)
+        The record (the same object when nothing moved; otherwise with a ``snap_to_codes`` history
+        entry naming the channels and steps), and each channel's code step [its unit], 0 for a channel
+        on no grid.
+    """
+    steps: list[float] = []
+    chans = list(record.channels)
+    moved: list[str] = []
+    for k, c in enumerate(record.channels):
+        x = c.samples
+        q, exact = code_grid(x)
+        steps.append(q)
+        if q > 0.0 and not exact:
+            # the grid's offset: the circular mean of the samples' positions within a code
+            off = q * float(np.angle(np.mean(np.exp(2j * np.pi * x / q)))) / (2.0 * np.pi)
+            chans[k] = c.with_samples(off + q * np.round((x - off) / q))
+            moved.append(f"{c.name} {q:.6g}")
+    if not moved:
+        return record, tuple(steps)
+    return record.replace(channels=tuple(chans), step=f"snap_to_codes({', '.join(moved)})"), tuple(steps)
 
 
 # --------------------------------------------------------------------------------------------------

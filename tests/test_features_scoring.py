@@ -299,3 +299,30 @@ def test_inputs_at_the_instant_are_window_means_and_follow_the_fault_along_the_w
     for fault in ("to_ground", "turn_to_turn"):
         r = [ratio[fault, s] for s in (3, 20, 36)]
         assert r[0] < r[1] < r[2], (fault, r)
+
+
+def test_values_a_fraction_of_a_code_off_their_grid_change_nothing():
+    """A record converted to other units or stored as 32-bit floats holds its codes as values a little
+    apart. A benign pair whose pre-triggers sit on one code (noise of 0.2 code: a median absolute
+    deviation of zero) read 0.001 code off the grid gave a confident fault verdict: the tiny scatter
+    became the noise scale. The comparison now reads such values as the codes they stand for."""
+    from detection_cases import make_case
+
+    from detector.compare import compare
+    from detector.metrics.compensated import quantisation_step
+
+    rec = {"noise_lsb": 0.2}
+    c = make_case(fault="none", reference_recorder=rec, test_recorder=rec)
+    rng = np.random.default_rng(7)
+
+    def scattered(r):
+        return r.replace(channels=tuple(
+            ch.with_samples(ch.samples + rng.uniform(-1e-3, 1e-3, ch.samples.size) * quantisation_step(ch.samples))
+            for ch in r.channels))
+
+    a = extract(c.reference, c.test)
+    assert a.pair.ref_noise.current_mad_pu == 0.0  # the case this is about
+    b = extract(scattered(c.reference), scattered(c.test))
+    np.testing.assert_allclose(b.features, a.features, rtol=1e-3, atol=1e-3)
+    v = compare(scattered(c.reference), scattered(c.test))
+    assert not v.fault_indicated and v.event == "none"

@@ -201,6 +201,28 @@ def test_common_grid_refuses_a_ratio_it_cannot_approximate(monkeypatch):
         common_grid(make_record(rate_Hz=100e6, n=20000), make_record(rate_Hz=137e6, n=27400))
 
 
+def test_snap_to_codes_puts_scattered_values_back_on_their_grid():
+    from detector.preprocess import snap_to_codes
+
+    rng = np.random.default_rng(3)
+    rec = make_record(noise_v=2e-4, noise_i=2e-4)
+    steps = (2 * 600e3 / 2**12, 2 * 80.0 / 2**12)  # 12-bit codes of a 600 kV and an 80 A range
+    coded = rec.replace(channels=tuple(c.with_samples(np.round(c.samples / q) * q)
+                                       for c, q in zip(rec.channels, steps, strict=True)))
+    same, got = snap_to_codes(coded)
+    assert same is coded and got == pytest.approx(steps, rel=1e-9)  # on the grid: untouched
+    scattered = coded.replace(channels=tuple(c.with_samples(c.samples * (1 + 1e-9) + rng.uniform(-1e-3, 1e-3, c.samples.size) * q)
+                                             for c, q in zip(coded.channels, steps, strict=True)))
+    snapped, got = snap_to_codes(scattered)
+    assert got == pytest.approx(steps, rel=1e-6)
+    for a, b, q in zip(snapped.channels, coded.channels, steps, strict=True):
+        np.testing.assert_allclose(a.samples, b.samples, rtol=0, atol=2e-3 * q)
+        assert np.unique(np.round(a.samples / q, 6)).size == np.unique(b.samples).size  # one value per code
+    assert snapped.processing[-1].startswith("snap_to_codes(U ")
+    floats, got = snap_to_codes(rec)  # simulated floats: no grid, untouched
+    assert floats is rec and got == (0.0, 0.0)
+
+
 def test_common_grid_same_rate_and_bad_method():
     a, b = make_record(n=1000), make_record(n=1200)
     g = common_grid(a, b)

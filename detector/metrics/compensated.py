@@ -48,7 +48,7 @@ import scipy.fft as sfft
 from scipy.ndimage import uniform_filter1d
 
 from .._fourier import phasor
-from .._stats import median1d
+from .._stats import median1d, quantisation_step
 from .._validation import ShotcheckError, check_range
 
 __all__ = ["CompensatedDifference", "compensated_difference", "core_term", "driven_fraction", "multiscale_z",
@@ -424,28 +424,6 @@ def driven_fraction(cd: CompensatedDifference, test_voltage: np.ndarray, dt: flo
     coef = coef / scale
     peak = float(np.max(np.abs(cd.difference[idx]))) or 1.0
     return max(0.0, 1.0 - res / tot), 100.0 * float(coef[0] * q[idx[-1]]) / peak
-
-
-def quantisation_step(samples: np.ndarray) -> float:
-    """Code step of recorded samples [their unit]: the typical spacing of their distinct values.
-
-    Returns 0 for samples that are not quantised (e.g. simulated floats). The median of the smaller
-    half of the spacings between distinct values is the step when the samples sit on a grid (most
-    neighbours differ by one code).
-    """
-    u = np.unique(np.asarray(samples, dtype=np.float64))
-    if u.size < 16:
-        return 0.0
-    d = np.diff(u)
-    span = float(u[-1] - u[0])
-    if span <= 0:
-        return 0.0
-    small = np.sort(d)[: max(1, d.size // 2)]
-    q = float(np.median(small))
-    # on a grid most spacings are whole multiples of q; a float record has spacings of every size
-    if q <= 0 or q < 1e-9 * span or np.mean(np.abs(d / q - np.round(d / q)) < 0.05) < 0.8:
-        return 0.0
-    return q
 
 
 def multiscale_z(cd: CompensatedDifference, *, start: int, scales: tuple[int, ...] = SCALES,

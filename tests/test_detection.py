@@ -394,6 +394,10 @@ def _with(record, *, voltage=None, current=None, dt=None):
     # kilovolts in a column labelled V: the per-unit current a thousand times larger read as a fault
     ("kV read as V", r"t\.csv: voltage: the test voltage value is .* 0\.00167 times the reference's \(.*r\.csv\); "
                      r".*not comparable as given"),
+    # milliamperes in a column labelled A: no fault raises the per-unit neutral current twentyfold (the
+    # held-out pairs reach 2.6); it was a confident 'to ground' verdict
+    ("mA read as A", r"t\.csv: current: the test record's neutral current, scaled to the reference's level, "
+                     r"peaks 1000 times as high .*r\.csv.*shunt ratio"),
     ("the reference given twice", r"t\.csv: samples: the reference and the test record hold the same samples "
                                   r"\(.*r\.csv and .*t\.csv\): one shot was given twice"),
 ])
@@ -426,6 +430,8 @@ def test_records_no_comparison_can_use_exit_2_naming_file_and_field(tmp_path, ca
         test = _with(test, voltage=test.voltage.samples * 1e6)
     elif what == "kV read as V":
         test = _with(test, voltage=test.voltage.samples * 1e-3)
+    elif what == "mA read as A":
+        test = _with(test, current=test.current.samples * 1e3)
     elif what == "the reference given twice":
         test = c.reference
     else:
@@ -547,3 +553,14 @@ def test_report_from_the_cli(tmp_path, capsys):
     assert main(["compare", str(r), str(t), "--report", str(tmp_path / "x.html")]) == 1
     html = (tmp_path / "x.html").read_text(encoding="utf-8")
     assert "turn" in html and "<img" in html
+
+
+def test_a_test_current_a_thousand_times_too_small_is_warned_about():
+    """Amperes under a mA header in the test record: the per-unit current peaks at a thousandth of the
+    reference's. A breakdown to ground near the line end can take the neutral current away (held-out
+    pairs down to 0.005), so it is not refused, but the verdict says to check the units."""
+    c = case()
+    v = compare(c.reference, _with(c.test, current=c.test.current.samples * 1e-3))
+    assert any("peaks at only 0.001 of the reference's" in w and "shunt ratio" in w for w in v.warnings), v.warnings
+    assert not any("shunt ratio" in w for w in compare(c.reference, c.test).warnings)
+

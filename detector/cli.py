@@ -24,6 +24,17 @@ __all__ = ["main", "build_parser"]
 PROG = "shotcheck"
 
 
+
+def _positive_int(text: str) -> int:
+    """argparse type: a whole number >= 1."""
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if v < 1:
+        raise argparse.ArgumentTypeError(f"expected a whole number >= 1, got {text!r}")
+    return v
+
 def _json_default(obj: Any) -> Any:
     """Turn numpy scalars and arrays into JSON values; NaN/inf become null."""
     import numpy as np
@@ -223,7 +234,14 @@ def _data_description(directory: str) -> str:
 
 def _cmd_train(args: argparse.Namespace) -> int:
     from .model import save_model
-    from .training import class_counts, extract_dataset, report_text, save_report, train
+    from .training import (
+        class_counts,
+        extract_dataset,
+        report_text,
+        save_report,
+        threshold_notes,
+        train,
+    )
 
     # the options and the output folder first: not after minutes of work
     check_range("--false-alarm-rate", args.false_alarm_rate, 0.0, 0.5, low_inclusive=False)
@@ -244,6 +262,8 @@ def _cmd_train(args: argparse.Namespace) -> int:
                              f"{type(exc).__name__}: {exc}; a class with few usable pairs is the usual cause "
                              "(see the counts; make more pairs of it)") from None
     save_model(model, args.out)
+    for note in threshold_notes(data, args.false_alarm_rate):
+        print(f"note: {note}")
     print(f"cross-validated figures (grouped by winding design, {args.cv_folds} folds):")
     n_left = model.card.get("n_invisible_faults_left_out")
     if n_left:
@@ -384,7 +404,9 @@ def build_parser() -> argparse.ArgumentParser:
     _add_synth(sub)
 
     def _data_options(q: argparse.ArgumentParser) -> None:
-        q.add_argument("--workers", type=int, default=None, metavar="K", help="processes for feature extraction")
+        q.add_argument("--workers", type=_positive_int, default=None, metavar="K",
+                       help="processes for reading the records (features, and the inputs at the fault instant); "
+                       "default: all cores")
         q.add_argument("--no-progress", action="store_true", help="no progress bar")
 
     p = sub.add_parser("train", help="train the classifier and locator on a synthetic data set",
@@ -430,7 +452,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--turns", default="1,2,3,5,10", help="comma-separated numbers of shorted turns")
     p.add_argument("--cases", type=int, default=40, help="pairs per number of turns (half healthy)")
     p.add_argument("--seed", type=int, default=11, help="root seed")
-    p.add_argument("--workers", type=int, default=None, metavar="K", help="processes")
+    p.add_argument("--workers", type=_positive_int, default=None, metavar="K", help="processes (default: all cores)")
     p.add_argument("--json-out", default=None, metavar="PATH", help="write the result as JSON")
     p.set_defaults(func=_cmd_sensitivity)
 

@@ -85,6 +85,8 @@ class LabelledFeatures:
         which are measured on the records: :func:`instant_inputs_of_dataset`).
     at_instant : numpy.ndarray or None, shape (n, len(INSTANT_INPUT_NAMES))
         Those inputs at a model's instants, where :func:`evaluate` has measured them.
+    workers : int or None
+        Processes for measuring those inputs (as the features were extracted with; None: all cores).
     """
 
     X: np.ndarray
@@ -99,6 +101,7 @@ class LabelledFeatures:
     front_us: np.ndarray | None = None
     source: str | None = None
     at_instant: np.ndarray | None = None
+    workers: int | None = None
 
     def __post_init__(self) -> None:
         n = len(self.event)
@@ -243,6 +246,11 @@ def extract_dataset(directory: str | Path, *, workers: int | None = None, progre
     Returns
     -------
     LabelledFeatures
+
+    Raises
+    ------
+    ShotcheckError
+        The folder is not a data set, or not one pair of it could be compared (names the first reason).
     """
     from synthetic.dataset import read_labels
 
@@ -301,8 +309,12 @@ def extract_dataset(directory: str | Path, *, workers: int | None = None, progre
     position = np.array([float(r["position"]) if r["position"] not in ("", None) else math.nan for r in labels])
     ft = np.array([float(r["fault_time_us"]) if r["fault_time_us"] not in ("", None) else math.nan for r in labels])
     groups = np.array([f"{r.get('family', '')}-{r.get('seed', '')}-{r['case_id']}" for r in labels])
+    if failed and len(failed) == len(ids):
+        cid, msg = failed[0]
+        raise ShotcheckError(f"{d}: no pair of the data set could be compared ({len(ids)} pairs); the first, case "
+                             f"{cid}: {msg}; check the winding family's recorder and record settings")
     out = LabelledFeatures(X, event, position, ft, onset, groups, labels, failed,
-                           np.array([_effect(r) for r in labels]), front, source=str(d))
+                           np.array([_effect(r) for r in labels]), front, source=str(d), workers=workers)
     return out
 
 
@@ -322,8 +334,8 @@ def _usable(data: LabelledFeatures) -> np.ndarray:
 def _subset(data: LabelledFeatures, keep: np.ndarray) -> LabelledFeatures:
     labels = [r for r, k in zip(data.labels, keep, strict=True) if k] if data.labels else []
     rows = {f.name: getattr(data, f.name)[keep] for f in dataclasses.fields(data)
-            if f.name not in ("labels", "failed", "source") and getattr(data, f.name) is not None}
-    return LabelledFeatures(labels=labels, failed=data.failed, source=data.source, **rows)
+            if f.name not in ("labels", "failed", "source", "workers") and getattr(data, f.name) is not None}
+    return LabelledFeatures(labels=labels, failed=data.failed, source=data.source, workers=data.workers, **rows)
 
 
 #: Faults whose noise-free effect stays below this many recorder codes are invisible to any comparison
@@ -416,7 +428,7 @@ def train(data: LabelledFeatures, *, false_alarm_rate_target: float = 0.01, seed
                 cols[tr, 2 + k] = nk
         cols[~located] = np.nan  # only located faults train the locator or enter its figures
         ids = np.array([int(r["case_id"]) for r in data.labels])
-        at = instant_inputs_of_dataset(data.source, ids, cols, progress=False)
+        at = instant_inputs_of_dataset(data.source, ids, cols, workers=data.workers, progress=False)
 
     def locator_rows(rows: np.ndarray, timer_: InstantRegressor, instants: np.ndarray, col: int) -> np.ndarray:
         Xl = timer_.timing_inputs(X[rows], instants)
@@ -658,7 +670,7 @@ def evaluate(model: ShotModel, data: LabelledFeatures, *, min_effect_lsb: float 
         inst = _instant(full.X, model.timer)
         inst[~((full.event != "none") & np.isfinite(full.position))] = np.nan  # only faults are located
         ids = np.array([int(r["case_id"]) for r in full.labels])
-        full.at_instant = instant_inputs_of_dataset(full.source, ids, inst, progress=False)[:, 0]
+        full.at_instant = instant_inputs_of_dataset(full.source, ids, inst, workers=full.workers, progress=False)[:, 0]
     rep = _evaluate_subset(model, _subset(full, full.effect_lsb >= min_effect_lsb))
     rep["min_effect_lsb"] = min_effect_lsb
     rep["n_failed_extractions"] = n_failed
@@ -897,6 +909,42 @@ def kind_operating_points(p_none: np.ndarray, benign: np.ndarray, chopped: np.nd
         return operating_point(p_none[benign], false_alarm_rate), None
     return (operating_point(p_none[benign & ~chopped], false_alarm_rate),
             operating_point(p_none[benign & chopped], false_alarm_rate))
+
+
+def threshold_notes(data: LabelledFeatures, false_alarm_rate: float) -> list[str]:
+    """What the data set's benign pairs allow the decision thresholds to be, in words for the trainer.
+
+    Parameters
+    ----------
+    data : LabelledFeatures
+        The training set.
+    false_alarm_rate : float
+        Target share of benign pairs indicated as faults [1].
+
+    Returns
+    -------
+    list of str
+        A note when the benign pairs are too few for the threshold to rest on
+        :data:`MIN_FALSE_ALARMS_PER_KIND` false alarms' worth, and when either kind of test shot (full,
+        chopped) has too few for a threshold of its own (then one serves both).
+    """
+    ok = _usable(data)
+    benign = (data.event == "none") & ok
+    chopped = chopped_test(data.X, FEATURE_NAMES)
+    need = int(math.ceil(MIN_FALSE_ALARMS_PER_KIND / max(false_alarm_rate, 1e-12)))
+    n_b, n_c = int(benign.sum()), int((benign & chopped).sum())
+    notes = []
+    if n_b < need:
+        k = int(math.floor(false_alarm_rate * n_b))
+        notes.append(f"only {n_b} benign pairs: at a false-alarm rate of {false_alarm_rate:g} the threshold rests on "
+                     f"{k} of them below it (the {'lowest' if k == 0 else f'{k + 1}th lowest'} P(none)), so the rate a "
+                     f"lab will see is uncertain; make at least {need} benign pairs ({4 * need} pairs in all, the "
+                     "classes are balanced)")
+    if min(n_c, n_b - n_c) < need:
+        notes.append(f"one threshold for full and chopped test shots: each kind needs {need} benign pairs for its own "
+                     f"(this set has {n_b - n_c} full and {n_c} chopped); chopped test shots then raise more false "
+                     "alarms than the target rate and full ones fewer")
+    return notes
 
 
 def _predict(model: ShotModel, X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

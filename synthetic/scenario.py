@@ -340,7 +340,22 @@ def family_from_dict(doc: Mapping[str, Any], *, source: str = "<dict>") -> Famil
             f"{turns_lo:g} turns ([winding] turns_per_section); the smallest short must be below the fewest turns "
             "per section"
         )
+    rec_lo, pre_hi = span(w["test.record_length_s"])[0], span(w["recorder.pretrigger_s"])[1]
+    if rec_lo < pre_hi + MIN_RECORD_AFTER_PRETRIGGER_S:
+        # a record of the pre-trigger (or less) holds no impulse: such a family gave data sets in which
+        # every pair failed to compare, or faults listed after the records' end, without a word
+        raise ShotcheckError(
+            f"{source}: [test] record_length_s: the shortest record ({1e6 * rec_lo:g} us) must last at least "
+            f"{1e6 * MIN_RECORD_AFTER_PRETRIGGER_S:g} us beyond the longest pre-trigger ({1e6 * pre_hi:g} us, "
+            "[recorder] pretrigger_s) to hold the impulse's front, crest and a part of its tail (records of "
+            "impulse tests usually last 100-200 us)"
+        )
     return Family(name=values["family.name"], description=values["family.description"], values=values, source=source)
+
+
+#: Shortest part of a record after its pre-trigger [s]: the impulse's front and crest and some of its tail
+#: (common practice: records last two to four times the time to half-value).
+MIN_RECORD_AFTER_PRETRIGGER_S = 20e-6
 
 
 def bundled_families() -> dict[str, Family]:

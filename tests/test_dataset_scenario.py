@@ -128,6 +128,11 @@ BASE = (DESIGN_DIR / "distribution.toml").read_text()
         ("shorted_turns = [1, 10]", "shorted_turns = [20, 30]", r"\[faults\] shorted_turns: at least 20 turns "
                                                               r".*sections of 20 turns \(\[winding\] turns_per_section\)"),
         ("alpha = [4.0, 15.0]", "alpha = [15.0, 4.0]", r"\[winding\] alpha: low 15.0 is above high 4.0"),
+        # records that end before the impulse (a 20 us record after a 30 us pre-trigger, or 10 us in all)
+        # gave data sets of pure noise with faults listed after their end, or no pair that compared
+        ("record_length_s = 100e-6", "record_length_s = 25e-6", r"\[test\] record_length_s: the shortest record "
+                                                              r"\(25 us\) must last at least 20 us beyond the longest "
+                                                              r"pre-trigger \(10 us"),
         ("k0 = [0.4, 0.7]", "k0 = [0.4, 1.2]", r"\[winding\] k0: 1.2 is outside the allowed"),
         ("bits = [10, 12, 14]", "bits = [10, 12, 24]", r"\[recorder\] bits: 24 is outside"),
         ("sections = [16, 40]", "sections = [16.5, 40]", r"\[winding\] sections: expected a whole number"),

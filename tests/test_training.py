@@ -486,3 +486,37 @@ def test_the_evaluation_text_says_how_many_faults_it_left_out():
     text = report_text(rep)
     assert ("left out: 48 faulted pairs whose effect is under 1 recorder code(s) (noise-free); detection with "
             "them: discharge_only 0.020") in text.splitlines()
+
+
+def test_threshold_notes_say_when_the_benign_pairs_are_too_few():
+    from detector.training import MIN_FALSE_ALARMS_PER_KIND, threshold_notes
+
+    # 75 benign pairs cannot set a 1 % threshold on ten false alarms' worth; nor can either kind of test
+    # shot get its own (a retrain for one design of a few hundred pairs met both without a word)
+    data = _data(75, 0)
+    chopped = _told_chopped(data)
+    notes = threshold_notes(data, 0.01)
+    assert len(notes) == 2
+    assert notes[0].startswith("only 75 benign pairs") and "the lowest P(none)" in notes[0]
+    assert f"make at least {int(MIN_FALSE_ALARMS_PER_KIND / 0.01)} benign pairs" in notes[0]
+    n_c = int((chopped & (data.event == "none")).sum())
+    assert f"this set has {75 - n_c} full and {n_c} chopped" in notes[1]
+    # enough of both kinds: nothing to say
+    big = _data(3000, 1)  # a third full test shots, two thirds chopped
+    _told_chopped(big)
+    assert threshold_notes(big, 0.01) == []
+
+
+def test_a_data_set_of_which_no_pair_compares_says_why(tmp_path, monkeypatch):
+    """Every pair failing to compare (records of a family too short to hold the impulse, say) used to
+    surface later as a message about the locator's inputs; the first pair's reason is named now."""
+    from synthetic.dataset import generate
+
+    from detector import training
+
+    generate(3, tmp_path / "d", seed=5, workers=1, progress=False)
+    monkeypatch.setattr(training, "_one", lambda ref, test: (np.full(len(FEATURE_NAMES), np.nan), (np.nan, np.nan),
+                                                             "time: the record spans 9.99 us"))
+    with pytest.raises(ShotcheckError, match=r"d: no pair of the data set could be compared \(3 pairs\); the first, "
+                                             r"case 0: time: the record spans 9\.99 us"):
+        training.extract_dataset(tmp_path / "d", workers=1, progress=False, use_cache=False)

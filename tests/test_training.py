@@ -510,9 +510,8 @@ def test_threshold_notes_say_when_the_benign_pairs_are_too_few():
 def test_a_data_set_of_which_no_pair_compares_says_why(tmp_path, monkeypatch):
     """Every pair failing to compare (records of a family too short to hold the impulse, say) used to
     surface later as a message about the locator's inputs; the first pair's reason is named now."""
-    from synthetic.dataset import generate
-
     from detector import training
+    from synthetic.dataset import generate
 
     generate(3, tmp_path / "d", seed=5, workers=1, progress=False)
     monkeypatch.setattr(training, "_one", lambda ref, test: (np.full(len(FEATURE_NAMES), np.nan), (np.nan, np.nan),

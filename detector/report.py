@@ -274,6 +274,8 @@ def _verdict_section(verdict: Verdict, fig_uri: str | None) -> str:
         ("Decision", _decision_text(probs, model)),
         ("Thresholds exceeded", f"{len(d['exceeded'])}"),
         ("Model", _esc(model.get("name", "unknown"))
+         + (f" — {_esc(model['source'])}" if model.get("source") else "")
+         + (f"; trained on {_esc(model['training_data'])}" if model.get("training_data") else "")
          + f' <span class="na">(feature schema {_esc(model.get("schema_version", "?"))}'
          + (f", created {_esc(model['created'])}" if model.get("created") else "") + ")</span>"),
     ]
@@ -418,9 +420,9 @@ def _basis_section(verdict: Verdict) -> str:
         ("Noise σ of the differences", f"voltage {_volts(td.voltage_sigma_pu * ut_t)}, "
                                        f"current {_num(td.current_sigma_pu * ut_t, '.3g', 'A')} (at the test level)"),
         ("Compared until", t_test_us(td.compared_until_s) + " (test record time)"),
-        ("Onset of a difference (voltage / current)",
+        ("First crossing of the plain differences (voltage / current)",
          f"{t_test_us(td.voltage_onset_s)} / {t_test_us(td.current_onset_s)} (test record time, "
-         f"{K_SIGMA:g} σ for 50 ns)"),
+         f"{K_SIGMA:g} σ for 50 ns; one of the onsets the fault instant above is chosen from, not the instant)"),
         ("Transfer function, whole band", f"ρ = {_num(a.transfer.overall.rho, '.4f')}, "
                                           f"RMS difference {_num(a.transfer.overall.rms_dB, '.2f', 'dB')}, "
                                           f"largest resonance shift {_num(100 * a.transfer.max_peak_shift_rel, '.2f', '%')}"),

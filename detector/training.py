@@ -634,6 +634,10 @@ def _figures(data: LabelledFeatures, proba: np.ndarray, pred: np.ndarray, loc: n
         fpr, tpr, _ = roc_curve(~none, score)
         rep["roc_auc"] = float(roc_auc_score(~none, score))
         rep["roc"] = {"fpr": fpr.tolist(), "tpr": tpr.tolist()}
+        # where the model's own decision lies (its thresholds per kind of test shot and the decisive
+        # features; the curve sweeps one threshold on P(none) over all pairs)
+        rep["operating_point"] = {"false_alarm_rate": float(alarms.mean()),
+                                  "detection_rate": float(((y != "none") & (pred != "none")).sum() / (~none).sum())}
     return rep
 
 
@@ -1074,7 +1078,9 @@ def plot_roc(rep: dict[str, Any], path: str | Path) -> None:
     Parameters
     ----------
     rep : dict
-        From :func:`evaluate` (needs ``roc``).
+        From :func:`evaluate` (needs ``roc``; ``operating_point``, where given, is marked: the false-alarm
+        and detection rates of the model's own decisions, which the curve of one threshold on P(none)
+        need not pass through).
     path : str or Path
         PNG file.
     """
@@ -1092,6 +1098,10 @@ def plot_roc(rep: dict[str, Any], path: str | Path) -> None:
     # by a straight line on the symlog axis would show 0.5 detection at 1 % false alarms)
     chance = np.linspace(0.0, 1.0, 1001)
     ax.plot(chance, chance, color="#999999", ls=":", lw=1, label="chance")
+    op = rep.get("operating_point")
+    if op:
+        ax.plot([op["false_alarm_rate"]], [op["detection_rate"]], ls="none", marker="o", ms=7, color="#D55E00",
+                label=f"the model's decisions ({op['false_alarm_rate']:.3f}, {op['detection_rate']:.3f})")
     ax.set_xscale("symlog", linthresh=0.01)
     ax.set_xlabel("false-alarm rate on benign pairs [1]")
     ax.set_ylabel("detection rate of faults [1]")

@@ -182,6 +182,8 @@ def test_report_holds_the_verdict_and_the_caution(fault_html, fault_case):
     for cls, p in d["probabilities"].items():
         assert f"{p:.3f}" in plain, cls
     assert d["model"]["name"] in plain
+    # which model, and trained on what: a retrained model has the same name as the bundled one
+    assert d["model"]["source"] in plain and f"trained on {d['model']['training_data']}" in " ".join(plain.split())
     assert (f"probability of no fault {d['probabilities']['none']:.4f} against the threshold "
             f"{d['model']['none_threshold']:.4f} for {d['model']['none_threshold_kind']}") in " ".join(plain.split())
     for w in d["warnings"]:

@@ -519,3 +519,23 @@ def test_a_data_set_of_which_no_pair_compares_says_why(tmp_path, monkeypatch):
     with pytest.raises(ShotcheckError, match=r"d: no pair of the data set could be compared \(3 pairs\); the first, "
                                              r"case 0: time: the record spans 9\.99 us"):
         training.extract_dataset(tmp_path / "d", workers=1, progress=False, use_cache=False)
+
+
+def test_roc_figure_marks_the_models_own_decisions(trained, tmp_path):
+    """The curve sweeps one threshold on P(none); the model decides at a threshold per kind of test shot
+    and by its decisive features, so its detection and false-alarm rates can lie off the curve: the
+    figure marks them (a reader took the curve's 0.985 at zero false alarms for the model's)."""
+    import matplotlib.image as mpimg
+
+    from detector.training import plot_roc
+
+    _, cv, *_ = trained
+    op = cv["operating_point"]
+    assert op["false_alarm_rate"] == pytest.approx(cv["false_alarm_rate"])
+    n_det = sum(cv["detection_counts"][c]["k"] for c in EVENTS if c != "none")
+    n_fault = sum(cv["detection_counts"][c]["n"] for c in EVENTS if c != "none")
+    assert op["detection_rate"] == pytest.approx(n_det / n_fault)
+    plot_roc(cv, tmp_path / "roc.png")
+    img = mpimg.imread(tmp_path / "roc.png")[..., :3]
+    vermillion = np.array([0xD5, 0x5E, 0x00]) / 255.0  # the marker (Okabe & Ito)
+    assert (np.abs(img - vermillion).sum(axis=-1) < 0.05).sum() > 20

@@ -36,7 +36,7 @@ from sklearn.utils.validation import check_is_fitted, column_or_1d, validate_dat
 
 from . import _fastpredict
 from ._stats import agreeing_onset
-from ._validation import ShotcheckError, check_option
+from ._validation import RecordError, ShotcheckError, check_option
 
 __all__ = [
     "EVENT_CLASSES",
@@ -955,9 +955,9 @@ def _strip_training_statistics(parts: Mapping[str, Any]) -> None:
 
 
 def missing_model_error(path: Path) -> ShotcheckError:
-    """The error for a model path that is no file: a folder, or nothing."""
+    """The error for a model path that is no file: a folder, or nothing (names the file)."""
     what = "is a folder; expected a model file (.skops)" if path.is_dir() else "model file not found"
-    return ShotcheckError(f"{path}: {what}")
+    return RecordError(what, path=str(path))
 
 
 def _add_missing_parameters(est: Any) -> None:
@@ -989,13 +989,24 @@ def load_model(path: str | Path, *, expected_schema: str | None = None) -> ShotM
 
     Raises
     ------
-    ShotcheckError
+    RecordError
         If the file is missing, not a skops file, contains untrusted types, is not a shotcheck model, or
-        was trained on another feature schema.
+        was trained on another feature schema (the error's ``path`` names the file).
     """
+    p = Path(path)
+    try:
+        return _load_model(p, expected_schema)
+    except RecordError:
+        raise
+    except ShotcheckError as exc:  # every message starts with the file's name: carried as the error's path
+        msg = str(exc)
+        prefix = f"{p}: "
+        raise RecordError(msg[len(prefix):] if msg.startswith(prefix) else msg, path=str(p)) from None
+
+
+def _load_model(p: Path, expected_schema: str | None) -> ShotModel:
     import skops.io as sio
 
-    p = Path(path)
     if not p.is_file():
         raise missing_model_error(p)
     try:

@@ -415,7 +415,7 @@ def _resolve_family(family: Family | str | Path) -> Family:
     if p.suffix == ".toml" or p.exists():
         return load_family(p)
     raise ShotcheckError(
-        f"unknown winding family {str(family)!r}; use one of {', '.join(fams)} or a .toml file" + _suggest(str(family), fams)
+        f"unknown winding family {str(family)!r}; use one of {', '.join(fams)} or a .toml file." + _suggest(str(family), fams)
     )
 
 

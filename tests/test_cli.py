@@ -122,6 +122,14 @@ def test_a_folder_given_for_a_record_or_a_model_is_named_as_a_folder(tmp_path, c
     write(rec, f)
     assert main(["compare", str(f), str(f), "--model", str(folder)]) == 2
     assert f"{folder}: is a folder; expected a model file (.skops)" in capsys.readouterr().err
+    # the JSON names the model file as the file in error (it said null), missing or damaged
+    junk = tmp_path / "junk.skops"
+    junk.write_text("not a model")
+    for model in (tmp_path / "missing.skops", junk):
+        assert main(["compare", str(f), str(f), "--model", str(model), "--json"]) == 2
+        d = json.loads(capsys.readouterr().out)
+        assert d["file"] == str(model) and d["detail"] in ("model file not found",
+                                                           "not a readable skops model file (BadZipFile: File is not a zip file)")
 
 
 def test_waveshape_of_a_record_whose_time_column_is_in_another_unit_exits_2(tmp_path, capsys):

@@ -415,7 +415,7 @@ def build_parser() -> argparse.ArgumentParser:
                        "locator, and write a model file (skops).")
     p.add_argument("data", metavar="DATA", help="data set folder")
     p.add_argument("--out", metavar="MODEL", required=True, help="model file to write (.skops)")
-    p.add_argument("--false-alarm-rate", type=float, default=0.01, help="threshold false-alarm target (0.01)")
+    p.add_argument("--false-alarm-rate", type=float, default=0.01, help="target share of benign pairs indicated as faults, as a fraction (0.01 = 1 %%, the default)")
     p.add_argument("--seed", type=int, default=0, help="seed of the estimators")
     p.add_argument("--cv-folds", type=int, default=3,
                    help="folds of the grouped cross-validation (at least 2: the decision threshold is set on "
@@ -440,7 +440,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("data", metavar="DATA", help="data set folder with benign (none) pairs")
     p.add_argument("--model", default=None, metavar="PATH", help="model to start from (default: bundled)")
     p.add_argument("--out", required=True, metavar="MODEL", help="model file to write")
-    p.add_argument("--false-alarm-rate", type=float, default=0.01, help="target rate (0.01)")
+    p.add_argument("--false-alarm-rate", type=float, default=0.01, help="target share of benign pairs indicated as faults, as a fraction (0.01 = 1 %%, the default)")
     _data_options(p)
     p.set_defaults(func=_cmd_calibrate)
 

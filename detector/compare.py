@@ -225,7 +225,7 @@ def check_levels(ref_test_voltage_V: float, test_test_voltage_V: float, *, refer
 #: Ratio of the test record's per-unit neutral current peak (current over its test voltage value) to
 #: the reference's beyond which the pair is refused [1]. A healthy winding is linear, so the ratio is 1;
 #: on the 12000 held-out synthetic pairs it never exceeded 2.6 (faults, chopping included), while a
-#: current channel in mA read as A makes it 1000. Downwards a breakdown to ground near the line end
+#: current channel in mA read as A makes it 1000. Downwards a breakdown to ground
 #: takes the neutral current away (ratios down to 0.005 there), so a small ratio is only warned about.
 CURRENT_RATIO_REFUSED = 20.0
 
@@ -267,7 +267,7 @@ def check_currents(pair: AlignedPair, *, reference: str | None = None, test: str
             path=test or "test record", field="current")
     if q < 1.0 / CURRENT_RATIO_REFUSED:
         return [f"the test record's neutral current, scaled to the reference's level, peaks at only {q:.3g} of the "
-                "reference's: a breakdown to ground near the line end can take the current away, but so can a "
+                "reference's: a breakdown to ground can take the current away, but so can a "
                 "unit or scale factor; check the unit and shunt ratio of both current channels"]
     return []
 

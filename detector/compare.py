@@ -224,9 +224,10 @@ def check_levels(ref_test_voltage_V: float, test_test_voltage_V: float, *, refer
 
 #: Ratio of the test record's per-unit neutral current peak (current over its test voltage value) to
 #: the reference's beyond which the pair is refused [1]. A healthy winding is linear, so the ratio is 1;
-#: on the 12000 held-out synthetic pairs it never exceeded 2.6 (faults, chopping included), while a
-#: current channel in mA read as A makes it 1000. Downwards a breakdown to ground
-#: takes the neutral current away (ratios down to 0.005 there), so a small ratio is only warned about.
+#: on the 12000 held-out synthetic pairs (peak current over peak voltage) it never exceeded 2.9, faults
+#: and chopping included, while a current channel in mA read as A makes it 1000. Downwards a breakdown
+#: to ground takes the neutral current away (ratios down to 0.005 there; benign chopped pairs down to
+#: 0.07), so a small ratio is only warned about.
 CURRENT_RATIO_REFUSED = 20.0
 
 
